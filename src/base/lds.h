@@ -1,0 +1,28 @@
+/* Deterministic sample sequences. A sample depends only on (key, index), never on which
+ * thread computes it or in which order, so bakes are the same bytes at any -j. */
+#ifndef BRM_LDS_H
+#define BRM_LDS_H
+
+#include <stdint.h>
+
+/* splitmix64 finaliser (Steele, Lea & Flood 2014): a well-mixed 64-bit hash. */
+static inline uint64_t brm_hash64(uint64_t x)
+{
+    x += 0x9e3779b97f4a7c15ull;
+    x = (x ^ (x >> 30)) * 0xbf58476d1ce4e5b9ull;
+    x = (x ^ (x >> 27)) * 0x94d049bb133111ebull;
+    return x ^ (x >> 31);
+}
+
+/* Uniform double in [0, 1) from a key. */
+static inline double brm_hash_unit(uint64_t key) { return (double)(brm_hash64(key) >> 11) * 0x1.0p-53; }
+
+/* Point i of the R3 sequence (Roberts 2018, "The unreasonable effectiveness of quasirandom
+ * sequences": additive recurrence on the generalised golden ratio), shifted by a per-key
+ * Cranley-Patterson rotation, in [0, 1)^3. */
+void brm_sample3(uint64_t key, uint32_t i, double out[3]);
+
+/* The same in 2-D (R2). */
+void brm_sample2(uint64_t key, uint32_t i, double out[2]);
+
+#endif

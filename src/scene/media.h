@@ -1,0 +1,41 @@
+/* Participating media: the one place that says how much fog is where.
+ *
+ * Every stage (the bakers, shadow optical-depth maps, the exact reference, probes) asks these
+ * functions, so the density model is written once. Media exist only inside the scene's fog
+ * bounds; outside them every coefficient is zero. Media add up; noise multiplies the sum of
+ * the others by max(0, 1 + strength·n(p/scale_m)). */
+#ifndef BRM_MEDIA_H
+#define BRM_MEDIA_H
+
+#include "scene/scene.h"
+
+typedef struct brm_media_point {
+    double sigma_t;                     /* total extinction, 1/m */
+    brm_vec3 sigma_s;                   /* total scattering per RGB channel, 1/m */
+    uint32_t count;                     /* media that contribute here (scattering media only) */
+    uint16_t medium[BRM_MAX_MEDIA];     /* their indices in brm_scene.media */
+    double sigma_t_each[BRM_MAX_MEDIA]; /* each one's extinction here (noise factor applied) */
+} brm_media_point;
+
+/* Extinction sigma_t (1/m) at p: the fast call for optical depth and the extinction channel. */
+double brm_media_extinction(const brm_scene *s, brm_vec3 p);
+
+/* Extinction, scattering and the per-medium split at p (for phase blending). */
+void brm_media_eval(const brm_scene *s, brm_vec3 p, brm_media_point *out);
+
+/* The noise factor max(0, 1 + strength·n) of all noise media at p (1 when there are none). */
+double brm_media_noise_factor(const brm_scene *s, brm_vec3 p);
+
+/* The deterministic fBm of gradient noise behind the noise medium: values in about [−1, 1],
+ * `octaves` octaves, seeded. Exposed for tests. */
+double brm_noise_fbm(const brm_scene *s, uint32_t medium_index, brm_vec3 p_scaled);
+
+/* Scattering weighted by phase: for each channel c, Σ_i sigma_s,i,c · p_i(cos_theta), the
+ * sigma_s-weighted blend of the overlapping media's phase functions times sigma_s.
+ * cos_theta = dot(view direction, direction toward the light) (SPEC.md). */
+brm_vec3 brm_media_scatter_phase(const brm_scene *s, const brm_media_point *mp, double cos_theta);
+
+/* Whether any medium can have fog inside box b (conservative: false means none anywhere). */
+bool brm_media_any_in(const brm_scene *s, brm_aabb b);
+
+#endif

@@ -1,0 +1,50 @@
+/* Light visibility and transmittance for one target: what the lighting kernel asks per sample.
+ *
+ * Fast path: a CPU-rasterized depth map per shadow-casting light (orthographic fitted to the
+ * target for directional lights, reaching toward the light far enough to catch every occluder;
+ * perspective for spots; six faces for points), slope-scaled bias, percentage-closer filtered
+ * lookups; and an optical-depth structure per light for transmittance through the media up to
+ * where the path leaves the fog bounds.
+ * Reference path (opts.reference): visibility by rays through the BVH and transmittance by a
+ * fine march. Built once per target, read-only afterwards: safe from any number of threads. */
+#ifndef BRM_SHADOW_H
+#define BRM_SHADOW_H
+
+#include "scene/scene.h"
+#include "shadow/bvh.h"
+
+typedef struct brm_shadow_opts {
+    brm_aabb bounds;        /* what the target needs lit (world: its box; frustum: its pyramid) */
+    double cell_size;       /* the target's smallest cell edge, for default map resolution */
+    int threads;
+    bool reference;
+    const brm_bvh *bvh;     /* the scene's ray caster (required for the reference path) */
+} brm_shadow_opts;
+
+typedef struct brm_shadow_set brm_shadow_set;
+
+brm_status brm_shadows_build(const brm_scene *s, const brm_shadow_opts *o, brm_shadow_set **out, brm_diag *d);
+void brm_shadows_free(brm_shadow_set *ss);
+/* Bytes brm_shadows_build will allocate (for the memory estimate). */
+size_t brm_shadows_memory(const brm_scene *s, const brm_shadow_opts *o);
+
+/* Geometric visibility of light l from p, in [0, 1] (filtered). 1 when the light casts no shadow. */
+double brm_shadow_visibility(const brm_shadow_set *ss, uint32_t l, brm_vec3 p);
+
+/* Transmittance exp(−∫sigma_t) from p toward light l, up to the light or to where the path
+ * leaves the fog bounds. Within 1 % of the reference march. */
+double brm_shadow_transmittance(const brm_shadow_set *ss, uint32_t l, brm_vec3 p);
+
+/* Texel size (m) of light l's map near p; 0 for lights without a map (for warnings). */
+double brm_shadow_texel_size(const brm_shadow_set *ss, uint32_t l);
+
+/* ---- sky ---------------------------------------------------------------------------- */
+
+/* Sky light reaching p, blocked by all the scene's geometry (not dimmed by fog: an ambient
+ * approximation, SPEC.md), projected onto real SH bands 0–1 with the basis of SPEC.md:
+ * out[c][m] = ∫ L_sky,c(ω) V(p, ω) Y_m(ω) dω for m = 0..3 (Y00, Y1−1, Y10, Y11), ω toward
+ * the sky. sample_index picks the deterministic ray set (different per sample decorrelates
+ * cells). With no sky everything is 0 and nothing is traced. */
+void brm_sky_incident(const brm_shadow_set *ss, brm_vec3 p, uint32_t sample_index, double out[3][4]);
+
+#endif

@@ -1,0 +1,42 @@
+/* Voxelization of the scene's solid geometry into a grid.
+ *
+ * Surface cells: every cell a triangle overlaps (separating-axis triangle–box test,
+ * Akenine-Möller 2001) and every cell a box or sphere boundary crosses (exact, analytic).
+ * Interior: cells not reachable from the grid boundary through empty cells (6-connected flood
+ * fill), so closed meshes and primitives fill and open meshes mark only their surface.
+ * Occupancy is the fraction of each cell inside solid geometry: 0 or 1 away from surfaces,
+ * estimated by sub-cell point classification in surface cells. */
+#ifndef BRM_VOXELIZE_H
+#define BRM_VOXELIZE_H
+
+#include "voxel/grid.h"
+
+enum {
+    BRM_CELL_EMPTY = 0,
+    BRM_CELL_SURFACE = 1,
+    BRM_CELL_INTERIOR = 2
+};
+
+typedef struct brm_occupancy {
+    uint32_t n[3];
+    uint8_t *state;     /* BRM_CELL_* per cell, x fastest; owned */
+    float *fraction;    /* solid fraction per cell in [0, 1]; owned */
+} brm_occupancy;
+
+/* Voxelizes every object of s into grid g (world and frustum grids). threads: worker count. */
+brm_status brm_voxelize(const brm_scene *s, const brm_grid *g, int threads, brm_occupancy *out,
+                        brm_diag *d);
+void brm_occupancy_free(brm_occupancy *o);
+
+/* Bytes brm_voxelize needs for grid g (for the memory estimate). */
+size_t brm_voxelize_memory(const brm_grid *g);
+
+/* Separating-axis triangle/box overlap (Akenine-Möller 2001): box centre c, half-size h.
+ * Touching counts as overlap. */
+int brm_tri_box_overlap(brm_vec3 c, brm_vec3 h, const brm_vec3 v[3]);
+
+/* Whether point p lies inside solid geometry of s (boxes, spheres, closed meshes by ray
+ * parity). The exact reference and probe validity use it. */
+int brm_point_in_solid(const brm_scene *s, brm_vec3 p);
+
+#endif
