@@ -11,7 +11,7 @@
 #define BRM_SHADOW_H
 
 #include "scene/scene.h"
-#include "shadow/bvh.h"
+#include "voxel/bvh.h"
 
 typedef struct brm_shadow_opts {
     brm_aabb bounds;        /* what the target needs lit (world: its box; frustum: its pyramid) */
