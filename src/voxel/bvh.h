@@ -26,4 +26,29 @@ int brm_bvh_intersect(const brm_bvh *b, brm_vec3 o, brm_vec3 dir, double tmin, d
 /* Whether anything blocks the ray within (tmin, tmax) (any hit, faster). */
 int brm_bvh_occluded(const brm_bvh *b, brm_vec3 o, brm_vec3 dir, double tmin, double tmax);
 
+/* ---- additions (voxel room) ------------------------------------------------------------ */
+
+/* The same over a subset: only primitives whose object has object_mask[object] != 0 (NULL:
+ * all). The voxelizer's solid index uses it to cast parity rays against closed meshes only. */
+brm_status brm_bvh_build_subset(const brm_scene *s, const uint8_t *object_mask, brm_bvh **out,
+                                brm_diag *d);
+
+/* Every hit of the ray within (tmin, tmax), in no particular order. near_edge is 1 when the
+ * hit lies within the edge tolerance of a triangle's edge or vertex, or grazes a sphere: a
+ * parity count should then cast again in another direction. */
+typedef void (*brm_hit_visit)(void *ctx, const brm_hit *hit, int near_edge);
+void brm_bvh_all_hits(const brm_bvh *b, brm_vec3 o, brm_vec3 dir, double tmin, double tmax,
+                      brm_hit_visit visit, void *ctx);
+
+/* Primitive tests the BVH uses, exposed for brute-force checks.
+ * Ray–triangle by Möller and Trumbore (1997), barycentric bounds widened by BRM_TRI_EDGE_EPS so
+ * a ray through a shared edge or vertex hits at least one of the triangles. Returns 1 and *t
+ * for a hit with t in (tmin, tmax); *near_edge as above (may be NULL). */
+#define BRM_TRI_EDGE_EPS 1e-10
+int brm_ray_triangle(brm_vec3 o, brm_vec3 dir, const brm_vec3 v[3], double tmin, double tmax, double *t,
+                     int *near_edge);
+/* Ray–sphere, analytic: the nearest root in (tmin, tmax). */
+int brm_ray_sphere(brm_vec3 o, brm_vec3 dir, brm_vec3 c, double r, double tmin, double tmax, double *t,
+                   int *near_edge);
+
 #endif

@@ -1,0 +1,58 @@
+/* Ray caster speed: closest-hit and any-hit rays per second on one core, over a scene of a
+ * few thousand triangles (triangulated spheres and boxes on a ground slab) and a few analytic
+ * spheres. Run: build/bench/bench_bvh [rays]. */
+#include <stdio.h>
+#include <stdlib.h>
+
+#include "base/threads.h"
+#include "voxel/bvh.h"
+#include "../tests/voxel/fixture.h"
+
+int main(int argc, char **argv)
+{
+    long rays = argc > 1 ? atol(argv[1]) : 2000000;
+    if (rays < 1) rays = 1;
+    fx_scene f;
+    fx_init(&f);
+    uint64_t rng = 2024;
+    fx_box(&f, brm_v3(-40, -1, -40), brm_v3(40, 0, 40));
+    for (int i = 0; i < 8; i++)
+        fx_uv_sphere(&f, brm_v3(fx_range(&rng, -30, 30), 3, fx_range(&rng, -30, 30)), 3.0, 32);
+    for (int i = 0; i < 60; i++) {
+        brm_vec3 c = brm_v3(fx_range(&rng, -35, 35), 0, fx_range(&rng, -35, 35));
+        fx_box(&f, brm_sub(c, brm_v3(1, 0, 1)), brm_add(c, brm_v3(1, fx_range(&rng, 1, 8), 1)));
+    }
+    for (int i = 0; i < 4; i++) fx_sphere(&f, brm_v3(fx_range(&rng, -30, 30), 6, fx_range(&rng, -30, 30)), 2.0);
+    brm_bvh *b = NULL;
+    double t0 = brm_now();
+    if (brm_bvh_build(&f.s, &b, NULL) != BRM_OK) return 1;
+    double t_build = brm_now() - t0;
+
+    brm_vec3 *o = malloc(sizeof *o * 4096), *d = malloc(sizeof *d * 4096);
+    for (int i = 0; i < 4096; i++) {
+        o[i] = brm_v3(fx_range(&rng, -38, 38), fx_range(&rng, 0.5, 10), fx_range(&rng, -38, 38));
+        d[i] = fx_dir(&rng);
+    }
+    long hits = 0;
+    t0 = brm_now();
+    for (long r = 0; r < rays; r++) {
+        brm_hit h;
+        hits += brm_bvh_intersect(b, o[r & 4095], d[(r * 7 + (r >> 12)) & 4095], 0, HUGE_VAL, &h);
+    }
+    double t_closest = brm_now() - t0;
+    long occl = 0;
+    t0 = brm_now();
+    for (long r = 0; r < rays; r++)
+        occl += brm_bvh_occluded(b, o[r & 4095], d[(r * 7 + (r >> 12)) & 4095], 0, 30.0);
+    double t_any = brm_now() - t0;
+    printf("scene: %u triangles, 4 analytic spheres; build %.2f ms\n", f.s.tri_count, t_build * 1e3);
+    printf("closest hit: %ld rays in %.3f s = %.2f Mrays/s (%.1f %% hit)\n", rays, t_closest,
+           rays / t_closest * 1e-6, 100.0 * hits / rays);
+    printf("any hit (tmax 30 m): %ld rays in %.3f s = %.2f Mrays/s (%.1f %% blocked)\n", rays, t_any,
+           rays / t_any * 1e-6, 100.0 * occl / rays);
+    free(o);
+    free(d);
+    brm_bvh_free(b);
+    fx_free(&f);
+    return 0;
+}

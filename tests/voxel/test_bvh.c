@@ -1,0 +1,302 @@
+/* Tests of the ray caster (src/voxel/bvh.c): closed forms for the primitive tests, and the
+ * tree against brute force over every primitive. */
+#include "check.h"
+#include "fixture.h"
+#include "voxel/bvh.h"
+
+/* Brute force: every primitive, the same primitive tests and the same tie rule (lowest
+ * triangle index, then spheres by object) as the tree. */
+static int brute_intersect(const brm_scene *s, brm_vec3 o, brm_vec3 d, double tmin, double tmax, double *bt,
+                           uint32_t *btri, uint32_t *bobj)
+{
+    int found = 0;
+    for (uint32_t i = 0; i < s->tri_count; i++) {
+        double t;
+        double lim = found ? nextafter(*bt, HUGE_VAL) : tmax;
+        if (brm_ray_triangle(o, d, s->tris[i].v, tmin, lim, &t, NULL) && (!found || t < *bt)) {
+            *bt = t;
+            *btri = i;
+            *bobj = s->tris[i].object;
+            found = 1;
+        }
+    }
+    for (uint32_t i = 0; i < s->object_count; i++) {
+        const brm_object *ob = &s->objects[i];
+        if (ob->shape != BRM_SHAPE_SPHERE) continue;
+        double t;
+        if (brm_ray_sphere(o, d, ob->center, ob->radius, tmin, found ? *bt : tmax, &t, NULL)) {
+            *bt = t;
+            *btri = UINT32_MAX;
+            *bobj = i;
+            found = 1;
+        }
+    }
+    return found;
+}
+
+static void build_mixed(fx_scene *f, uint64_t *rng)
+{
+    fx_init(f);
+    /* A soup of 3000 random small triangles in [-10, 10]³, a few spheres, a box and a closed
+     * triangulated sphere: enough depth for the tree to matter. */
+    uint32_t soup = fx_object(f, BRM_SHAPE_MESH);
+    f->s.objects[soup].closed = false;
+    for (int i = 0; i < 3000; i++) {
+        brm_vec3 a = fx_point(rng, -10, 10);
+        fx_tri(f, soup, a, brm_add(a, fx_point(rng, -1.5, 1.5)), brm_add(a, fx_point(rng, -1.5, 1.5)));
+    }
+    for (int i = 0; i < 6; i++) fx_sphere(f, fx_point(rng, -8, 8), fx_range(rng, 1.0, 3.0));
+    fx_box(f, brm_v3(-3, -1, 2), brm_v3(1, 4, 5));
+    fx_uv_sphere(f, brm_v3(4, 4, -4), 2.5, 24);
+}
+
+static void bvh_should_match_brute_force_on_random_rays(void **state)
+{
+    (void)state;
+    uint64_t rng = 12345;
+    fx_scene f;
+    build_mixed(&f, &rng);
+    brm_bvh *b = NULL;
+    brm_diag d;
+    brm_diag_init(&d);
+    assert_int_equal(brm_bvh_build(&f.s, &b, &d), BRM_OK);
+    int hits = 0, sphere_hits = 0, limited = 0;
+    for (int r = 0; r < 6000; r++) {
+        brm_vec3 o = fx_point(&rng, -11, 11), dir = fx_dir(&rng);
+        double tmax = (r % 3 == 0) ? fx_range(&rng, 0.5, 10) : HUGE_VAL;
+        double tmin = (r % 5 == 0) ? fx_range(&rng, 0.0, 2.0) : 0.0;
+        brm_hit h;
+        double bt = 0;
+        uint32_t btri = 0, bobj = 0;
+        int got = brm_bvh_intersect(b, o, dir, tmin, tmax, &h);
+        int want = brute_intersect(&f.s, o, dir, tmin, tmax, &bt, &btri, &bobj);
+        assert_int_equal(got, want);
+        /* Any-hit agrees with closest-hit over the same interval. */
+        assert_int_equal(brm_bvh_occluded(b, o, dir, tmin, tmax), want);
+        if (!want) continue;
+        hits++;
+        if (tmax < HUGE_VAL) limited++;
+        assert_true(h.t == bt);
+        assert_int_equal(h.tri, btri);
+        assert_int_equal(h.object, bobj);
+        if (btri == UINT32_MAX) sphere_hits++;
+        /* The normal faces against the ray and is unit length. */
+        assert_true(brm_dot(h.normal, dir) <= 0.0);
+        assert_near(brm_len(h.normal), 1.0, 1e-12, 0);
+        /* Nothing lies strictly before the closest hit. */
+        assert_false(brm_bvh_occluded(b, o, dir, tmin, bt));
+    }
+    /* The sample is not trivial: most rays hit, spheres and short rays included. */
+    assert_true(hits > 2500);
+    assert_true(sphere_hits > 200);
+    assert_true(limited > 600);
+    brm_bvh_free(b);
+    fx_free(&f);
+}
+
+static void ray_triangle_should_give_plane_distance_and_winding(void **state)
+{
+    (void)state;
+    /* Source: closed form — the ray (0.2, 0.3, 5) + t·(0, 0, −1) meets the plane z = 1 at t = 4;
+     * the point (0.2, 0.3) is inside the triangle (0,0) (1,0) (0,1) since 0.2 + 0.3 < 1. */
+    brm_vec3 v[3] = {{0, 0, 1}, {1, 0, 1}, {0, 1, 1}};
+    double t = 0;
+    int ne = -1;
+    assert_true(brm_ray_triangle(brm_v3(0.2, 0.3, 5), brm_v3(0, 0, -1), v, 0, HUGE_VAL, &t, &ne));
+    assert_near(t, 4.0, 1e-15, 0);
+    assert_int_equal(ne, 0);
+    /* Outside: 0.6 + 0.6 > 1. */
+    assert_false(brm_ray_triangle(brm_v3(0.6, 0.6, 5), brm_v3(0, 0, -1), v, 0, HUGE_VAL, &t, NULL));
+    /* The open interval: t = 4 is excluded by tmax = 4 and by tmin = 4. */
+    assert_false(brm_ray_triangle(brm_v3(0.2, 0.3, 5), brm_v3(0, 0, -1), v, 0, 4.0, &t, NULL));
+    assert_false(brm_ray_triangle(brm_v3(0.2, 0.3, 5), brm_v3(0, 0, -1), v, 4.0, HUGE_VAL, &t, NULL));
+    /* Parallel to the plane: no hit. */
+    assert_false(brm_ray_triangle(brm_v3(0.2, 0.3, 5), brm_v3(1, 0, 0), v, 0, HUGE_VAL, &t, NULL));
+
+    /* Winding: n = (v1 − v0) × (v2 − v0) = +z here; a ray going −z sees the front. */
+    fx_scene f;
+    fx_init(&f);
+    uint32_t o = fx_object(&f, BRM_SHAPE_MESH);
+    fx_tri(&f, o, v[0], v[1], v[2]);
+    brm_bvh *b = NULL;
+    assert_int_equal(brm_bvh_build(&f.s, &b, NULL), BRM_OK);
+    brm_hit h;
+    assert_true(brm_bvh_intersect(b, brm_v3(0.2, 0.3, 5), brm_v3(0, 0, -1), 0, HUGE_VAL, &h));
+    assert_false(h.back_face);
+    assert_near(h.normal.z, 1.0, 1e-15, 0);
+    assert_true(brm_bvh_intersect(b, brm_v3(0.2, 0.3, -5), brm_v3(0, 0, 1), 0, HUGE_VAL, &h));
+    assert_true(h.back_face);
+    assert_near(h.normal.z, -1.0, 1e-15, 0);
+    assert_near(h.t, 6.0, 1e-15, 0);
+    assert_int_equal(h.tri, 0);
+    assert_int_equal(h.object, o);
+    brm_bvh_free(b);
+    fx_free(&f);
+}
+
+static void ray_from_inside_sphere_should_report_back_face(void **state)
+{
+    (void)state;
+    fx_scene f;
+    fx_init(&f);
+    brm_vec3 c = brm_v3(1, -2, 3);
+    double r = 2.5;
+    uint32_t o = fx_sphere(&f, c, r);
+    brm_bvh *b = NULL;
+    assert_int_equal(brm_bvh_build(&f.s, &b, NULL), BRM_OK);
+    uint64_t rng = 7;
+    for (int i = 0; i < 200; i++) {
+        /* Source: closed form — from the centre every ray leaves at t = r; from an inner point
+         * p the exit is t = −b + sqrt(b² − (|p − c|² − r²)), b = (p − c)·d. */
+        brm_vec3 dir = fx_dir(&rng);
+        brm_hit h;
+        assert_true(brm_bvh_intersect(b, c, dir, 0, HUGE_VAL, &h));
+        assert_near(h.t, r, 1e-12, 0);
+        assert_true(h.back_face);
+        assert_int_equal(h.object, o);
+        assert_int_equal(h.tri, UINT32_MAX);
+        assert_true(brm_dot(h.normal, dir) < 0.0);
+        brm_vec3 p = brm_add(c, brm_scale(fx_dir(&rng), 0.9 * r * fx_unif(&rng)));
+        brm_vec3 pc = brm_sub(p, c);
+        double bb = brm_dot(pc, dir);
+        double want = -bb + sqrt(bb * bb - (brm_dot(pc, pc) - r * r));
+        assert_true(brm_bvh_intersect(b, p, dir, 0, HUGE_VAL, &h));
+        assert_near(h.t, want, 1e-12, 0);
+        assert_true(h.back_face);
+    }
+    /* From outside, aimed at the centre: front face at distance |p − c| − r. */
+    brm_hit h;
+    assert_true(brm_bvh_intersect(b, brm_v3(1, -2, 13), brm_v3(0, 0, -1), 0, HUGE_VAL, &h));
+    assert_near(h.t, 10 - r, 1e-12, 0);
+    assert_false(h.back_face);
+    assert_near(h.normal.z, 1.0, 1e-12, 0);
+    brm_bvh_free(b);
+    fx_free(&f);
+}
+
+static void rays_through_shared_edges_and_vertices_should_hit(void **state)
+{
+    (void)state;
+    /* A closed box mesh: rays aimed exactly at every vertex and every edge midpoint from
+     * outside must hit (a leak between the two triangles of an edge would let light through). */
+    fx_scene f;
+    fx_init(&f);
+    brm_vec3 lo = brm_v3(-1.3, -0.7, 0.1), hi = brm_v3(2.1, 1.9, 3.7);
+    fx_box_mesh(&f, lo, hi);
+    brm_bvh *b = NULL;
+    assert_int_equal(brm_bvh_build(&f.s, &b, NULL), BRM_OK);
+    brm_vec3 centre = brm_scale(brm_add(lo, hi), 0.5);
+    int tested = 0;
+    for (int i = 0; i < 8; i++) {
+        for (int j = i; j < 8; j++) {
+            int diff = i ^ j;
+            if (diff != 0 && diff != 1 && diff != 2 && diff != 4) continue;   /* vertex or edge */
+            brm_vec3 target = brm_scale(brm_add(fx_corner(lo, hi, i), fx_corner(lo, hi, j)), 0.5);
+            /* From outside, along the line from the box centre through the target. */
+            brm_vec3 from = brm_add(target, brm_scale(brm_sub(target, centre), 1.7));
+            brm_vec3 dir = brm_norm(brm_sub(target, from));
+            brm_hit h;
+            assert_true(brm_bvh_intersect(b, from, dir, 0, HUGE_VAL, &h));
+            assert_near(h.t, brm_len(brm_sub(target, from)), 1e-9, 1e-12);
+            assert_false(h.back_face);
+            tested++;
+        }
+    }
+    assert_int_equal(tested, 8 + 12);
+    /* Rays along the diagonal shared by the two triangles of each face, hitting head-on. */
+    uint64_t rng = 99;
+    for (int n = 0; n < 500; n++) {
+        double s = fx_unif(&rng);
+        /* +z face: triangles (4,5,7) and (4,7,6) share the diagonal 4–7. */
+        brm_vec3 p = brm_add(fx_corner(lo, hi, 4), brm_scale(brm_sub(fx_corner(lo, hi, 7), fx_corner(lo, hi, 4)), s));
+        brm_hit h;
+        assert_true(brm_bvh_intersect(b, brm_add(p, brm_v3(0, 0, 5)), brm_v3(0, 0, -1), 0, HUGE_VAL, &h));
+        assert_near(h.t, 5.0, 1e-12, 0);
+        assert_false(h.back_face);
+    }
+    brm_bvh_free(b);
+    fx_free(&f);
+}
+
+static void bvh_should_handle_empty_and_degenerate_scenes(void **state)
+{
+    (void)state;
+    fx_scene f;
+    fx_init(&f);
+    brm_bvh *b = NULL;
+    assert_int_equal(brm_bvh_build(&f.s, &b, NULL), BRM_OK);
+    brm_hit h;
+    assert_false(brm_bvh_intersect(b, brm_v3(0, 0, 0), brm_v3(1, 0, 0), 0, HUGE_VAL, &h));
+    assert_false(brm_bvh_occluded(b, brm_v3(0, 0, 0), brm_v3(1, 0, 0), 0, HUGE_VAL));
+    brm_bvh_free(b);
+    /* 200 copies of one triangle: all centroids coincide, SAH cannot split; the lowest index
+     * wins the tie. */
+    uint32_t o = fx_object(&f, BRM_SHAPE_MESH);
+    for (int i = 0; i < 200; i++) fx_tri(&f, o, brm_v3(0, 0, 0), brm_v3(1, 0, 0), brm_v3(0, 1, 0));
+    assert_int_equal(brm_bvh_build(&f.s, &b, NULL), BRM_OK);
+    assert_true(brm_bvh_intersect(b, brm_v3(0.25, 0.25, 1), brm_v3(0, 0, -1), 0, HUGE_VAL, &h));
+    assert_int_equal(h.tri, 0);
+    assert_near(h.t, 1.0, 1e-15, 0);
+    brm_bvh_free(b);
+    assert_true(brm_bvh_memory(&f.s) > 200 * sizeof(brm_tri));
+    fx_free(&f);
+}
+
+typedef struct count_ctx {
+    int n, back;
+} count_ctx;
+
+static void count_visit(void *ctx, const brm_hit *h, int near_edge)
+{
+    count_ctx *c = ctx;
+    (void)near_edge;
+    c->n++;
+    c->back += h->back_face;
+}
+
+static void all_hits_should_cross_closed_shapes_twice(void **state)
+{
+    (void)state;
+    fx_scene f;
+    fx_init(&f);
+    fx_sphere(&f, brm_v3(0, 0, 0), 1.0);
+    fx_uv_sphere(&f, brm_v3(5, 0, 0), 1.0, 16);
+    fx_box(&f, brm_v3(9, -1, -1), brm_v3(11, 1, 1));
+    brm_bvh *b = NULL;
+    assert_int_equal(brm_bvh_build(&f.s, &b, NULL), BRM_OK);
+    /* A line through all three closed shapes, off their symmetry planes: two crossings each,
+     * one entering (front) and one leaving (back). */
+    count_ctx c = {0, 0};
+    brm_bvh_all_hits(b, brm_v3(-5, 0.113, 0.071), brm_v3(1, 0, 0), 0, HUGE_VAL, count_visit, &c);
+    assert_int_equal(c.n, 6);
+    assert_int_equal(c.back, 3);
+    /* The subset over the box only. */
+    brm_bvh *bs = NULL;
+    uint8_t mask[3] = {0, 0, 1};
+    assert_int_equal(brm_bvh_build_subset(&f.s, mask, &bs, NULL), BRM_OK);
+    c.n = c.back = 0;
+    brm_bvh_all_hits(bs, brm_v3(-5, 0.113, 0.071), brm_v3(1, 0, 0), 0, HUGE_VAL, count_visit, &c);
+    assert_int_equal(c.n, 2);
+    assert_int_equal(c.back, 1);
+    /* From inside the sphere only the exit remains. */
+    c.n = c.back = 0;
+    brm_bvh_all_hits(b, brm_v3(0, 0.113, 0.071), brm_v3(1, 0, 0), 0, 3.0, count_visit, &c);
+    assert_int_equal(c.n, 1);
+    assert_int_equal(c.back, 1);
+    brm_bvh_free(bs);
+    brm_bvh_free(b);
+    fx_free(&f);
+}
+
+int main(void)
+{
+    const struct CMUnitTest tests[] = {
+        cmocka_unit_test(ray_triangle_should_give_plane_distance_and_winding),
+        cmocka_unit_test(ray_from_inside_sphere_should_report_back_face),
+        cmocka_unit_test(bvh_should_match_brute_force_on_random_rays),
+        cmocka_unit_test(rays_through_shared_edges_and_vertices_should_hit),
+        cmocka_unit_test(bvh_should_handle_empty_and_degenerate_scenes),
+        cmocka_unit_test(all_hits_should_cross_closed_shapes_twice),
+    };
+    return cmocka_run_group_tests(tests, NULL, NULL);
+}
