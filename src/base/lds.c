@@ -24,3 +24,24 @@ void brm_sample2(uint64_t key, uint32_t i, double out[2])
     out[0] = frac(brm_hash_unit(key * 2 + 0) + n * a1);
     out[1] = frac(brm_hash_unit(key * 2 + 1) + n * a2);
 }
+
+void brm_cell_samples(uint64_t key, uint32_t S, double (*out)[3])
+{
+    uint32_t perm[BRM_MAX_CELL_SAMPLES];
+    if (S > BRM_MAX_CELL_SAMPLES) S = BRM_MAX_CELL_SAMPLES;
+    for (int a = 0; a < 3; a++) {
+        uint64_t k = brm_hash64(key * 0x2545f4914f6cdd1dull + (uint64_t)a * 0x9e3779b97f4a7c15ull + 1);
+        for (uint32_t s = 0; s < S; s++) perm[s] = s;
+        /* Fisher–Yates with a counter-based hash as the random source. */
+        for (uint32_t s = S; s > 1; s--) {
+            uint32_t r = (uint32_t)((brm_hash64(k + s) >> 32) * (uint64_t)s >> 32);
+            uint32_t t = perm[s - 1];
+            perm[s - 1] = perm[r];
+            perm[r] = t;
+        }
+        for (uint32_t s = 0; s < S; s++) {
+            double jitter = brm_hash_unit(k ^ (0xd1b54a32d192ed03ull * (s + 1)));
+            out[s][a] = ((double)perm[s] + jitter) / (double)S;
+        }
+    }
+}

@@ -1,0 +1,31 @@
+/* The lighting kernel: in-scattered light at one sample point, written once and shared by
+ * every target kind and by the exact reference (which differs only in the shadow set it is
+ * given). Per light: falloff × shadow-map visibility × transmittance toward the light × colour;
+ * plus sky light blocked by geometry. */
+#ifndef BRM_KERNEL_H
+#define BRM_KERNEL_H
+
+#include "scene/media.h"
+#include "shadow/shadow.h"
+
+typedef struct brm_kernel {
+    const brm_scene *scene;
+    const brm_shadow_set *shadows;
+} brm_kernel;
+
+typedef struct brm_kernel_out {
+    double sigma_t;             /* extinction at p */
+    brm_vec3 sigma_s;           /* scattering at p */
+    double inscatter[3];        /* sigma_s/(4π) ∫ L_in dω per channel (isotropic in-scatter) */
+    double dir[3][4];           /* sigma_s · bands 0–1 projection of L_in, per channel */
+    double toward_view[3];      /* only with a view direction: ∫ Σ_i sigma_s,i p_i(v·ω) L_in dω */
+    uint32_t light_evals;       /* lights evaluated (for throughput figures) */
+} brm_kernel_out;
+
+/* Evaluates the kernel at p for the lights listed (culled by the caller per brick).
+ * view: unit direction from the camera toward p, or NULL for view-independent output only.
+ * sample_index decorrelates the sky rays between samples. */
+void brm_kernel_eval(const brm_kernel *k, brm_vec3 p, const uint32_t *lights, uint32_t light_count,
+                     uint32_t sample_index, const brm_vec3 *view, brm_kernel_out *out);
+
+#endif
