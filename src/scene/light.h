@@ -12,6 +12,11 @@
  * reach. */
 double brm_light_illuminance(const brm_light *l, brm_vec3 p, brm_vec3 *to_light, double *dist);
 
+/* Luminous intensity (cd) of a point light (I = Φ/(4π)) or a spot with cone cosine cos_outer
+ * (I = Φ/(2π(1 − cos outer)), the flux spread over the cone's solid angle) of flux flux_lm.
+ * The loader uses it for `flux_lm`. */
+double brm_light_intensity_from_flux(brm_light_type type, double flux_lm, double cos_outer);
+
 /* Whether the light can reach anything inside box b (range and cone culling, conservative). */
 bool brm_light_reaches(const brm_light *l, brm_aabb b);
 

@@ -17,6 +17,16 @@ typedef struct brm_media_point {
     double sigma_t_each[BRM_MAX_MEDIA]; /* each one's extinction here (noise factor applied) */
 } brm_media_point;
 
+/* Precomputes what the media functions need (reciprocals, the noise permutation tables) and
+ * sets s->media_ready. The loader calls it; a scene assembled by hand (tests, tools) must call
+ * it after filling s->media and s->fog_bounds and before any other function here. Frees and
+ * rebuilds the noise table when called again. Returns BRM_E_NOMEM on allocation failure. */
+brm_status brm_media_prepare(brm_scene *s, brm_diag *d);
+
+/* Extinction (1/m) for a meteorological optical range of visibility_m metres (5 % contrast):
+ * sigma_t = ln(20)/V. The loader uses it for `visibility_m`. */
+double brm_media_extinction_from_visibility(double visibility_m);
+
 /* Extinction sigma_t (1/m) at p: the fast call for optical depth and the extinction channel. */
 double brm_media_extinction(const brm_scene *s, brm_vec3 p);
 

@@ -8,8 +8,9 @@
 
 double brm_phase_eval(const brm_phase *ph, double cos_theta);
 
-/* Legendre moment g_l of the phase function for bands l = 0..2 (1, <cos>, ...), used to apply
- * a phase to SH-projected radiance. Exact for HG (g^l); numerically integrated once otherwise. */
+/* Legendre moment chi_l = 2π ∫ p(μ) P_l(μ) dμ of the phase function for bands l = 0..2
+ * (1, <cos θ>, ...), used to apply a phase to SH-projected radiance. Closed forms for every
+ * model (HG: g^l; the others derived in phase.c). l outside 0..2 is a programming error. */
 double brm_phase_moment(const brm_phase *ph, int l);
 
 #endif

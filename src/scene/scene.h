@@ -121,6 +121,10 @@ typedef struct brm_medium {
     double strength;            /* noise */
     brm_vec3 albedo;            /* sigma_s / sigma_t per channel, default 0.9 (not noise) */
     brm_phase phase;            /* not noise */
+    /* Filled by brm_media_prepare (media.h) so the inner loops never divide: */
+    double inv_scale_height;    /* height: 1/scale_height_m */
+    double inv_scale_m;         /* noise: 1/scale_m */
+    double inv_edge_fade;       /* box: 1/edge_fade_m, 0 for a hard edge */
 } brm_medium;
 
 /* ---- sky ----------------------------------------------------------------------------- */
@@ -197,6 +201,7 @@ typedef struct brm_scene {
     char *shared_json_text;
 
     brm_noise_table *noise;     /* built at load for noise media, owned */
+    bool media_ready;           /* brm_media_prepare has run (the loader calls it) */
 } brm_scene;
 
 /* Loads and validates a scene file, meshes included. On failure *out is untouched, d holds
