@@ -28,6 +28,8 @@ typedef struct brm_grid {
     brm_vec3 right, up, fwd;    /* orthonormal camera basis, fwd toward look_at */
     double tan_half_x, tan_half_y;
     double *slice_depths;       /* n[2] + 1 view-space depths, near to far, owned */
+    double depth_blend;         /* frustum: 0 (default) exponential slices, 1 linear; see
+                                   brm_grid_set_depth_blend */
 } brm_grid;
 
 brm_status brm_grid_init(brm_grid *g, const brm_target *t, brm_diag *d);
@@ -57,5 +59,12 @@ brm_aabb brm_grid_bounds(const brm_grid *g);
 
 /* Brick b's cell range [lo, hi) per axis; bricks are numbered x fastest, then y, then z. */
 void brm_grid_brick_range(const brm_grid *g, uint32_t b, uint32_t lo[3], uint32_t hi[3]);
+
+/* Frustum: redistributes the depth slices. View-space depth of slice boundary k (0..nz):
+ *   d_k = (1 − b)·near·(far/near)^(k/nz) + b·(near + (far − near)·k/nz),  b = blend in [0, 1].
+ * b = 0 (the default after brm_grid_init) is the exponential distribution, equal ratios
+ * d_{k+1}/d_k, so slices stay in proportion to their distance; b = 1 is linear. Within a slice
+ * brm_grid_point and brm_grid_locate are linear in depth. No effect on other kinds. */
+void brm_grid_set_depth_blend(brm_grid *g, double blend);
 
 #endif
