@@ -1,9 +1,139 @@
 /* brv.h — reader for brume volume files (.brv), version 1.
  *
- * (Owner of this file: the volume room. The byte-level specification, the usage block and the
- * per-prototype documentation go here; see the issue on the runtime reader.)
+ * Runtime code needs only this header, the reader sources (src/volume/) and zstd (libc, libm).
+ * The reader is safe on untrusted files: every size, offset and count is checked against the
+ * file before it is used, and every fault gets a named result code.
  *
- * Runtime code needs only this header, the reader sources and zstd. */
+ * ---- Usage (this block is compiled and run as a test: tests/volume/test_brv_usage.c) -------
+ *
+ *     brv_volume *vol = NULL;
+ *     brv_result r = brv_open_file("fog.brv", NULL, &vol);
+ *     if (r != BRV_OK) { fprintf(stderr, "fog.brv: %s\n", brv_result_text(r)); return 1; }
+ *     const brv_grid_info *g = brv_grid(vol);
+ *     int ch = brv_channel_find(vol, "extinction");
+ *     size_t n = brv_channel_size(vol);               // cells[0]·cells[1]·cells[2] floats
+ *     float *ext = malloc(n * sizeof *ext);
+ *     if (ch >= 0 && ext && brv_decode_channel(vol, (uint32_t)ch, ext, n) == BRV_OK)
+ *         printf("first cell %g 1/m of %u x %u x %u\n", ext[0], g->cells[0], g->cells[1], g->cells[2]);
+ *     free(ext);
+ *     brv_free(vol);                                   // accepts NULL
+ *
+ * Random access: brv_sampler_create(vol, 64, &s); brv_sample_world(s, pos, values); ...
+ *
+ * ---- Threads ---------------------------------------------------------------------------
+ * A brv_volume is never modified after open: any number of threads may call the decode and
+ * query functions on one volume at once, as long as each thread passes its own brv_decoder
+ * (or NULL, which makes the call allocate a temporary one). A brv_sampler holds a brick cache
+ * and belongs to one thread at a time.
+ *
+ * ---- Byte-level layout of version 1.0 -----------------------------------------------------
+ * All integers are little-endian, all reals IEEE 754 (f32 binary32, f64 binary64,
+ * little-endian). Offsets are from the start of the file. A file is:
+ *     header (header_size bytes) · bricks (contiguous, no gaps) · tables (tables_size bytes)
+ * and nothing else: tables_offset + tables_size is the file size, and the bricks exactly
+ * fill [header_size, tables_offset) in the order the brick table's offsets give.
+ *
+ * Header (64 bytes in 1.0):
+ *   0  u8[8]  magic "BRUMEVOL"
+ *   8  u16    major version = 1   (a reader refuses another major: BRV_E_VERSION)
+ *  10  u16    minor version = 0   (a reader accepts any minor of its major; see Versioning)
+ *  12  u32    header_size, 64 ≤ header_size ≤ 4096 (64 in 1.0; later minors may append fields)
+ *  16  u8     grid kind: 1 world, 2 frustum, 3 probes
+ *  17  u8     brick_size: cells per brick side, 1..32 (16 by default)
+ *  18  u16    channel_count: logical channels, 1..64
+ *  20  u32[3] cells per axis (x, y, z), each 1..65536 (probes: probes per axis)
+ *  32  u64    tables_offset
+ *  40  u64    tables_size
+ *  48  u32    tables_crc: CRC-32 of the whole tables section
+ *  52  u16    channel_entry_size (64 in 1.0; ≥ 64)
+ *  54  u16    brick_entry_size (16 in 1.0; ≥ 16)
+ *  56  u32    reserved, 0
+ *  60  u32    header_crc: CRC-32 of header bytes [0, header_size − 4); it is the header's
+ *             last 4 bytes (bytes 60..63 in 1.0)
+ * CRC-32 is the ISO-HDLC / IEEE 802.3 CRC (reflected polynomial 0xEDB88320, initial value
+ * and final xor 0xFFFFFFFF; CRC of "123456789" = 0xCBF43926), as in zlib's crc32().
+ *
+ * Tables section (at tables_offset):
+ *   0    f64[3] bounds_min, metres   world: the box's low corner; probes: the first probe
+ *   24   f64[3] bounds_max, metres   world: the box's high corner; probes: the last probe
+ *   48   f64[13] camera (frustum; zero otherwise): position[3], look_at[3], up[3] in metres,
+ *               fov_y_deg (degrees), aspect (width/height), near_m, far_m (metres)
+ *   152  u32    slice_depth_count: frustum cells[2] + 1, otherwise 0
+ *   156  u32    metadata_size in bytes (≤ 16 MiB)
+ *   160  f64[slice_depth_count] view-space depths in metres, increasing, near to far
+ *   then channel_count channel entries of channel_entry_size bytes:
+ *     0  u8[32] name, UTF-8, NUL-padded, at least one NUL (so ≤ 31 bytes)
+ *    32  u8[16] units, UTF-8, NUL-padded, at least one NUL
+ *    48  u8     encoding: 1 f32, 2 f16, 3 rgb9e5
+ *    49  i8     scale_exp_max: the largest per-brick scale exponent used for this channel
+ *    50  u16    reserved, 0
+ *    52  f32    min over the whole volume, as decoded
+ *    56  f32    max over the whole volume, as decoded
+ *    60  u32    reserved, 0
+ *   then one brick entry of brick_entry_size bytes per brick, bricks numbered x fastest,
+ *   then y, then z (bricks per axis = ceil(cells / brick_size)):
+ *     0  u64    offset of the brick's stored bytes
+ *     8  u32    stored size in bytes (1..16 MiB)
+ *    12  u32    CRC-32 of the stored bytes
+ *   then metadata_size bytes of metadata: a UTF-8 JSON object (scene content hash, settings,
+ *   tool version; never a timestamp, so equal bakes give equal bytes).
+ *
+ * A brick's stored bytes are one standard zstd frame (RFC 8878) with the content size and
+ * the content checksum present; `zstd -d` decodes it. Its content, the brick payload, holds
+ * the brick's cells — clipped to the grid at the high edges, extent nx·ny·nz — as one group
+ * per stored channel, in channel order. A group is one f32 or f16 channel, or an rgb9e5
+ * triplet: three consecutive channels with encoding 3 (red, green, blue), which the channel
+ * table must hold in runs of a multiple of three. Each group is
+ *     u8 mode · i8 scale_exp · u8 word_bytes · u8 reserved (0)    then
+ *     mode 1 (constant): one word — every cell holds it (empty air costs a few bytes)
+ *     mode 0 (filtered): nx·ny·nz words, transformed losslessly for zstd: first each word
+ *            (an unsigned integer of word_bytes bytes) is replaced by its difference, modulo
+ *            2^(8·word_bytes), from the word before it in the same x row (the first word of
+ *            each row is kept), cells x fastest, then y, then z; then the bytes are shuffled
+ *            into planes: all words' byte 0 (least significant), then all byte 1, and so on.
+ * The payload ends after the last group; its size must match exactly.
+ *
+ * Encodings and their error (v is the value written, d the value read, s = 2^scale_exp):
+ *   f32 (word_bytes 4): the IEEE binary32 bits, s = 1; exact.
+ *   f16 (word_bytes 2): IEEE 754 binary16 of v/s, rounded to nearest, ties to even;
+ *       |d − v| ≤ max(|v|·2⁻¹¹, s·2⁻²⁵).
+ *   rgb9e5 (word_bytes 4): the shared-exponent format of the OpenGL EXT_texture_shared_exponent
+ *       specification applied to (r, g, b)/s: bits 0–8 red, 9–17 green, 18–26 blue mantissas,
+ *       27–31 the exponent (bias 15); decoded x = mantissa·2^(exp − 24), times s;
+ *       |d − v| ≤ max(m/511, s·2⁻²⁵) for each component, m the triplet's largest component.
+ * The scale exponent is chosen per brick and per group by the writer, because a streaming
+ * writer cannot know a channel's range before its first brick: it is the smallest e in
+ * 0..127 for which every |v|/2^e fits the encoding (f16 ≤ 65504, rgb9e5 ≤ 65408), so a sun
+ * seen through fog (10⁵ cd/m² and more) stays representable; e is 0 for f32. The channel
+ * table keeps the largest e used. NaN, infinities and (rgb9e5) negative values cannot be
+ * represented: the writer refuses them with BRV_E_UNREPRESENTABLE, it never clamps.
+ *
+ * Versioning: the major version changes when a 1.x reader could misread a file; it refuses
+ * other majors. A newer minor only appends: header fields before the header CRC (header_size
+ * grows), bytes at the end of channel and brick entries (entry sizes grow), and new encoding
+ * codes. This reader ignores the appended bytes, and lists a channel of an unknown encoding
+ * with encoding BRV_ENCODING_INVALID (encoding_code keeps the stored number): decoding it
+ * gives BRV_E_VERSION while the other channels decode normally (a group of unknown encoding
+ * is one channel, skipped by its word_bytes). Unknown metadata keys are ignored.
+ *
+ * Channels and their spherical-harmonic conventions (see SPEC.md "Output channels"):
+ * real orthonormal SH without the Condon–Shortley phase, evaluated on a unit direction
+ * ω = (x, y, z) in scene coordinates (y up, right-handed) pointing toward where light comes
+ * from, index i: 0 Y00 = 0.282095; 1 Y1,−1 = 0.488603·y; 2 Y10 = 0.488603·z;
+ * 3 Y11 = 0.488603·x; 4 Y2,−2 = 1.092548·xy; 5 Y2,−1 = 1.092548·yz; 6 Y20 = 0.315392·(3z²−1);
+ * 7 Y21 = 1.092548·xz; 8 Y22 = 0.546274·(x² − y²).
+ *   world grids: "dir.r0".."dir.r3", "dir.g0".., "dir.b0".. are bands 0–1 (i = 0..3) of
+ *     sigma_s times the incident radiance; a Henyey–Greenstein phase g gives the in-scatter
+ *     toward a viewer looking along v as Σ_l g^l Σ_m dir_lm·Y_lm(v).
+ *   probe grids: "sh.r0".."sh.r8", "sh.g0".., "sh.b0".. are bands 0–2 (i = 0..8), the raw
+ *     (unwindowed) projection of incident radiance in cd/m²; irradiance by Ramamoorthi and
+ *     Hanrahan's convolution E(n) = Σ Â_l L_lm Y_lm(n), Â = (π, 2π/3, π/4).
+ * Cell (i, j, k) of a world grid spans bounds_min + (i, j, k)·(max − min)/cells to the next;
+ * its value is the cell average and sits at the cell centre for sampling. Probe (i, j, k) is
+ * at bounds_min + (i, j, k)·(max − min)/(cells − 1). Frustum column (i, j) is the pixel column
+ * at image position ((i + ½)/nx, (j + ½)/ny), i right, j up; slice k spans view depths
+ * slice_depths[k]..slice_depths[k + 1].
+ */
 #ifndef BRUME_BRV_H
 #define BRUME_BRV_H
 
@@ -19,6 +149,12 @@ extern "C" {
 #else
 #define BRV_API
 #endif
+
+#define BRV_VERSION_MAJOR 1
+#define BRV_VERSION_MINOR 0
+#define BRV_MAX_BRICK_SIZE 32u
+#define BRV_MAX_CHANNELS 64u
+#define BRV_MAX_CELLS_PER_AXIS 65536u
 
 /* Result codes: X(name, text). Append only; a shipped code is never renumbered. */
 #define BRV_RESULT_LIST(X)                                               \
@@ -67,6 +203,7 @@ typedef struct brv_camera {
     double fov_y_deg, aspect, near_m, far_m;
 } brv_camera;
 
+/* Optional allocator: alloc returns NULL on failure; free accepts NULL. */
 typedef struct brv_allocator {
     void *(*alloc)(void *user, size_t size);
     void (*free)(void *user, void *ptr);
@@ -77,8 +214,10 @@ typedef struct brv_allocator {
 typedef struct brv_channel_info {
     const char *name;       /* e.g. "extinction", "inscatter.r" */
     const char *units;      /* e.g. "1/m", "cd/m2/m" */
-    brv_encoding encoding;
+    brv_encoding encoding;  /* BRV_ENCODING_INVALID: a newer minor's encoding (see encoding_code) */
     float min, max;         /* over the whole volume, as decoded */
+    int scale_exp_max;      /* largest per-brick power-of-two scale exponent used */
+    uint32_t encoding_code; /* the stored encoding number */
 } brv_channel_info;
 
 typedef struct brv_grid_info {
@@ -90,31 +229,109 @@ typedef struct brv_grid_info {
     brv_camera camera;          /* frustum */
     const double *slice_depths; /* frustum: cells[2] + 1 depths, near to far; else NULL */
     uint32_t channel_count;
+    /* Added fields (append only): */
+    uint32_t brick_count;       /* bricks[0]·bricks[1]·bricks[2] */
+    uint32_t version_major, version_minor;
+    uint64_t file_size;         /* bytes */
+    uint64_t brick_bytes;       /* sum of the bricks' stored (compressed) sizes */
 } brv_grid_info;
 
 typedef struct brv_volume brv_volume;
+typedef struct brv_decoder brv_decoder;
+typedef struct brv_sampler brv_sampler;
 
+/* Text of a result code, from the same list as the enum.
+ * Returns a static string; "unknown result" for a value outside the list. */
 BRV_API const char *brv_result_text(brv_result r);
 
+/* Opens a volume file: reads it whole and checks its structure (header, tables, brick ranges,
+ * header and table CRCs). Brick checksums are checked when bricks are decoded, or all at once
+ * by brv_verify.
+ * Returns BRV_OK and *out, or a fault code with *out untouched.
+ * Notes: safe on untrusted files; allocates at most the file size plus O(channels + bricks).
+ * path: a file name. alloc: NULL for malloc/free; the volume keeps a copy. */
 BRV_API brv_result brv_open_file(const char *path, const brv_allocator *alloc, brv_volume **out);
+
+/* Opens a volume held in memory, without copying it.
+ * Returns as brv_open_file.
+ * data: size bytes that must stay valid and unchanged until brv_free. */
 BRV_API brv_result brv_open_memory(const void *data, size_t size, const brv_allocator *alloc,
                                    brv_volume **out);
+
+/* Frees a volume; accepts NULL. */
 BRV_API void brv_free(brv_volume *v);
 
+/* The grid description; valid until brv_free. */
 BRV_API const brv_grid_info *brv_grid(const brv_volume *v);
+/* Channel index's description, or NULL when index ≥ channel_count. */
 BRV_API const brv_channel_info *brv_channel(const brv_volume *v, uint32_t index);
-/* Index of the named channel, or -1. */
+/* Index of the named channel (exact, case-sensitive), or -1. */
 BRV_API int brv_channel_find(const brv_volume *v, const char *name);
-/* The metadata JSON text (NUL-terminated) and its length. */
+/* The metadata JSON text (NUL-terminated) and its length (len may be NULL). */
 BRV_API const char *brv_metadata(const brv_volume *v, size_t *len);
 
 /* Floats needed for one whole channel: cells[0]·cells[1]·cells[2]. */
 BRV_API size_t brv_channel_size(const brv_volume *v);
-/* Decodes one channel of the whole grid into out (x fastest, then y, then z). */
+/* Floats needed for every channel of the whole grid: channel_count·brv_channel_size. */
+BRV_API size_t brv_all_size(const brv_volume *v);
+/* Floats needed for one brick's every channel: channel_count·brick_size³ (the largest brick). */
+BRV_API size_t brv_brick_size(const brv_volume *v);
+
+/* First cell and extent (clipped to the grid) of brick b. Returns BRV_E_ARGUMENT when
+ * b ≥ brick_count. */
+BRV_API brv_result brv_brick_extent(const brv_volume *v, uint32_t b, uint32_t origin[3],
+                                    uint32_t extent[3]);
+
+/* A decoding workspace (zstd context and scratch) for one thread. */
+BRV_API brv_result brv_decoder_create(const brv_volume *v, brv_decoder **out);
+/* Frees a decoder; accepts NULL. */
+BRV_API void brv_decoder_free(brv_decoder *d);
+
+/* Decodes brick b, every channel, channel-major in the layout brv_writer_put_brick takes:
+ * out[c·nx·ny·nz + x + nx·(y + ny·z)], nx·ny·nz the brick's clipped extent.
+ * Returns BRV_OK, BRV_E_BUFFER (out_count too small), BRV_E_BRICK_CORRUPT (checksum or zstd
+ * fault), BRV_E_VERSION (a channel of unknown encoding), or BRV_E_NOMEM.
+ * Notes: thread-safe for distinct decoders; dec may be NULL (a temporary one is made).
+ * On a fault, out may have been partly written; its contents are not data. */
+BRV_API brv_result brv_decode_brick(const brv_volume *v, brv_decoder *dec, uint32_t b, float *out,
+                                    size_t out_count);
+
+/* Decodes one channel of the whole grid into out (x fastest, then y, then z).
+ * Returns as brv_decode_brick. out_count ≥ brv_channel_size(v). */
 BRV_API brv_result brv_decode_channel(const brv_volume *v, uint32_t channel, float *out, size_t out_count);
 
-/* Checks structure and every brick's checksum; on a fault, *brick (if not NULL) names it. */
+/* The same as binary16 (IEEE 754, round to nearest even) words: out_count ≥ brv_channel_size.
+ * Returns BRV_E_UNREPRESENTABLE when a decoded value is beyond binary16's range (65504). */
+BRV_API brv_result brv_decode_channel_f16(const brv_volume *v, uint32_t channel, uint16_t *out,
+                                          size_t out_count);
+
+/* Decodes every channel of the whole grid, channel-major: out[c·cells + x + nx·(y + ny·z)].
+ * out_count ≥ brv_all_size(v). */
+BRV_API brv_result brv_decode_all(const brv_volume *v, float *out, size_t out_count);
+
+/* Checks structure and every brick's checksum and payload; on a fault, *brick (if not NULL)
+ * names the first bad brick (UINT32_MAX when the fault is not in a brick). */
 BRV_API brv_result brv_verify(const brv_volume *v, uint32_t *brick);
+
+/* Random access with a cache of cache_bricks decoded bricks (direct-mapped by brick index;
+ * 0 = 64). Memory: cache_bricks·brv_brick_size(v)·4 bytes (16³ cells, 4 channels, 64 bricks:
+ * 4 MiB). One thread at a time per sampler. */
+BRV_API brv_result brv_sampler_create(const brv_volume *v, uint32_t cache_bricks, brv_sampler **out);
+/* Frees a sampler; accepts NULL. */
+BRV_API void brv_sampler_free(brv_sampler *s);
+
+/* Trilinear sample of every channel at world position pos (metres) of a world or probe grid.
+ * World cells are sampled at their centres, probes at their positions; outside the grid the
+ * nearest edge value is used (clamp to edge).
+ * Returns BRV_OK; BRV_E_ARGUMENT for a frustum grid or a non-finite position; a decode fault.
+ * out: channel_count floats. */
+BRV_API brv_result brv_sample_world(brv_sampler *s, const double pos[3], float *out);
+
+/* Trilinear sample of a frustum grid at pixel coordinate (px, py) in cell units (column i
+ * spans px in [i, i + 1), j up) and view-space depth (metres). Froxel values sit at the centre
+ * of their pixel and at the middle depth of their slice; outside, clamp to edge.
+ * Returns as brv_sample_world (BRV_E_ARGUMENT for a non-frustum grid). */
+BRV_API brv_result brv_sample_frustum(brv_sampler *s, double px, double py, double depth, float *out);
 
 #ifdef __cplusplus
 }

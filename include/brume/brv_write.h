@@ -35,10 +35,16 @@ typedef struct brv_write_desc {
     const char *metadata;                   /* JSON text, may be NULL */
     size_t metadata_len;
     const brv_allocator *alloc;             /* NULL = malloc/free */
+    char *error;                            /* optional: receives why brv_writer_create failed */
+    size_t error_size;
 } brv_write_desc;
 
 typedef struct brv_writer brv_writer;
 
+/* Starts a volume at f's current position (the FILE must be seekable and opened for binary
+ * writing). Returns BRV_OK and *out; BRV_E_ARGUMENT or BRV_E_LIMIT for a bad description
+ * (desc->error, when given, says which field and why), BRV_E_NOMEM, BRV_E_IO.
+ * Memory: O(brick_size³·channels) plus 17 bytes per brick for the table. */
 BRV_API brv_result brv_writer_create(FILE *f, const brv_write_desc *desc, brv_writer **out);
 
 /* Encodes and writes brick b (numbered x fastest, then y, then z). data holds every channel of

@@ -1,0 +1,114 @@
+/* Internals shared by the .brv reader and writer: little-endian access, CRC-32, the binary16
+ * and rgb9e5 codecs, and the brick payload filters. Not installed; tests reach it through
+ * brv_internal (the static build of the same sources). */
+#ifndef BRV_INTERNAL_H
+#define BRV_INTERNAL_H
+
+#include <stddef.h>
+#include <stdint.h>
+#include <string.h>
+
+#include "brume/brv.h"
+
+#define BRV_MAGIC "BRUMEVOL"
+#define BRV_HEADER_SIZE 64u
+#define BRV_HEADER_MAX 4096u
+#define BRV_CHANNEL_ENTRY 64u
+#define BRV_BRICK_ENTRY 16u
+#define BRV_TABLES_FIXED 160u
+#define BRV_METADATA_MAX (16u << 20)
+#define BRV_BRICK_STORED_MAX (16u << 20)
+#define BRV_GROUP_HEADER 4u
+#define BRV_SCALE_EXP_MAX 127
+#define BRV_F16_MAX 65504.0f
+#define BRV_RGB9E5_MAX 65408.0f
+
+enum { BRV_MODE_FILTERED = 0, BRV_MODE_CONSTANT = 1 };
+
+static inline uint16_t brv_rd16(const uint8_t *p) { return (uint16_t)(p[0] | (p[1] << 8)); }
+static inline uint32_t brv_rd32(const uint8_t *p)
+{
+    return (uint32_t)p[0] | ((uint32_t)p[1] << 8) | ((uint32_t)p[2] << 16) | ((uint32_t)p[3] << 24);
+}
+static inline uint64_t brv_rd64(const uint8_t *p)
+{
+    return (uint64_t)brv_rd32(p) | ((uint64_t)brv_rd32(p + 4) << 32);
+}
+static inline double brv_rdf64(const uint8_t *p)
+{
+    uint64_t u = brv_rd64(p);
+    double d;
+    memcpy(&d, &u, 8);
+    return d;
+}
+static inline float brv_rdf32(const uint8_t *p)
+{
+    uint32_t u = brv_rd32(p);
+    float f;
+    memcpy(&f, &u, 4);
+    return f;
+}
+static inline void brv_wr16(uint8_t *p, uint16_t v)
+{
+    p[0] = (uint8_t)v;
+    p[1] = (uint8_t)(v >> 8);
+}
+static inline void brv_wr32(uint8_t *p, uint32_t v)
+{
+    for (int i = 0; i < 4; i++) p[i] = (uint8_t)(v >> (8 * i));
+}
+static inline void brv_wr64(uint8_t *p, uint64_t v)
+{
+    for (int i = 0; i < 8; i++) p[i] = (uint8_t)(v >> (8 * i));
+}
+static inline void brv_wrf64(uint8_t *p, double d)
+{
+    uint64_t u;
+    memcpy(&u, &d, 8);
+    brv_wr64(p, u);
+}
+static inline void brv_wrf32(uint8_t *p, float f)
+{
+    uint32_t u;
+    memcpy(&u, &f, 4);
+    brv_wr32(p, u);
+}
+static inline uint32_t brv_f32_bits(float f)
+{
+    uint32_t u;
+    memcpy(&u, &f, 4);
+    return u;
+}
+static inline float brv_bits_f32(uint32_t u)
+{
+    float f;
+    memcpy(&f, &u, 4);
+    return f;
+}
+
+/* CRC-32 (ISO-HDLC, reflected 0xEDB88320), continued from crc (0 to start). */
+uint32_t brv_crc32(uint32_t crc, const void *data, size_t len);
+
+/* IEEE 754 binary16, round to nearest, ties to even; NaN stays NaN, overflow gives ±inf. */
+uint16_t brv_f32_to_f16(float f);
+float brv_f16_to_f32(uint16_t h);
+
+/* Shared-exponent RGB9E5 per EXT_texture_shared_exponent (inputs clamped as that text says;
+ * the writer checks ranges before calling). */
+uint32_t brv_rgb9e5_pack(float r, float g, float b);
+void brv_rgb9e5_unpack(uint32_t p, float *r, float *g, float *b);
+
+/* 2^e as a float for e in −150..127 (exact). */
+float brv_exp2i(int e);
+
+/* Payload filters: delta along x rows of nx words (in place), byte-plane shuffle (src → dst). */
+void brv_delta_encode(uint8_t *words, size_t n, unsigned word_bytes, uint32_t nx);
+void brv_delta_decode(uint8_t *words, size_t n, unsigned word_bytes, uint32_t nx);
+void brv_shuffle(const uint8_t *src, uint8_t *dst, size_t n, unsigned word_bytes);
+void brv_unshuffle(const uint8_t *src, uint8_t *dst, size_t n, unsigned word_bytes);
+
+/* Allocator defaults. */
+void *brv_alloc(const brv_allocator *a, size_t size);
+void brv_dealloc(const brv_allocator *a, void *p);
+
+#endif

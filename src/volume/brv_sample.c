@@ -1,0 +1,154 @@
+/* Random access: trilinear sampling through a direct-mapped cache of decoded bricks. Built on
+ * the public decoding calls only. */
+#include <math.h>
+#include <stdbool.h>
+
+#include "brv_internal.h"
+
+typedef struct slot {
+    uint32_t brick; /* UINT32_MAX: empty */
+    uint32_t ext[3];
+    size_t n;
+    float *data;
+} slot;
+
+struct brv_sampler {
+    const brv_volume *v;
+    brv_decoder *dec;
+    uint32_t count;
+    slot *slots;
+    float *pool;
+    const brv_allocator *alloc;
+};
+
+brv_result brv_sampler_create(const brv_volume *v, uint32_t cache_bricks, brv_sampler **out)
+{
+    if (!v || !out) return BRV_E_ARGUMENT;
+    if (cache_bricks == 0) cache_bricks = 64;
+    const brv_grid_info *g = brv_grid(v);
+    if (cache_bricks > g->brick_count) cache_bricks = g->brick_count;
+    size_t per = brv_brick_size(v), total;
+    if (per && (size_t)cache_bricks > (size_t)-1 / per / sizeof(float)) return BRV_E_NOMEM;
+    total = per * cache_bricks;
+    brv_sampler *s = brv_alloc(NULL, sizeof *s);
+    if (!s) return BRV_E_NOMEM;
+    memset(s, 0, sizeof *s);
+    s->v = v;
+    s->count = cache_bricks;
+    s->slots = brv_alloc(NULL, cache_bricks * sizeof *s->slots);
+    s->pool = brv_alloc(NULL, total * sizeof(float));
+    brv_result r = brv_decoder_create(v, &s->dec);
+    if (r == BRV_OK && (!s->slots || !s->pool)) r = BRV_E_NOMEM;
+    if (r != BRV_OK) {
+        brv_sampler_free(s);
+        return r;
+    }
+    for (uint32_t i = 0; i < cache_bricks; i++) {
+        s->slots[i].brick = UINT32_MAX;
+        s->slots[i].data = s->pool + (size_t)i * per;
+    }
+    *out = s;
+    return BRV_OK;
+}
+
+void brv_sampler_free(brv_sampler *s)
+{
+    if (!s) return;
+    brv_decoder_free(s->dec);
+    brv_dealloc(NULL, s->slots);
+    brv_dealloc(NULL, s->pool);
+    brv_dealloc(NULL, s);
+}
+
+static brv_result fetch(brv_sampler *s, uint32_t b, const slot **out)
+{
+    slot *sl = &s->slots[b % s->count];
+    if (sl->brick != b) {
+        uint32_t o[3];
+        sl->brick = UINT32_MAX;
+        brv_brick_extent(s->v, b, o, sl->ext);
+        sl->n = (size_t)sl->ext[0] * sl->ext[1] * sl->ext[2];
+        brv_result r = brv_decode_brick(s->v, s->dec, b, sl->data, brv_brick_size(s->v));
+        if (r != BRV_OK) return r;
+        sl->brick = b;
+    }
+    *out = sl;
+    return BRV_OK;
+}
+
+/* Continuous cell coordinate u on an axis of n samples → the two neighbours and the weight. */
+static void axis(double u, uint32_t n, uint32_t *i0, uint32_t *i1, double *t)
+{
+    if (!(u > 0.0)) u = 0.0; /* also catches NaN */
+    if (u > (double)(n - 1)) u = (double)(n - 1);
+    double f = floor(u);
+    *i0 = (uint32_t)f;
+    *i1 = *i0 + 1 < n ? *i0 + 1 : *i0;
+    *t = u - f;
+}
+
+static brv_result trilinear(brv_sampler *s, const double u[3], float *out)
+{
+    const brv_grid_info *g = brv_grid(s->v);
+    uint32_t i[3][2];
+    double t[3];
+    for (int a = 0; a < 3; a++) axis(u[a], g->cells[a], &i[a][0], &i[a][1], &t[a]);
+    uint32_t nc = g->channel_count, bs = g->brick_size;
+    double acc[BRV_MAX_CHANNELS] = {0};
+    for (int corner = 0; corner < 8; corner++) {
+        uint32_t x = i[0][corner & 1], y = i[1][(corner >> 1) & 1], z = i[2][corner >> 2];
+        double wgt = ((corner & 1) ? t[0] : 1.0 - t[0]) * (((corner >> 1) & 1) ? t[1] : 1.0 - t[1]) *
+                     ((corner >> 2) ? t[2] : 1.0 - t[2]);
+        if (wgt == 0.0) continue;
+        uint32_t b = x / bs + g->bricks[0] * (y / bs + g->bricks[1] * (z / bs));
+        const slot *sl;
+        brv_result r = fetch(s, b, &sl);
+        if (r != BRV_OK) return r;
+        size_t li = (x % bs) + (size_t)sl->ext[0] * ((y % bs) + (size_t)sl->ext[1] * (z % bs));
+        for (uint32_t c = 0; c < nc; c++) acc[c] += wgt * sl->data[c * sl->n + li];
+    }
+    for (uint32_t c = 0; c < nc; c++) out[c] = (float)acc[c];
+    return BRV_OK;
+}
+
+brv_result brv_sample_world(brv_sampler *s, const double pos[3], float *out)
+{
+    if (!s || !pos || !out) return BRV_E_ARGUMENT;
+    const brv_grid_info *g = brv_grid(s->v);
+    if (g->kind == BRV_GRID_FRUSTUM) return BRV_E_ARGUMENT;
+    double u[3];
+    for (int a = 0; a < 3; a++) {
+        if (!isfinite(pos[a])) return BRV_E_ARGUMENT;
+        double span = g->bounds_max[a] - g->bounds_min[a], rel = pos[a] - g->bounds_min[a];
+        if (g->kind == BRV_GRID_WORLD) u[a] = rel / span * g->cells[a] - 0.5;
+        else u[a] = g->cells[a] > 1 && span > 0.0 ? rel / span * (g->cells[a] - 1) : 0.0;
+    }
+    return trilinear(s, u, out);
+}
+
+brv_result brv_sample_frustum(brv_sampler *s, double px, double py, double depth, float *out)
+{
+    if (!s || !out) return BRV_E_ARGUMENT;
+    const brv_grid_info *g = brv_grid(s->v);
+    if (g->kind != BRV_GRID_FRUSTUM || !g->slice_depths) return BRV_E_ARGUMENT;
+    if (!isfinite(px) || !isfinite(py) || !isfinite(depth)) return BRV_E_ARGUMENT;
+    const double *d = g->slice_depths;
+    uint32_t nz = g->cells[2];
+    /* Slice k's value sits at its middle depth m_k; find m_k ≤ depth < m_k+1 by bisection. */
+    double w;
+    double m0 = 0.5 * (d[0] + d[1]), mlast = 0.5 * (d[nz - 1] + d[nz]);
+    if (nz == 1 || depth <= m0) w = 0.0;
+    else if (depth >= mlast) w = nz - 1;
+    else {
+        uint32_t lo = 0, hi = nz - 1; /* m_lo ≤ depth < m_hi */
+        while (hi - lo > 1) {
+            uint32_t mid = lo + (hi - lo) / 2;
+            if (0.5 * (d[mid] + d[mid + 1]) <= depth) lo = mid;
+            else hi = mid;
+        }
+        double ml = 0.5 * (d[lo] + d[lo + 1]), mh = 0.5 * (d[hi] + d[hi + 1]);
+        w = lo + (depth - ml) / (mh - ml);
+    }
+    double u[3] = {px - 0.5, py - 0.5, w};
+    return trilinear(s, u, out);
+}
