@@ -18,35 +18,11 @@
 #include "voxel/grid.h"
 #include "voxel/voxelize.h"
 
+#include "bake/bake_internal.h"
+
 #ifndef BRUME_VERSION_STRING
 #define BRUME_VERSION_STRING "0.1.0"
 #endif
-
-/* ---- channels ------------------------------------------------------------------------ */
-
-enum { WORLD_CHANNELS = 17 };
-
-static const char *const world_names[WORLD_CHANNELS] = {
-    "extinction", "occupancy", "inscatter.r", "inscatter.g", "inscatter.b",
-    "dir.r0", "dir.r1", "dir.r2", "dir.r3",
-    "dir.g0", "dir.g1", "dir.g2", "dir.g3",
-    "dir.b0", "dir.b1", "dir.b2", "dir.b3"};
-
-static brv_encoding channel_encoding(brm_encoding e, uint32_t c)
-{
-    switch (e) {
-    case BRM_ENCODING_F32: return BRV_ENCODING_F32;
-    case BRM_ENCODING_COMPACT: return (c >= 2 && c <= 4) ? BRV_ENCODING_RGB9E5 : BRV_ENCODING_F16;
-    default: return BRV_ENCODING_F16;
-    }
-}
-
-static const char *world_units(uint32_t c)
-{
-    if (c == 0) return "1/m";
-    if (c == 1) return "1";
-    return "cd/m2/m";
-}
 
 /* ---- memory and work ------------------------------------------------------------------ */
 
@@ -60,6 +36,18 @@ uint64_t brm_default_memory_budget(void)
 static int effective_threads(const brm_bake_opts *o)
 {
     return o->threads > 0 ? o->threads : brm_cpu_count();
+}
+
+/* What the shadow maps must cover: the target, and for probes everything their rays can
+ * reach (bounce light is gathered on any surface, fog anywhere in the fog bounds). */
+static brm_aabb lit_bounds(const brm_scene *s, const brm_grid *g)
+{
+    brm_aabb b = brm_grid_bounds(g);
+    if (g->kind == BRM_GRID_PROBES) {
+        brm_aabb_union(&b, s->fog_bounds);
+        for (uint32_t i = 0; i < s->object_count; i++) brm_aabb_union(&b, s->objects[i].bounds);
+    }
+    return b;
 }
 
 static double min_cell_edge(const brm_grid *g)
@@ -78,10 +66,11 @@ uint64_t brm_bake_estimate_memory(const brm_scene *s, uint32_t t, const brm_bake
     brm_grid g;
     if (brm_grid_init(&g, &s->targets[t], NULL) != BRM_OK) return 0;
     uint64_t m = brm_voxelize_memory(&g);
-    brm_shadow_opts so = {brm_grid_bounds(&g), min_cell_edge(&g), effective_threads(o), o->reference, NULL};
+    brm_shadow_opts so = {lit_bounds(s, &g), min_cell_edge(&g), effective_threads(o), o->reference, NULL};
     m += brm_shadows_memory(s, &so);
     m += brm_bvh_memory(s);
-    uint64_t brick_floats = (uint64_t)BRM_BRICK * BRM_BRICK * BRM_BRICK * WORLD_CHANNELS;
+    uint64_t brick_floats = (uint64_t)BRM_BRICK * BRM_BRICK * BRM_BRICK * 20;
+    if (g.kind == BRM_GRID_FRUSTUM) brick_floats *= g.bricks[2];
     m += (uint64_t)batch_bricks(effective_threads(o)) * brick_floats * sizeof(float);
     m += (uint64_t)brm_grid_brick_count(&g) * 64;   /* the writer's brick table */
     m += (uint64_t)24 << 20;                        /* zstd contexts, encode buffers, scene */
@@ -156,43 +145,223 @@ static char *build_metadata(const brm_scene *s, uint32_t t, const brm_bake_opts 
     return text;
 }
 
-/* ---- the world baker ------------------------------------------------------------------ */
+/* ---- the driver: units of bricks, computed in parallel, written in order ---------------- */
 
-typedef struct world_job {
+typedef struct run_ctx {
+    const brm_plan *pl;
+    uint32_t first;
+    float *buf;
+    size_t unit_floats;
+} run_ctx;
+
+static void run_unit(void *ctx, uint32_t item, int worker)
+{
+    run_ctx *r = ctx;
+    r->pl->compute(r->pl->ctx, r->first + item, worker, r->buf + (size_t)item * r->unit_floats);
+}
+
+uint32_t brm_plan_brick_is_unit(const brm_grid *g, uint32_t unit, uint32_t i)
+{
+    (void)g;
+    (void)i;
+    return unit;
+}
+
+static uint32_t brick_of_column(const brm_grid *g, uint32_t unit, uint32_t i)
+{
+    /* unit = bx + nbx·by; brick = bx + nbx·(by + nby·bz) */
+    return unit + g->bricks[0] * g->bricks[1] * i;
+}
+
+static brm_status writer_fail(brm_diag *d, const char *path, brv_writer *w, brv_result r)
+{
+    const char *detail = w ? brv_writer_error(w) : "";
+    return brm_diag_error(d, r == BRV_E_UNREPRESENTABLE ? BRM_E_INPUT : BRM_E_IO, "%s: cannot write volume: %s%s%s",
+                          path, brv_result_text(r), detail && *detail ? ": " : "", detail ? detail : "");
+}
+
+void brm_plan_channel(brm_plan *pl, const char *name, const char *units, brv_encoding e)
+{
+    brv_channel_desc *c = &pl->channels[pl->channel_count++];
+    c->name = name;
+    c->units = units;
+    c->encoding = e;
+}
+
+/* Encodes per the target's setting; triplet marks the r of an r,g,b colour triplet that the
+ * compact encoding stores as rgb9e5. */
+static brv_encoding enc_for(brm_encoding e, bool colour)
+{
+    if (e == BRM_ENCODING_F32) return BRV_ENCODING_F32;
+    if (e == BRM_ENCODING_COMPACT && colour) return BRV_ENCODING_RGB9E5;
+    return BRV_ENCODING_F16;
+}
+
+brm_status brm_run_plan(const brm_scene *s, uint32_t t, const brm_bake_opts *o, const brm_grid *g,
+                           const brm_plan *pl, const char *out_path, brm_bake_stats *stats, brm_diag *d)
+{
+    const brm_target *tg = &s->targets[t];
+    const int threads = effective_threads(o);
+    brm_status st = BRM_OK;
+    brv_writer *w = NULL;
+    brm_atomic_file af;
+    bool file_open = false;
+    float *buf = NULL;
+    char *meta = build_metadata(s, t, o);
+
+    brv_write_desc wd;
+    memset(&wd, 0, sizeof wd);
+    wd.kind = g->kind == BRM_GRID_WORLD ? BRV_GRID_WORLD : g->kind == BRM_GRID_FRUSTUM ? BRV_GRID_FRUSTUM : BRV_GRID_PROBES;
+    for (int a = 0; a < 3; a++) wd.cells[a] = g->n[a];
+    wd.brick_size = BRM_BRICK;
+    wd.bounds_min[0] = g->box.min.x; wd.bounds_min[1] = g->box.min.y; wd.bounds_min[2] = g->box.min.z;
+    wd.bounds_max[0] = g->box.max.x; wd.bounds_max[1] = g->box.max.y; wd.bounds_max[2] = g->box.max.z;
+    if (g->kind == BRM_GRID_FRUSTUM) {
+        const brm_camera *c = &tg->camera;
+        double v[3][3] = {{c->position.x, c->position.y, c->position.z}, {c->look_at.x, c->look_at.y, c->look_at.z},
+                          {c->up.x, c->up.y, c->up.z}};
+        memcpy(wd.camera.position, v[0], sizeof v[0]);
+        memcpy(wd.camera.look_at, v[1], sizeof v[1]);
+        memcpy(wd.camera.up, v[2], sizeof v[2]);
+        wd.camera.fov_y_deg = c->fov_y_deg;
+        wd.camera.aspect = c->aspect;
+        wd.camera.near_m = c->near;
+        wd.camera.far_m = c->far;
+        wd.slice_depths = g->slice_depths;
+    }
+    wd.channel_count = pl->channel_count;
+    wd.channels = pl->channels;
+    wd.compression_level = tg->compression_level;
+    wd.metadata = meta;
+    wd.metadata_len = meta ? strlen(meta) : 0;
+
+    const size_t brick_floats = (size_t)BRM_BRICK * BRM_BRICK * BRM_BRICK * pl->channel_count;
+    const size_t unit_floats = brick_floats * pl->bricks_per_unit;
+    const uint32_t batch = (uint32_t)threads * (pl->bricks_per_unit > 4 ? 1 : 4);
+    if (!meta) {
+        st = brm_diag_error(d, BRM_E_NOMEM, "%s: out of memory", tg->json_path);
+        goto done;
+    }
+    buf = malloc((size_t)batch * unit_floats * sizeof(float));
+    if (!buf) {
+        st = brm_diag_error(d, BRM_E_NOMEM, "%s: out of memory for the brick buffers", tg->json_path);
+        goto done;
+    }
+    if ((st = brm_atomic_open(&af, out_path, d)) != BRM_OK) goto done;
+    file_open = true;
+    brv_result r = brv_writer_create(af.f, &wd, &w);
+    if (r != BRV_OK) {
+        st = writer_fail(d, out_path, w, r);
+        goto done;
+    }
+    run_ctx rc = {pl, 0, buf, unit_floats};
+    uint64_t cells_done = 0, total = brm_grid_cells(g);
+    for (uint32_t first = 0; first < pl->unit_count; first += batch) {
+        if (o->cancel && atomic_load(o->cancel)) {
+            st = brm_diag_error(d, BRM_E_INTERRUPTED, "%s: interrupted", tg->name);
+            goto done;
+        }
+        uint32_t n = pl->unit_count - first < batch ? pl->unit_count - first : batch;
+        rc.first = first;
+        if (brm_parallel_for(n, threads, run_unit, &rc, o->cancel) != n) {
+            st = brm_diag_error(d, BRM_E_INTERRUPTED, "%s: interrupted", tg->name);
+            goto done;
+        }
+        for (uint32_t u = 0; u < n; u++)
+            for (uint32_t i = 0; i < pl->bricks_per_unit; i++) {
+                uint32_t b = pl->brick_of(g, first + u, i);
+                r = brv_writer_put_brick(w, b, buf + (size_t)u * unit_floats + (size_t)i * brick_floats);
+                if (r != BRV_OK) {
+                    st = writer_fail(d, out_path, w, r);
+                    goto done;
+                }
+                uint32_t lo[3], hi[3];
+                brm_grid_brick_range(g, b, lo, hi);
+                cells_done += (uint64_t)(hi[0] - lo[0]) * (hi[1] - lo[1]) * (hi[2] - lo[2]);
+            }
+        if (o->progress) o->progress(o->progress_user, cells_done, total);
+    }
+    r = brv_writer_finish(w);
+    if (r != BRV_OK) {
+        st = writer_fail(d, out_path, w, r);
+        goto done;
+    }
+    long end = ftell(af.f);
+    file_open = false;
+    if ((st = brm_atomic_commit(&af, d)) != BRM_OK) goto done;
+    stats->cells = total;
+    stats->bytes = end > 0 ? (uint64_t)end : 0;
+done:
+    if (file_open) brm_atomic_abort(&af);
+    brv_writer_free(w);
+    free(meta);
+    free(buf);
+    return st;
+}
+
+/* ---- shared per-target state --------------------------------------------------------------- */
+
+typedef struct bake_ctx {
     const brm_scene *scene;
     const brm_target *target;
     const brm_grid *grid;
     const brm_occupancy *occ;
+    const brm_bvh *bvh;
+    const brm_shadow_set *shadows;
     brm_kernel kernel;
     uint64_t seed;
-    uint32_t first;             /* first brick of the batch */
-    float *buf;                 /* batch × brick floats */
-    size_t brick_floats;
-    uint32_t *light_lists;      /* per worker scratch: light indices */
+    int threads;
+    uint32_t *light_lists;      /* per worker: light indices after culling */
     uint64_t *light_samples;    /* per worker counters */
-    double (*sample_scratch)[3];/* per worker: BRM_MAX_CELL_SAMPLES points */
-} world_job;
+    double (*scratch)[3];       /* per worker: BRM_MAX_CELL_SAMPLES points */
+    double *column;             /* per worker: frustum column scratch */
+} bake_ctx;
 
-static void bake_world_brick(void *ctx, uint32_t item, int worker)
+/* Lights that can reach box b, into this worker's list. */
+static uint32_t cull_lights(const bake_ctx *c, brm_aabb b, int worker, uint32_t **out)
 {
-    world_job *j = ctx;
+    uint32_t *lights = c->light_lists + (size_t)worker * (c->scene->light_count + 1);
+    uint32_t nl = 0;
+    for (uint32_t l = 0; l < c->scene->light_count; l++)
+        if (brm_light_reaches(&c->scene->lights[l], b)) lights[nl++] = l;
+    *out = lights;
+    return nl;
+}
+
+static uint32_t sample_count(const brm_target *t)
+{
+    return t->samples <= BRM_MAX_CELL_SAMPLES ? t->samples : BRM_MAX_CELL_SAMPLES;
+}
+
+/* ---- world --------------------------------------------------------------------------------- */
+
+enum { W_EXT, W_OCC, W_INS, W_DIR = W_INS + 3, WORLD_CH = W_DIR + 12 };
+
+static void world_plan(brm_plan *pl, const brm_target *tg)
+{
+    static const char *const dirn[12] = {"dir.r0", "dir.r1", "dir.r2", "dir.r3", "dir.g0", "dir.g1",
+                                         "dir.g2", "dir.g3", "dir.b0", "dir.b1", "dir.b2", "dir.b3"};
+    brm_plan_channel(pl, "extinction", "1/m", enc_for(tg->encoding, false));
+    brm_plan_channel(pl, "occupancy", "1", enc_for(tg->encoding, false));
+    brm_plan_channel(pl, "inscatter.r", "cd/m2/m", enc_for(tg->encoding, true));
+    brm_plan_channel(pl, "inscatter.g", "cd/m2/m", enc_for(tg->encoding, true));
+    brm_plan_channel(pl, "inscatter.b", "cd/m2/m", enc_for(tg->encoding, true));
+    for (int i = 0; i < 12; i++) brm_plan_channel(pl, dirn[i], "cd/m2/m", enc_for(tg->encoding, false));
+}
+
+static void world_unit(void *ctx, uint32_t b, int worker, float *out)
+{
+    bake_ctx *j = ctx;
     const brm_grid *g = j->grid;
-    uint32_t b = j->first + item;
     uint32_t lo[3], hi[3];
     brm_grid_brick_range(g, b, lo, hi);
     uint32_t nx = hi[0] - lo[0], ny = hi[1] - lo[1], nz = hi[2] - lo[2];
     size_t nc = (size_t)nx * ny * nz;
-    float *out = j->buf + (size_t)item * j->brick_floats;
-
-    /* Light culling: a light whose range or cone cannot reach the brick costs nothing here. */
     brm_aabb bb = {brm_grid_point(g, lo[0], lo[1], lo[2]), brm_grid_point(g, hi[0], hi[1], hi[2])};
-    uint32_t *lights = j->light_lists + (size_t)worker * (j->scene->light_count + 1);
-    uint32_t nl = 0;
-    for (uint32_t l = 0; l < j->scene->light_count; l++)
-        if (brm_light_reaches(&j->scene->lights[l], bb)) lights[nl++] = l;
-
-    const uint32_t S = j->target->samples <= BRM_MAX_CELL_SAMPLES ? j->target->samples : BRM_MAX_CELL_SAMPLES;
-    double (*u)[3] = j->sample_scratch + (size_t)worker * BRM_MAX_CELL_SAMPLES;
+    uint32_t *lights;
+    uint32_t nl = cull_lights(j, bb, worker, &lights);
+    const uint32_t S = sample_count(j->target);
+    double (*u)[3] = j->scratch + (size_t)worker * BRM_MAX_CELL_SAMPLES;
     uint64_t evals = 0;
     for (uint32_t k = lo[2]; k < hi[2]; k++)
         for (uint32_t jj = lo[1]; jj < hi[1]; jj++)
@@ -204,10 +373,10 @@ static void bake_world_brick(void *ctx, uint32_t item, int worker)
                 double ext = 0.0, ins[3] = {0, 0, 0}, dir[3][4] = {{0}};
                 if (free_frac > 0.0) {
                     brm_cell_samples(j->seed ^ (uint64_t)gi * 0x9e3779b97f4a7c15ull, S, u);
-                    for (uint32_t sidx = 0; sidx < S; sidx++) {
-                        brm_vec3 p = brm_grid_point(g, i + u[sidx][0], jj + u[sidx][1], k + u[sidx][2]);
+                    for (uint32_t si = 0; si < S; si++) {
+                        brm_vec3 p = brm_grid_point(g, i + u[si][0], jj + u[si][1], k + u[si][2]);
                         brm_kernel_out ko;
-                        brm_kernel_eval(&j->kernel, p, lights, nl, (uint32_t)(gi * S + sidx), NULL, &ko);
+                        brm_kernel_eval(&j->kernel, p, lights, nl, (uint32_t)(gi * S + si), NULL, &ko);
                         evals += ko.light_evals;
                         ext += ko.sigma_t;
                         for (int c = 0; c < 3; c++) {
@@ -218,148 +387,226 @@ static void bake_world_brick(void *ctx, uint32_t item, int worker)
                 }
                 /* Cell averages over the free part: solid parts carry no fog. */
                 double w = free_frac / (double)S;
-                out[0 * nc + li] = (float)(ext * w);
-                out[1 * nc + li] = (float)occ;
+                out[W_EXT * nc + li] = (float)(ext * w);
+                out[W_OCC * nc + li] = (float)occ;
                 for (int c = 0; c < 3; c++) {
-                    out[(2 + c) * nc + li] = (float)(ins[c] * w);
-                    for (int m = 0; m < 4; m++) out[(5 + 4 * c + m) * nc + li] = (float)(dir[c][m] * w);
+                    out[(W_INS + c) * nc + li] = (float)(ins[c] * w);
+                    for (int m = 0; m < 4; m++) out[(W_DIR + 4 * c + m) * nc + li] = (float)(dir[c][m] * w);
                 }
             }
     j->light_samples[worker] += evals;
 }
 
-static brm_status writer_fail(brm_diag *d, const char *path, brv_writer *w, brv_result r)
+/* ---- frustum ------------------------------------------------------------------------------- */
+
+enum { F_EXT, F_OCC, F_SCAT, F_TRANS = F_SCAT + 3, F_INS, FRUSTUM_CH_MAX = F_INS + 3 };
+enum { COL_EXT, COL_OCC, COL_S, COL_FIELDS = COL_S + 3 };
+
+static void frustum_plan(brm_plan *pl, const brm_target *tg)
 {
-    const char *detail = w ? brv_writer_error(w) : "";
-    return brm_diag_error(d, r == BRV_E_UNREPRESENTABLE ? BRM_E_INPUT : BRM_E_IO, "%s: cannot write volume: %s%s%s",
-                          path, brv_result_text(r), detail && *detail ? ": " : "", detail ? detail : "");
+    brm_plan_channel(pl, "extinction", "1/m", enc_for(tg->encoding, false));
+    brm_plan_channel(pl, "occupancy", "1", enc_for(tg->encoding, false));
+    brm_plan_channel(pl, "scatter.r", "cd/m2", enc_for(tg->encoding, true));
+    brm_plan_channel(pl, "scatter.g", "cd/m2", enc_for(tg->encoding, true));
+    brm_plan_channel(pl, "scatter.b", "cd/m2", enc_for(tg->encoding, true));
+    brm_plan_channel(pl, "transmittance", "1", enc_for(tg->encoding, false));
+    if (tg->keep_froxel_terms) {
+        brm_plan_channel(pl, "inscatter.r", "cd/m2/m", enc_for(tg->encoding, true));
+        brm_plan_channel(pl, "inscatter.g", "cd/m2/m", enc_for(tg->encoding, true));
+        brm_plan_channel(pl, "inscatter.b", "cd/m2/m", enc_for(tg->encoding, true));
+    }
 }
 
-static brm_status bake_world(const brm_scene *s, uint32_t t, const brm_bake_opts *o, const char *out_path,
-                             brm_bake_stats *stats, brm_diag *d)
+/* The view-dependent in-scatter S (toward the camera, cd/m² per m) and extinction averaged over
+ * a froxel by jittered samples weighted by their volume element (∝ depth² in a pyramid). */
+static void froxel_average(bake_ctx *j, uint32_t i, uint32_t jj, uint32_t k, const uint32_t *lights, uint32_t nl,
+                           int worker, double out[COL_FIELDS], uint64_t *evals)
+{
+    const brm_grid *g = j->grid;
+    size_t gi = brm_grid_index(g, i, jj, k);
+    double occ = j->occ->fraction[gi];
+    out[COL_OCC] = occ;
+    out[COL_EXT] = out[COL_S] = out[COL_S + 1] = out[COL_S + 2] = 0.0;
+    if (occ >= 1.0) return;
+    const uint32_t S = sample_count(j->target);
+    double (*u)[3] = j->scratch + (size_t)worker * BRM_MAX_CELL_SAMPLES;
+    brm_cell_samples(j->seed ^ (uint64_t)gi * 0x9e3779b97f4a7c15ull, S, u);
+    double wsum = 0.0, ext = 0.0, sc[3] = {0, 0, 0};
+    for (uint32_t si = 0; si < S; si++) {
+        brm_vec3 p = brm_grid_point(g, i + u[si][0], jj + u[si][1], k + u[si][2]);
+        brm_vec3 v = brm_sub(p, g->cam.position);
+        double depth = brm_dot(v, g->fwd);
+        brm_vec3 view = brm_norm(v);
+        brm_kernel_out ko;
+        brm_kernel_eval(&j->kernel, p, lights, nl, (uint32_t)(gi * S + si), &view, &ko);
+        *evals += ko.light_evals;
+        double w = depth * depth;
+        wsum += w;
+        ext += w * ko.sigma_t;
+        for (int c = 0; c < 3; c++) sc[c] += w * ko.toward_view[c];
+    }
+    double f = (1.0 - occ) / wsum;
+    out[COL_EXT] = ext * f;
+    for (int c = 0; c < 3; c++) out[COL_S + c] = sc[c] * f;
+}
+
+/* Energy-conserving integral of a slab with constant extinction and source (REFERENCES.md §6c):
+ * ∫_0^len S·e^(−sigma·t) dt = S·(1 − e^(−sigma·len))/sigma, with the limit S·len as sigma → 0. */
+static double slab_integral(double S, double sigma, double len, double *trans)
+{
+    double tau = sigma * len;
+    double T = exp(-tau);
+    *trans = T;
+    if (tau < 1e-7) return S * len * (1.0 - 0.5 * tau);
+    return S * (1.0 - T) / sigma;
+}
+
+static void frustum_unit(void *ctx, uint32_t unit, int worker, float *out)
+{
+    bake_ctx *j = ctx;
+    const brm_grid *g = j->grid;
+    const uint32_t nz = g->n[2], nbz = g->bricks[2];
+    const uint32_t chn = j->target->keep_froxel_terms ? FRUSTUM_CH_MAX : F_INS;
+    const size_t brick_floats = (size_t)BRM_BRICK * BRM_BRICK * BRM_BRICK * chn;
+    uint32_t lo[3], hi[3];
+    brm_grid_brick_range(g, unit, lo, hi); /* unit = brick (bx, by, 0): its x, y range */
+    uint32_t nx = hi[0] - lo[0], ny = hi[1] - lo[1];
+    double *col = j->column + (size_t)worker * ((size_t)nz + 1) * COL_FIELDS;
+    uint64_t evals = 0;
+    for (uint32_t jj = lo[1]; jj < hi[1]; jj++)
+        for (uint32_t i = lo[0]; i < hi[0]; i++) {
+            /* Lights that reach this column's pyramid. */
+            brm_aabb cb = brm_aabb_empty();
+            brm_aabb_grow(&cb, g->cam.position);
+            for (int c = 0; c < 4; c++) brm_aabb_grow(&cb, brm_grid_point(g, i + (c & 1), jj + (c >> 1), nz));
+            uint32_t *lights;
+            uint32_t nl = cull_lights(j, cb, worker, &lights);
+            for (uint32_t k = 0; k < nz; k++) froxel_average(j, i, jj, k, lights, nl, worker, col + (size_t)(k + 1) * COL_FIELDS, &evals);
+            /* The stretch from the camera to the near plane, by samples along the centre ray. */
+            double x = 2.0 * (i + 0.5) / g->n[0] - 1.0, y = 2.0 * (jj + 0.5) / g->n[1] - 1.0;
+            brm_vec3 ray = brm_add(g->fwd, brm_add(brm_scale(g->right, x * g->tan_half_x), brm_scale(g->up, y * g->tan_half_y)));
+            double ray_len = brm_len(ray);
+            brm_vec3 view = brm_scale(ray, 1.0 / ray_len);
+            {
+                const uint32_t S = sample_count(j->target);
+                double (*u)[3] = j->scratch + (size_t)worker * BRM_MAX_CELL_SAMPLES;
+                uint64_t key = j->seed ^ ((uint64_t)(i + 1) * 0x632be59bd9b4e019ull + (uint64_t)(jj + 1) * 0x8cb92ba72f3d8dd7ull);
+                brm_cell_samples(key, S, u);
+                double ext = 0, sc[3] = {0, 0, 0};
+                for (uint32_t si = 0; si < S; si++) {
+                    brm_vec3 p = brm_madd(g->cam.position, ray, g->cam.near * u[si][2]);
+                    brm_kernel_out ko;
+                    brm_kernel_eval(&j->kernel, p, lights, nl, si, &view, &ko);
+                    evals += ko.light_evals;
+                    ext += ko.sigma_t;
+                    for (int c = 0; c < 3; c++) sc[c] += ko.toward_view[c];
+                }
+                col[COL_EXT] = ext / S;
+                for (int c = 0; c < 3; c++) col[COL_S + c] = sc[c] / S;
+            }
+            /* Front-to-back: L += T·∫S e^(−σt) over each slab, T *= e^(−σ·len). */
+            double L[3] = {0, 0, 0}, T = 1.0;
+            for (uint32_t k = 0; k <= nz; k++) {
+                const double *f = col + (size_t)k * COL_FIELDS;
+                double d0 = k == 0 ? 0.0 : g->slice_depths[k - 1], d1 = k == 0 ? g->cam.near : g->slice_depths[k];
+                double len = (d1 - d0) * ray_len, Ts = 1.0;
+                for (int c = 0; c < 3; c++) L[c] += T * slab_integral(f[COL_S + c], f[COL_EXT], len, &Ts);
+                T *= Ts;
+                if (k == 0) continue;
+                uint32_t kk = k - 1, bz = kk / BRM_BRICK, lz = kk % BRM_BRICK;
+                uint32_t bnz = (bz + 1) * BRM_BRICK <= nz ? BRM_BRICK : nz - bz * BRM_BRICK;
+                size_t nc = (size_t)nx * ny * bnz;
+                float *bo = out + (size_t)bz * brick_floats;
+                size_t li = (size_t)(i - lo[0]) + nx * ((size_t)(jj - lo[1]) + ny * lz);
+                bo[F_EXT * nc + li] = (float)f[COL_EXT];
+                bo[F_OCC * nc + li] = (float)f[COL_OCC];
+                for (int c = 0; c < 3; c++) bo[(F_SCAT + c) * nc + li] = (float)L[c];
+                bo[F_TRANS * nc + li] = (float)T;
+                if (chn == FRUSTUM_CH_MAX)
+                    for (int c = 0; c < 3; c++) bo[(F_INS + c) * nc + li] = (float)f[COL_S + c];
+            }
+        }
+    (void)nbz;
+    j->light_samples[worker] += evals;
+}
+
+/* ---- one target ---------------------------------------------------------------------------- */
+
+static brm_status bake_grid(const brm_scene *s, uint32_t t, const brm_bake_opts *o, const char *out_path,
+                            brm_bake_stats *stats, brm_diag *d)
 {
     const brm_target *tg = &s->targets[t];
     const int threads = effective_threads(o);
     brm_status st;
     brm_grid g;
     if ((st = brm_grid_init(&g, tg, d)) != BRM_OK) return st;
-
     brm_occupancy occ = {0};
     brm_bvh *bvh = NULL;
     brm_shadow_set *ss = NULL;
-    brv_writer *w = NULL;
-    brm_atomic_file af = {0};
-    float *buf = NULL;
-    uint32_t *light_lists = NULL;
-    uint64_t *light_samples = NULL;
-    double (*scratch)[3] = NULL;
-    char *meta = NULL;
-    bool file_open = false;
+    bake_ctx c;
+    memset(&c, 0, sizeof c);
 
-    if ((st = brm_voxelize(s, &g, threads, &occ, d)) != BRM_OK) goto done;
+    if (tg->grid != BRM_GRID_PROBES && (st = brm_voxelize(s, &g, threads, &occ, d)) != BRM_OK) goto done;
     if (s->tri_count > 0 || s->object_count > 0) {
         if ((st = brm_bvh_build(s, &bvh, d)) != BRM_OK) goto done;
     }
     double t_shadow = brm_now();
-    brm_shadow_opts so = {brm_grid_bounds(&g), min_cell_edge(&g), threads, o->reference, bvh};
+    brm_shadow_opts so = {lit_bounds(s, &g), min_cell_edge(&g), threads, o->reference, bvh};
     if ((st = brm_shadows_build(s, &so, &ss, d)) != BRM_OK) goto done;
     stats->shadow_seconds = brm_now() - t_shadow;
 
-    brv_channel_desc ch[WORLD_CHANNELS];
-    for (uint32_t c = 0; c < WORLD_CHANNELS; c++) {
-        ch[c].name = world_names[c];
-        ch[c].units = world_units(c);
-        ch[c].encoding = channel_encoding(tg->encoding, c);
-    }
-    meta = build_metadata(s, t, o);
-    brv_write_desc wd;
-    memset(&wd, 0, sizeof wd);
-    wd.kind = BRV_GRID_WORLD;
-    for (int a = 0; a < 3; a++) wd.cells[a] = g.n[a];
-    wd.brick_size = BRM_BRICK;
-    wd.bounds_min[0] = g.box.min.x; wd.bounds_min[1] = g.box.min.y; wd.bounds_min[2] = g.box.min.z;
-    wd.bounds_max[0] = g.box.max.x; wd.bounds_max[1] = g.box.max.y; wd.bounds_max[2] = g.box.max.z;
-    wd.channel_count = WORLD_CHANNELS;
-    wd.channels = ch;
-    wd.compression_level = tg->compression_level;
-    wd.metadata = meta;
-    wd.metadata_len = meta ? strlen(meta) : 0;
-
-    if ((st = brm_atomic_open(&af, out_path, d)) != BRM_OK) goto done;
-    file_open = true;
-    brv_result r = brv_writer_create(af.f, &wd, &w);
-    if (r != BRV_OK) {
-        st = writer_fail(d, out_path, w, r);
+    if (tg->grid == BRM_GRID_PROBES) {
+        st = brm_bake_probes(s, t, o, &g, bvh, ss, out_path, stats, d);
         goto done;
     }
 
-    const uint32_t nbricks = brm_grid_brick_count(&g);
-    const uint32_t batch = batch_bricks(threads);
-    const size_t brick_floats = (size_t)BRM_BRICK * BRM_BRICK * BRM_BRICK * WORLD_CHANNELS;
-    buf = malloc((size_t)batch * brick_floats * sizeof(float));
-    light_lists = calloc((size_t)threads * (s->light_count + 1), sizeof *light_lists);
-    light_samples = calloc((size_t)threads, sizeof *light_samples);
-    scratch = malloc((size_t)threads * BRM_MAX_CELL_SAMPLES * sizeof *scratch);
-    if (!buf || !light_lists || !light_samples || !scratch) {
-        st = brm_diag_error(d, BRM_E_NOMEM, "%s: out of memory for the brick buffers", tg->json_path);
-        goto done;
-    }
-    world_job job = {s, tg, &g, &occ, {s, ss}, 0, 0, buf, brick_floats, light_lists, light_samples, scratch};
-    /* Samples are keyed by the target's name, so two targets over the same cells differ but a
-     * target always gets the same samples. */
+    c.scene = s;
+    c.target = tg;
+    c.grid = &g;
+    c.occ = &occ;
+    c.bvh = bvh;
+    c.shadows = ss;
+    c.kernel.scene = s;
+    c.kernel.shadows = ss;
+    c.threads = threads;
     {
+        /* Samples are keyed by the target's name: a target always gets the same samples. */
         uint8_t dg[32];
         brm_sha256_buf(tg->name, strlen(tg->name), dg);
-        memcpy(&job.seed, dg, sizeof job.seed);
+        memcpy(&c.seed, dg, sizeof c.seed);
     }
-    uint64_t cells_done = 0, total = brm_grid_cells(&g);
-    for (uint32_t first = 0; first < nbricks; first += batch) {
-        if (o->cancel && atomic_load(o->cancel)) {
-            st = brm_diag_error(d, BRM_E_INTERRUPTED, "%s: interrupted", tg->name);
-            goto done;
-        }
-        uint32_t n = nbricks - first < batch ? nbricks - first : batch;
-        job.first = first;
-        uint32_t ran = brm_parallel_for(n, threads, bake_world_brick, &job, o->cancel);
-        if (ran != n) {
-            st = brm_diag_error(d, BRM_E_INTERRUPTED, "%s: interrupted", tg->name);
-            goto done;
-        }
-        for (uint32_t i = 0; i < n; i++) {
-            r = brv_writer_put_brick(w, first + i, buf + (size_t)i * brick_floats);
-            if (r != BRV_OK) {
-                st = writer_fail(d, out_path, w, r);
-                goto done;
-            }
-            uint32_t lo[3], hi[3];
-            brm_grid_brick_range(&g, first + i, lo, hi);
-            cells_done += (uint64_t)(hi[0] - lo[0]) * (hi[1] - lo[1]) * (hi[2] - lo[2]);
-        }
-        if (o->progress) o->progress(o->progress_user, cells_done, total);
-    }
-    r = brv_writer_finish(w);
-    if (r != BRV_OK) {
-        st = writer_fail(d, out_path, w, r);
+    c.light_lists = calloc((size_t)threads * (s->light_count + 1), sizeof *c.light_lists);
+    c.light_samples = calloc((size_t)threads, sizeof *c.light_samples);
+    c.scratch = malloc((size_t)threads * BRM_MAX_CELL_SAMPLES * sizeof *c.scratch);
+    if (tg->grid == BRM_GRID_FRUSTUM) c.column = malloc((size_t)threads * ((size_t)g.n[2] + 1) * COL_FIELDS * sizeof(double));
+    if (!c.light_lists || !c.light_samples || !c.scratch || (tg->grid == BRM_GRID_FRUSTUM && !c.column)) {
+        st = brm_diag_error(d, BRM_E_NOMEM, "%s: out of memory", tg->json_path);
         goto done;
     }
-    long end = ftell(af.f);
-    if ((st = brm_atomic_commit(&af, d)) != BRM_OK) {
-        file_open = false;
-        goto done;
+    brm_plan pl;
+    memset(&pl, 0, sizeof pl);
+    pl.ctx = &c;
+    if (tg->grid == BRM_GRID_WORLD) {
+        world_plan(&pl, tg);
+        pl.unit_count = brm_grid_brick_count(&g);
+        pl.bricks_per_unit = 1;
+        pl.compute = world_unit;
+        pl.brick_of = brm_plan_brick_is_unit;
+    } else {
+        frustum_plan(&pl, tg);
+        pl.unit_count = g.bricks[0] * g.bricks[1];
+        pl.bricks_per_unit = g.bricks[2];
+        pl.compute = frustum_unit;
+        pl.brick_of = brick_of_column;
     }
-    file_open = false;
-    stats->cells = total;
-    stats->bytes = end > 0 ? (uint64_t)end : 0;
-    for (int i = 0; i < threads; i++) stats->light_samples += light_samples[i];
+    st = brm_run_plan(s, t, o, &g, &pl, out_path, stats, d);
+    for (int i = 0; i < threads; i++) stats->light_samples += c.light_samples[i];
 
 done:
-    if (file_open) brm_atomic_abort(&af);
-    brv_writer_free(w);
-    free(meta);
-    free(buf);
-    free(light_lists);
-    free(light_samples);
-    free(scratch);
+    free(c.light_lists);
+    free(c.light_samples);
+    free(c.scratch);
+    free(c.column);
     brm_shadows_free(ss);
     brm_bvh_free(bvh);
     brm_occupancy_free(&occ);
@@ -390,13 +637,7 @@ brm_status brm_bake_target(const brm_scene *s, uint32_t t, const brm_bake_opts *
     }
     double t0 = brm_now();
     brm_status st;
-    switch (tg->grid) {
-    case BRM_GRID_WORLD: st = bake_world(s, t, o, out_path, stats, d); break;
-    default:
-        st = brm_diag_error(d, BRM_E_INPUT, "%s: %s (\"%s\"): grid \"%s\" cannot be baked by this version yet",
-                            s->path, tg->json_path, tg->name, tg->grid == BRM_GRID_FRUSTUM ? "frustum" : "probes");
-        break;
-    }
+    st = bake_grid(s, t, o, out_path, stats, d);
     stats->seconds = brm_now() - t0;
     return st;
 }

@@ -30,6 +30,7 @@ typedef struct brm_bake_stats {
     double seconds;             /* wall time of the whole bake */
     double shadow_seconds;      /* of which building shadow and optical-depth maps */
     uint64_t light_samples;     /* sample·light pairs evaluated (cell·light·samples) */
+    uint64_t rays;              /* probes: rays traced from the probes */
     uint64_t estimated_memory;  /* the estimate checked against the budget */
 } brm_bake_stats;
 

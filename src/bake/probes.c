@@ -1,0 +1,382 @@
+/* Probe lattices: spherical-harmonic radiance (bands 0–2) per probe from direct light, the
+ * sky, one diffuse bounce and the fog seen along each ray. */
+#include <math.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "bake/kernel.h"
+#include "base/lds.h"
+#include "base/sh.h"
+#include "base/threads.h"
+#include "scene/light.h"
+#include "voxel/bvh.h"
+#include "voxel/grid.h"
+#include "voxel/voxelize.h"
+
+#include "bake/bake_internal.h"
+
+/* ---- the coarse fog grid: in-scatter and extinction, marched along probe rays -------------- */
+
+typedef struct fog_grid {
+    uint32_t n[3];
+    brm_aabb box;
+    brm_vec3 cell;
+    float *ins;     /* 3 per cell: isotropic in-scatter, cd/m² per m */
+    float *ext;     /* extinction, 1/m */
+} fog_grid;
+
+typedef struct fog_job {
+    const brm_scene *s;
+    brm_kernel k;
+    fog_grid *f;
+    uint32_t *lights;
+    uint32_t nl;
+} fog_job;
+
+static void fog_slice(void *ctx, uint32_t kz, int worker)
+{
+    (void)worker;
+    fog_job *j = ctx;
+    fog_grid *f = j->f;
+    double u[4][3];
+    for (uint32_t y = 0; y < f->n[1]; y++)
+        for (uint32_t x = 0; x < f->n[0]; x++) {
+            size_t c = (size_t)x + f->n[0] * ((size_t)y + f->n[1] * kz);
+            brm_cell_samples(0x51ed2701f3a5c9e1ull ^ (uint64_t)c * 0x9e3779b97f4a7c15ull, 4, u);
+            double e = 0, in[3] = {0, 0, 0};
+            for (int si = 0; si < 4; si++) {
+                brm_vec3 p = brm_v3(f->box.min.x + (x + u[si][0]) * f->cell.x, f->box.min.y + (y + u[si][1]) * f->cell.y,
+                                    f->box.min.z + (kz + u[si][2]) * f->cell.z);
+                brm_kernel_out ko;
+                brm_kernel_eval(&j->k, p, j->lights, j->nl, (uint32_t)(c * 4 + (size_t)si), NULL, &ko);
+                e += ko.sigma_t;
+                for (int ch = 0; ch < 3; ch++) in[ch] += ko.inscatter[ch];
+            }
+            f->ext[c] = (float)(e / 4);
+            for (int ch = 0; ch < 3; ch++) f->ins[3 * c + (size_t)ch] = (float)(in[ch] / 4);
+        }
+}
+
+static brm_status fog_build(const brm_scene *s, const brm_shadow_set *ss, double spacing, int threads, fog_grid *f,
+                            brm_diag *d)
+{
+    memset(f, 0, sizeof *f);
+    if (s->medium_count == 0) return BRM_OK;
+    f->box = s->fog_bounds;
+    brm_vec3 ext = brm_sub(f->box.max, f->box.min);
+    double largest = ext.x > ext.y ? (ext.x > ext.z ? ext.x : ext.z) : (ext.y > ext.z ? ext.y : ext.z);
+    /* Cells of half the probe spacing, at most 96 per axis: the fog a probe sees is smooth at
+     * that scale and the grid stays small next to the lattice. */
+    double h = spacing * 0.5;
+    if (largest / h > 96) h = largest / 96;
+    for (int a = 0; a < 3; a++) {
+        double e = brm_vget(ext, a);
+        uint32_t n = (uint32_t)ceil(e / h);
+        f->n[a] = n < 1 ? 1 : n;
+    }
+    f->cell = brm_v3(ext.x / f->n[0], ext.y / f->n[1], ext.z / f->n[2]);
+    size_t cells = (size_t)f->n[0] * f->n[1] * f->n[2];
+    f->ins = malloc(cells * 3 * sizeof *f->ins);
+    f->ext = malloc(cells * sizeof *f->ext);
+    uint32_t *lights = malloc((s->light_count + 1) * sizeof *lights);
+    if (!f->ins || !f->ext || !lights) {
+        free(lights);
+        return brm_diag_error(d, BRM_E_NOMEM, "out of memory for the probes' fog grid");
+    }
+    for (uint32_t l = 0; l < s->light_count; l++) lights[l] = l;
+    fog_job j = {s, {s, ss}, f, lights, s->light_count};
+    brm_parallel_for(f->n[2], threads, fog_slice, &j, NULL);
+    free(lights);
+    return BRM_OK;
+}
+
+static void fog_free(fog_grid *f)
+{
+    free(f->ins);
+    free(f->ext);
+}
+
+/* Radiance gathered from the fog along o + t·dir for t in [0, tmax], and the transmittance
+ * over that path: slabs of half a fog cell, each integrated in closed form. */
+static void fog_march(const fog_grid *f, brm_vec3 o, brm_vec3 dir, double tmax, double L[3], double *T)
+{
+    L[0] = L[1] = L[2] = 0.0;
+    *T = 1.0;
+    if (!f->ext) return;
+    brm_vec3 inv = brm_v3(1.0 / dir.x, 1.0 / dir.y, 1.0 / dir.z);
+    double t0, t1;
+    if (!brm_ray_aabb(o, inv, f->box, 0.0, tmax, &t0, &t1)) return;
+    double step = 0.5 * fmin(f->cell.x, fmin(f->cell.y, f->cell.z));
+    double tr = 1.0;
+    for (double t = t0; t < t1; t += step) {
+        double len = t + step < t1 ? step : t1 - t;
+        brm_vec3 p = brm_madd(o, dir, t + 0.5 * len);
+        int ix = (int)((p.x - f->box.min.x) / f->cell.x), iy = (int)((p.y - f->box.min.y) / f->cell.y),
+            iz = (int)((p.z - f->box.min.z) / f->cell.z);
+        if (ix < 0) ix = 0;
+        if (iy < 0) iy = 0;
+        if (iz < 0) iz = 0;
+        if (ix >= (int)f->n[0]) ix = (int)f->n[0] - 1;
+        if (iy >= (int)f->n[1]) iy = (int)f->n[1] - 1;
+        if (iz >= (int)f->n[2]) iz = (int)f->n[2] - 1;
+        size_t c = (size_t)ix + f->n[0] * ((size_t)iy + f->n[1] * (size_t)iz);
+        double sigma = f->ext[c];
+        double tau = sigma * len, Ts = exp(-tau);
+        /* ∫ S e^(−σt) dt over the slab (REFERENCES.md §6c), limit S·len as σ → 0. */
+        double w = tau < 1e-7 ? len : (1.0 - Ts) / sigma;
+        for (int ch = 0; ch < 3; ch++) L[ch] += tr * f->ins[3 * c + (size_t)ch] * w;
+        tr *= Ts;
+        if (tr < 1e-6) break;
+    }
+    *T = tr;
+}
+
+/* ---- rays ---------------------------------------------------------------------------------- */
+
+/* Direction i of n on a spherical Fibonacci lattice (equal-area, stratified; Swinbank & Purser
+ * 2006), rotated by the unit quaternion q so neighbouring probes do not share directions. */
+static brm_vec3 ray_dir(uint32_t i, uint32_t n, const double q[4])
+{
+    const double golden_angle = 2.39996322972865332; /* π(3 − √5) */
+    double z = 1.0 - (2.0 * i + 1.0) / n;
+    double r = sqrt(fmax(0.0, 1.0 - z * z));
+    double ph = golden_angle * i;
+    brm_vec3 v = brm_v3(r * cos(ph), r * sin(ph), z);
+    /* v' = v + 2w(q×v) + 2 q×(q×v), q = (x, y, z, w) */
+    brm_vec3 qv = brm_v3(q[0], q[1], q[2]);
+    brm_vec3 t = brm_scale(brm_cross(qv, v), 2.0);
+    return brm_add(brm_add(v, brm_scale(t, q[3])), brm_cross(qv, t));
+}
+
+/* A uniformly distributed rotation from three uniform numbers (Shoemake 1992). */
+static void random_rotation(uint64_t key, double q[4])
+{
+    double u1 = brm_hash_unit(key), u2 = brm_hash_unit(key + 1), u3 = brm_hash_unit(key + 2);
+    double a = sqrt(1 - u1), b = sqrt(u1);
+    q[0] = a * sin(2 * BRM_PI * u2);
+    q[1] = a * cos(2 * BRM_PI * u2);
+    q[2] = b * sin(2 * BRM_PI * u3);
+    q[3] = b * cos(2 * BRM_PI * u3);
+}
+
+typedef struct probe_ctx {
+    const brm_scene *s;
+    const brm_target *t;
+    const brm_grid *g;
+    const brm_bvh *bvh;
+    const brm_shadow_set *ss;
+    const brm_solid_index *solid;
+    fog_grid fog;
+    double eps;                 /* offset of secondary ray origins, m */
+    uint32_t channels;
+    uint64_t *rays;             /* per worker: rays traced */
+} probe_ctx;
+
+/* Irradiance at a surface point with normal n: direct light (shadow maps, fog on the way) and
+ * the visible sky, band-limited (Ramamoorthi & Hanrahan 2001, bands 0–1). */
+static void surface_irradiance(const probe_ctx *c, brm_vec3 p, brm_vec3 n, uint32_t index, double E[3])
+{
+    E[0] = E[1] = E[2] = 0.0;
+    for (uint32_t l = 0; l < c->s->light_count; l++) {
+        const brm_light *lt = &c->s->lights[l];
+        brm_vec3 to;
+        double dist;
+        double e = brm_light_illuminance(lt, p, &to, &dist);
+        double cosi = brm_dot(n, to);
+        if (e <= 0 || cosi <= 0) continue;
+        double v = brm_shadow_visibility(c->ss, l, p);
+        if (v <= 0) continue;
+        e *= cosi * v * brm_shadow_transmittance(c->ss, l, p);
+        E[0] += e * lt->color.x;
+        E[1] += e * lt->color.y;
+        E[2] += e * lt->color.z;
+    }
+    if (c->s->sky.present) {
+        double sky[3][4], y[4];
+        brm_sky_incident(c->ss, p, index, sky);
+        brm_sh4(n, y);
+        for (int ch = 0; ch < 3; ch++) {
+            double e = BRM_PI * sky[ch][0] * y[0] + (2.0 * BRM_PI / 3.0) * (sky[ch][1] * y[1] + sky[ch][2] * y[2] + sky[ch][3] * y[3]);
+            E[ch] += e > 0 ? e : 0;
+        }
+    }
+}
+
+/* Bakes one probe at p: coefficients L[3][9]; returns the fraction of rays that hit back faces. */
+static double bake_probe(const probe_ctx *c, brm_vec3 p, uint64_t key, uint32_t nrays, double L[3][9], int worker)
+{
+    memset(L, 0, sizeof(double) * 27);
+    const brm_scene *s = c->s;
+    /* Direct light: a delta in direction, projected as the delta it is. */
+    for (uint32_t l = 0; l < s->light_count; l++) {
+        const brm_light *lt = &s->lights[l];
+        brm_vec3 to;
+        double dist;
+        double e = brm_light_illuminance(lt, p, &to, &dist);
+        if (e <= 0) continue;
+        double v = brm_shadow_visibility(c->ss, l, p);
+        if (v <= 0) continue;
+        e *= v * brm_shadow_transmittance(c->ss, l, p);
+        double y[9];
+        brm_sh9(to, y);
+        const double rgb[3] = {e * lt->color.x, e * lt->color.y, e * lt->color.z};
+        for (int ch = 0; ch < 3; ch++)
+            for (int i = 0; i < 9; i++) L[ch][i] += rgb[ch] * y[i];
+    }
+    double q[4];
+    random_rotation(key, q);
+    const double w = 4.0 * BRM_PI / nrays;
+    uint32_t back = 0;
+    uint64_t traced = 0;
+    for (uint32_t r = 0; r < nrays; r++) {
+        brm_vec3 dir = ray_dir(r, nrays, q);
+        brm_hit hit;
+        int h = c->bvh ? brm_bvh_intersect(c->bvh, p, dir, 0.0, HUGE_VAL, &hit) : 0;
+        traced++;
+        double rad[3] = {0, 0, 0};
+        double fogL[3], T;
+        fog_march(&c->fog, p, dir, h ? hit.t : HUGE_VAL, fogL, &T);
+        if (h && hit.back_face) {
+            back++;
+        } else if (h) {
+            const brm_object *ob = &s->objects[hit.object];
+            brm_vec3 hp = brm_madd(brm_madd(p, dir, hit.t), hit.normal, c->eps);
+            double E[3];
+            surface_irradiance(c, hp, hit.normal, (uint32_t)(key * 31 + r), E);
+            /* Lambertian: outgoing radiance = albedo/π × irradiance. */
+            rad[0] = ob->albedo.x / BRM_PI * E[0];
+            rad[1] = ob->albedo.y / BRM_PI * E[1];
+            rad[2] = ob->albedo.z / BRM_PI * E[2];
+        } else {
+            brm_vec3 sky = brm_sky_radiance(&s->sky, dir);
+            rad[0] = sky.x;
+            rad[1] = sky.y;
+            rad[2] = sky.z;
+        }
+        double y[9];
+        brm_sh9(dir, y);
+        for (int ch = 0; ch < 3; ch++) {
+            double v = fogL[ch] + T * rad[ch];
+            for (int i = 0; i < 9; i++) L[ch][i] += w * v * y[i];
+        }
+    }
+    c->rays[worker] += traced;
+    return nrays ? (double)back / nrays : 0.0;
+}
+
+static int probe_invalid(const probe_ctx *c, brm_vec3 p, double back_fraction)
+{
+    /* SPEC.md: invalid inside solid geometry or when more than 25 % of its rays hit back faces. */
+    if (back_fraction > 0.25) return 1;
+    return c->solid ? brm_solid_index_query(c->solid, p) : brm_point_in_solid(c->s, p);
+}
+
+enum { P_SH = 0, P_VALID = 27, P_EXT = 28, P_OFF = 29, PROBE_CH_MAX = 32 };
+
+static void probe_unit(void *ctx, uint32_t b, int worker, float *out)
+{
+    probe_ctx *c = ctx;
+    const brm_grid *g = c->g;
+    uint32_t lo[3], hi[3];
+    brm_grid_brick_range(g, b, lo, hi);
+    uint32_t nx = hi[0] - lo[0], ny = hi[1] - lo[1], nz = hi[2] - lo[2];
+    size_t nc = (size_t)nx * ny * nz;
+    for (uint32_t k = lo[2]; k < hi[2]; k++)
+        for (uint32_t j = lo[1]; j < hi[1]; j++)
+            for (uint32_t i = lo[0]; i < hi[0]; i++) {
+                size_t gi = brm_grid_index(g, i, j, k);
+                size_t li = (size_t)(i - lo[0]) + nx * ((size_t)(j - lo[1]) + ny * (size_t)(k - lo[2]));
+                brm_vec3 p0 = brm_grid_point(g, i, j, k), p = p0;
+                uint64_t key = 0x7f4a7c159e3779b9ull ^ (uint64_t)gi * 0xbf58476d1ce4e5b9ull;
+                double L[3][9];
+                double bf = bake_probe(c, p, key, c->t->rays, L, worker);
+                int invalid = probe_invalid(c, p, bf);
+                if (invalid && c->t->relocate) {
+                    /* The nearest free point within half a spacing: candidates on a 5³ lattice of
+                     * quarter spacings, nearest first; each screened with a quarter of the rays. */
+                    double best = HUGE_VAL;
+                    brm_vec3 bestp = p0;
+                    for (int dz = -2; dz <= 2; dz++)
+                        for (int dy = -2; dy <= 2; dy++)
+                            for (int dx = -2; dx <= 2; dx++) {
+                                double d2 = (double)(dx * dx + dy * dy + dz * dz);
+                                if (d2 == 0 || d2 >= best) continue;
+                                brm_vec3 q = brm_add(p0, brm_mul(g->cell, brm_v3(dx * 0.25, dy * 0.25, dz * 0.25)));
+                                double Lq[3][9];
+                                uint32_t few = c->t->rays / 4 > 16 ? c->t->rays / 4 : 16;
+                                if (!probe_invalid(c, q, bake_probe(c, q, key + 1, few, Lq, worker))) {
+                                    best = d2;
+                                    bestp = q;
+                                }
+                            }
+                    if (best < HUGE_VAL) {
+                        p = bestp;
+                        bf = bake_probe(c, p, key, c->t->rays, L, worker);
+                        invalid = probe_invalid(c, p, bf);
+                    }
+                }
+                for (int ch = 0; ch < 3; ch++)
+                    for (int m = 0; m < 9; m++) out[(size_t)(P_SH + 9 * ch + m) * nc + li] = (float)L[ch][m];
+                out[(size_t)P_VALID * nc + li] = invalid ? 0.0f : 1.0f;
+                out[(size_t)P_EXT * nc + li] = (float)brm_media_extinction(c->s, p);
+                if (c->channels > P_OFF) {
+                    out[(size_t)P_OFF * nc + li] = (float)(p.x - p0.x);
+                    out[(size_t)(P_OFF + 1) * nc + li] = (float)(p.y - p0.y);
+                    out[(size_t)(P_OFF + 2) * nc + li] = (float)(p.z - p0.z);
+                }
+            }
+}
+
+static const char *const sh_names[27] = {
+    "sh.r0", "sh.r1", "sh.r2", "sh.r3", "sh.r4", "sh.r5", "sh.r6", "sh.r7", "sh.r8",
+    "sh.g0", "sh.g1", "sh.g2", "sh.g3", "sh.g4", "sh.g5", "sh.g6", "sh.g7", "sh.g8",
+    "sh.b0", "sh.b1", "sh.b2", "sh.b3", "sh.b4", "sh.b5", "sh.b6", "sh.b7", "sh.b8"};
+
+brm_status brm_bake_probes(const brm_scene *s, uint32_t t, const brm_bake_opts *o, const brm_grid *g,
+                           const brm_bvh *bvh, const brm_shadow_set *ss, const char *out_path,
+                           brm_bake_stats *stats, brm_diag *d)
+{
+    const brm_target *tg = &s->targets[t];
+    const int threads = o->threads > 0 ? o->threads : brm_cpu_count();
+    probe_ctx c;
+    memset(&c, 0, sizeof c);
+    c.s = s;
+    c.t = tg;
+    c.g = g;
+    c.bvh = bvh;
+    c.ss = ss;
+    brm_vec3 ext = brm_sub(s->fog_bounds.max, s->fog_bounds.min);
+    c.eps = 1e-4 * (ext.x + ext.y + ext.z) + 1e-4;
+    c.rays = calloc((size_t)threads, sizeof *c.rays);
+    brm_solid_index *solid = NULL;
+    brm_status st = BRM_OK;
+    if (!c.rays) return brm_diag_error(d, BRM_E_NOMEM, "%s: out of memory", tg->json_path);
+    if ((st = brm_solid_index_build(s, &solid, d)) != BRM_OK) goto done;
+    c.solid = solid;
+    if ((st = fog_build(s, ss, tg->spacing_m, threads, &c.fog, d)) != BRM_OK) goto done;
+
+    brm_plan pl;
+    memset(&pl, 0, sizeof pl);
+    for (int i = 0; i < 27; i++) brm_plan_channel(&pl, sh_names[i], "cd/m2", tg->encoding == BRM_ENCODING_F32 ? BRV_ENCODING_F32 : BRV_ENCODING_F16);
+    brm_plan_channel(&pl, "validity", "1", tg->encoding == BRM_ENCODING_F32 ? BRV_ENCODING_F32 : BRV_ENCODING_F16);
+    brm_plan_channel(&pl, "extinction", "1/m", tg->encoding == BRM_ENCODING_F32 ? BRV_ENCODING_F32 : BRV_ENCODING_F16);
+    if (tg->relocate) {
+        /* Where relocated probes moved, in metres from their lattice point (f32: exact). */
+        brm_plan_channel(&pl, "offset.x", "m", BRV_ENCODING_F32);
+        brm_plan_channel(&pl, "offset.y", "m", BRV_ENCODING_F32);
+        brm_plan_channel(&pl, "offset.z", "m", BRV_ENCODING_F32);
+    }
+    c.channels = pl.channel_count;
+    pl.ctx = &c;
+    pl.unit_count = brm_grid_brick_count(g);
+    pl.bricks_per_unit = 1;
+    pl.compute = probe_unit;
+    pl.brick_of = brm_plan_brick_is_unit;
+    st = brm_run_plan(s, t, o, g, &pl, out_path, stats, d);
+    for (int i = 0; i < threads; i++) stats->rays += c.rays[i];
+done:
+    fog_free(&c.fog);
+    brm_solid_index_free(solid);
+    free(c.rays);
+    return st;
+}
