@@ -1,0 +1,500 @@
+/* Voxelization: surface cells by exact overlap tests, interior by component classification,
+ * occupancy fractions by sub-cell point classification. */
+#include "voxel/voxelize.h"
+
+#include <stdlib.h>
+#include <string.h>
+
+#include "base/threads.h"
+#include "voxel/bvh.h"
+
+/* ---- triangle / box overlap ------------------------------------------------------------ */
+
+/* Whether axis a separates the triangle (vertices relative to the box centre) from the box of
+ * half-size h: the triangle's projection [min p, max p] misses [−r, r], r = Σ h_j |a_j|. */
+static inline int separates(brm_vec3 a, const brm_vec3 v[3], brm_vec3 h)
+{
+    double p0 = brm_dot(a, v[0]), p1 = brm_dot(a, v[1]), p2 = brm_dot(a, v[2]);
+    double mn = p0 < p1 ? p0 : p1, mx = p0 > p1 ? p0 : p1;
+    if (p2 < mn) mn = p2;
+    if (p2 > mx) mx = p2;
+    double r = h.x * fabs(a.x) + h.y * fabs(a.y) + h.z * fabs(a.z);
+    return mn > r || mx < -r;
+}
+
+int brm_tri_box_overlap(brm_vec3 c, brm_vec3 h, const brm_vec3 u[3])
+{
+    /* Akenine-Möller, "Fast 3D Triangle-Box Overlap Testing", Journal of Graphics Tools, 2001:
+     * separating-axis test over the 3 box axes, the triangle normal and the 9 cross products of
+     * the triangle edges with the box axes. Strict inequalities: touching counts as overlap.
+     * A zero axis (degenerate edge or normal) projects everything to 0 and separates nothing. */
+    brm_vec3 v[3] = {brm_sub(u[0], c), brm_sub(u[1], c), brm_sub(u[2], c)};
+    /* Box axes first: the cheapest rejection, the triangle's bounds against the box. */
+    for (int a = 0; a < 3; a++) {
+        double p0 = brm_vget(v[0], a), p1 = brm_vget(v[1], a), p2 = brm_vget(v[2], a);
+        double mn = fmin(p0, fmin(p1, p2)), mx = fmax(p0, fmax(p1, p2)), r = brm_vget(h, a);
+        if (mn > r || mx < -r) return 0;
+    }
+    brm_vec3 f[3] = {brm_sub(v[1], v[0]), brm_sub(v[2], v[1]), brm_sub(v[0], v[2])};
+    if (separates(brm_cross(f[0], f[1]), v, h)) return 0;
+    static const brm_vec3 e[3] = {{1, 0, 0}, {0, 1, 0}, {0, 0, 1}};
+    for (int i = 0; i < 3; i++)
+        for (int j = 0; j < 3; j++)
+            if (separates(brm_cross(f[i], e[j]), v, h)) return 0;
+    return 1;
+}
+
+/* ---- points inside solids -------------------------------------------------------------- */
+
+/* Parity rays go along fixed directions off every axis and diagonal, so rays from lattice
+ * points rarely run along the edges of axis-aligned meshes; a hit near an edge or vertex casts
+ * again along the next direction (common practice, no source). */
+static const brm_vec3 parity_dirs[4] = {
+    {0.5773502691896257, 0.6154122094026356, 0.5366563145999494},
+    {-0.4082482904638630, 0.7453559924999299, -0.5270462766947299},
+    {0.8017837257372732, -0.2672612419124244, 0.5345224838248488},
+    {-0.2357022603955158, -0.4714045207910317, -0.8498365855987975},
+};
+
+static inline int in_primitive(const brm_object *o, brm_vec3 p)
+{
+    if (o->shape == BRM_SHAPE_BOX) return brm_aabb_contains(o->bounds, p);
+    if (o->shape == BRM_SHAPE_SPHERE) {
+        brm_vec3 d = brm_sub(p, o->center);
+        return brm_dot(d, d) <= o->radius * o->radius;
+    }
+    return 0;
+}
+
+static inline int is_closed_mesh(const brm_object *o) { return o->shape == BRM_SHAPE_MESH && o->closed; }
+
+int brm_point_in_solid(const brm_scene *s, brm_vec3 p)
+{
+    for (uint32_t i = 0; i < s->object_count; i++)
+        if (in_primitive(&s->objects[i], p)) return 1;
+    for (uint32_t i = 0; i < s->object_count; i++) {
+        const brm_object *o = &s->objects[i];
+        if (!is_closed_mesh(o) || !brm_aabb_contains(o->bounds, p)) continue;
+        int parity = 0;
+        for (int di = 0; di < 4; di++) {
+            int edge = 0;
+            parity = 0;
+            for (uint32_t t = o->first_tri; t < o->first_tri + o->tri_count; t++) {
+                double tt;
+                int ne = 0;
+                if (brm_ray_triangle(p, parity_dirs[di], s->tris[t].v, 0.0, HUGE_VAL, &tt, &ne)) {
+                    parity ^= 1;
+                    edge |= ne;
+                }
+            }
+            if (!edge) break;
+        }
+        if (parity) return 1;
+    }
+    return 0;
+}
+
+struct brm_solid_index {
+    const brm_scene *s;
+    brm_bvh *bvh;           /* closed meshes only; NULL when there are none */
+    brm_aabb mesh_bounds;   /* union of the closed meshes' bounds */
+    uint32_t *prims;        /* box and sphere objects */
+    uint32_t prim_count;
+    uint32_t object_count;
+};
+
+brm_status brm_solid_index_build(const brm_scene *s, brm_solid_index **out, brm_diag *d)
+{
+    brm_solid_index *x = calloc(1, sizeof *x);
+    uint8_t *mask = calloc(s->object_count ? s->object_count : 1, 1);
+    if (x) x->prims = calloc(s->object_count ? s->object_count : 1, sizeof *x->prims);
+    if (!x || !mask || !x->prims) {
+        if (x) free(x->prims);
+        free(x);
+        free(mask);
+        return brm_diag_error(d, BRM_E_NOMEM, "solid index: cannot allocate for %u objects", s->object_count);
+    }
+    x->s = s;
+    x->object_count = s->object_count;
+    x->mesh_bounds = brm_aabb_empty();
+    int meshes = 0;
+    for (uint32_t i = 0; i < s->object_count; i++) {
+        const brm_object *o = &s->objects[i];
+        if (o->shape == BRM_SHAPE_BOX || o->shape == BRM_SHAPE_SPHERE) x->prims[x->prim_count++] = i;
+        if (is_closed_mesh(o) && o->tri_count) {
+            mask[i] = 1;
+            meshes = 1;
+            brm_aabb_union(&x->mesh_bounds, o->bounds);
+        }
+    }
+    if (meshes) {
+        brm_status st = brm_bvh_build_subset(s, mask, &x->bvh, d);
+        if (st != BRM_OK) {
+            free(mask);
+            brm_solid_index_free(x);
+            return st;
+        }
+    }
+    free(mask);
+    *out = x;
+    return BRM_OK;
+}
+
+void brm_solid_index_free(brm_solid_index *x)
+{
+    if (!x) return;
+    brm_bvh_free(x->bvh);
+    free(x->prims);
+    free(x);
+}
+
+typedef struct parity_ctx {
+    uint8_t *bits;      /* one parity bit per object */
+    int edge;
+} parity_ctx;
+
+static void parity_visit(void *ctx, const brm_hit *h, int near_edge)
+{
+    parity_ctx *c = ctx;
+    c->bits[h->object >> 3] ^= (uint8_t)(1u << (h->object & 7));
+    c->edge |= near_edge;
+}
+
+/* Whether p is inside any closed mesh: per-object parity of crossings along a ray. */
+static int in_closed_mesh(const brm_solid_index *x, brm_vec3 p)
+{
+    if (!x->bvh || !brm_aabb_contains(x->mesh_bounds, p)) return 0;
+    size_t nb = (x->object_count + 7) / 8;
+    uint8_t local[256];
+    uint8_t *bits = nb <= sizeof local ? local : malloc(nb);
+    if (!bits) return 0;
+    int inside = 0;
+    for (int di = 0; di < 4; di++) {
+        memset(bits, 0, nb);
+        parity_ctx c = {bits, 0};
+        brm_bvh_all_hits(x->bvh, p, parity_dirs[di], 0.0, HUGE_VAL, parity_visit, &c);
+        inside = 0;
+        for (size_t i = 0; i < nb; i++) inside |= bits[i] != 0;
+        if (!c.edge) break;
+    }
+    if (bits != local) free(bits);
+    return inside;
+}
+
+int brm_solid_index_query(const brm_solid_index *x, brm_vec3 p)
+{
+    for (uint32_t i = 0; i < x->prim_count; i++)
+        if (in_primitive(&x->s->objects[x->prims[i]], p)) return 1;
+    return in_closed_mesh(x, p);
+}
+
+/* ---- the voxelizer --------------------------------------------------------------------- */
+
+enum { CELL_DONE_EMPTY = 3 };   /* flood fill: an empty component already classified as free */
+
+typedef struct vox {
+    const brm_scene *s;
+    const brm_grid *g;
+    const brm_solid_index *solid;
+    uint8_t *state;
+    float *fraction;
+    /* per z-slice lists of triangles (CSR) */
+    uint32_t *slice_start;
+    uint32_t *slice_tris;
+} vox;
+
+static brm_aabb cell_box(const brm_grid *g, uint32_t i, uint32_t j, uint32_t k)
+{
+    return brm_grid_cell_bounds(g, i, j, k);
+}
+
+/* Cell index range [lo, hi] on axis a that a world interval [x0, x1] may touch, widened by one
+ * so a shape touching a cell boundary reaches the cell on the other side (the exact test
+ * decides). Returns 0 when it misses the grid. */
+static int axis_range(const brm_grid *g, int a, double x0, double x1, uint32_t *lo, uint32_t *hi)
+{
+    double m = brm_vget(g->box.min, a), c = brm_vget(g->cell, a);
+    double f0 = floor((x0 - m) / c) - 1, f1 = floor((x1 - m) / c) + 1;
+    double n = g->n[a];
+    if (f1 < 0 || f0 > n - 1 || f0 != f0 || f1 != f1) return 0;
+    *lo = f0 < 0 ? 0 : (uint32_t)f0;
+    *hi = f1 > n - 1 ? g->n[a] - 1 : (uint32_t)f1;
+    return 1;
+}
+
+static inline void raise_state(uint8_t *s, uint8_t v)
+{
+    if (*s < v) *s = v;
+}
+
+/* Surface pass for one z-slice: triangles of meshes, then exact boxes and spheres. */
+static void surface_slice(void *ctx, uint32_t k, int worker)
+{
+    (void)worker;
+    vox *v = ctx;
+    const brm_grid *g = v->g;
+    const brm_scene *s = v->s;
+    for (uint32_t q = v->slice_start[k]; q < v->slice_start[k + 1]; q++) {
+        const brm_tri *t = &s->tris[v->slice_tris[q]];
+        brm_vec3 lo = brm_vmin(t->v[0], brm_vmin(t->v[1], t->v[2]));
+        brm_vec3 hi = brm_vmax(t->v[0], brm_vmax(t->v[1], t->v[2]));
+        uint32_t i0, i1, j0, j1;
+        if (!axis_range(g, 0, lo.x, hi.x, &i0, &i1) || !axis_range(g, 1, lo.y, hi.y, &j0, &j1)) continue;
+        for (uint32_t j = j0; j <= j1; j++) {
+            for (uint32_t i = i0; i <= i1; i++) {
+                uint8_t *st = &v->state[brm_grid_index(g, i, j, k)];
+                if (*st != BRM_CELL_EMPTY) continue;
+                brm_aabb b = cell_box(g, i, j, k);
+                brm_vec3 c = brm_scale(brm_add(b.min, b.max), 0.5), h = brm_scale(brm_sub(b.max, b.min), 0.5);
+                if (brm_tri_box_overlap(c, h, t->v)) *st = BRM_CELL_SURFACE;
+            }
+        }
+    }
+    for (uint32_t oi = 0; oi < s->object_count; oi++) {
+        const brm_object *o = &s->objects[oi];
+        if (o->shape != BRM_SHAPE_BOX && o->shape != BRM_SHAPE_SPHERE) continue;
+        uint32_t i0, i1, j0, j1, k0, k1;
+        if (!axis_range(g, 2, o->bounds.min.z, o->bounds.max.z, &k0, &k1) || k < k0 || k > k1) continue;
+        if (!axis_range(g, 0, o->bounds.min.x, o->bounds.max.x, &i0, &i1) ||
+            !axis_range(g, 1, o->bounds.min.y, o->bounds.max.y, &j0, &j1))
+            continue;
+        for (uint32_t j = j0; j <= j1; j++) {
+            for (uint32_t i = i0; i <= i1; i++) {
+                uint8_t *st = &v->state[brm_grid_index(g, i, j, k)];
+                if (*st == BRM_CELL_INTERIOR) continue;
+                brm_aabb b = cell_box(g, i, j, k);
+                if (o->shape == BRM_SHAPE_BOX) {
+                    /* Exact: the boundary crosses the cell iff they share volume and the cell is
+                     * not wholly inside. Sharing only a face is no overlap. */
+                    brm_aabb x = o->bounds;
+                    int overlap = b.min.x < x.max.x && b.max.x > x.min.x && b.min.y < x.max.y &&
+                                  b.max.y > x.min.y && b.min.z < x.max.z && b.max.z > x.min.z;
+                    if (!overlap) continue;
+                    int inside = b.min.x >= x.min.x && b.max.x <= x.max.x && b.min.y >= x.min.y &&
+                                 b.max.y <= x.max.y && b.min.z >= x.min.z && b.max.z <= x.max.z;
+                    raise_state(st, inside ? BRM_CELL_INTERIOR : BRM_CELL_SURFACE);
+                } else {
+                    /* Exact: nearest point of the cell inside the ball → they meet; farthest
+                     * corner inside → the cell is wholly inside. Touching at one point is no
+                     * overlap. */
+                    brm_vec3 c = o->center;
+                    double r2 = o->radius * o->radius, dn = 0, df = 0;
+                    for (int a = 0; a < 3; a++) {
+                        double lo_a = brm_vget(b.min, a), hi_a = brm_vget(b.max, a), ca = brm_vget(c, a);
+                        double nearest = ca < lo_a ? lo_a - ca : ca > hi_a ? ca - hi_a : 0.0;
+                        double farthest = fmax(fabs(ca - lo_a), fabs(ca - hi_a));
+                        dn += nearest * nearest;
+                        df += farthest * farthest;
+                    }
+                    if (!(dn < r2)) continue;
+                    raise_state(st, df <= r2 ? BRM_CELL_INTERIOR : BRM_CELL_SURFACE);
+                }
+            }
+        }
+    }
+}
+
+/* Occupancy fraction of the surface cells of one z-slice. */
+static void fraction_slice(void *ctx, uint32_t k, int worker)
+{
+    (void)worker;
+    vox *v = ctx;
+    const brm_grid *g = v->g;
+    const brm_scene *s = v->s;
+    const brm_solid_index *x = v->solid;
+    uint32_t *near = malloc(sizeof *near * (x->prim_count ? x->prim_count : 1));
+    for (uint32_t j = 0; j < g->n[1]; j++) {
+        for (uint32_t i = 0; i < g->n[0]; i++) {
+            size_t idx = brm_grid_index(g, i, j, k);
+            uint8_t st = v->state[idx];
+            if (st != BRM_CELL_SURFACE) {
+                v->fraction[idx] = st == BRM_CELL_INTERIOR ? 1.0f : 0.0f;
+                continue;
+            }
+            brm_aabb b = cell_box(g, i, j, k);
+            /* Only the solids whose bounds meet the cell can hold its points. */
+            uint32_t nn = 0;
+            if (near)
+                for (uint32_t q = 0; q < x->prim_count; q++)
+                    if (brm_aabb_overlaps(s->objects[x->prims[q]].bounds, b)) near[nn++] = x->prims[q];
+            int meshes = x->bvh && brm_aabb_overlaps(x->mesh_bounds, b);
+            if (nn == 0 && !meshes) {
+                v->fraction[idx] = 0.0f;
+                continue;
+            }
+            brm_vec3 size = brm_sub(b.max, b.min);
+            int count = 0;
+            for (int c = 0; c < BRM_OCC_SUB; c++)
+                for (int bb = 0; bb < BRM_OCC_SUB; bb++)
+                    for (int a = 0; a < BRM_OCC_SUB; a++) {
+                        brm_vec3 p = brm_add(b.min, brm_mul(size, brm_v3((a + 0.5) / BRM_OCC_SUB,
+                                                                         (bb + 0.5) / BRM_OCC_SUB,
+                                                                         (c + 0.5) / BRM_OCC_SUB)));
+                        int in = 0;
+                        for (uint32_t q = 0; q < nn && !in; q++) in = in_primitive(&s->objects[near[q]], p);
+                        if (!in && !near && x->prim_count) in = brm_solid_index_query(x, p);
+                        if (!in && meshes) in = in_closed_mesh(x, p);
+                        count += in;
+                    }
+            v->fraction[idx] = (float)count / (BRM_OCC_SUB * BRM_OCC_SUB * BRM_OCC_SUB);
+        }
+    }
+    free(near);
+}
+
+/* Labels the 6-connected component of empty cells holding `seed` with `label`. Iterative, with
+ * a growable stack of cell indices (each cell is pushed once: it is relabelled when pushed). */
+static brm_status fill_component(const brm_grid *g, uint8_t *state, size_t seed, uint8_t label,
+                                 uint32_t **stack, size_t *cap, brm_diag *d)
+{
+    size_t nx = g->n[0], ny = g->n[1], nz = g->n[2], sxy = nx * ny;
+    size_t sp = 0;
+    state[seed] = label;
+    (*stack)[sp++] = (uint32_t)seed;
+    while (sp) {
+        size_t c = (*stack)[--sp];
+        size_t i = c % nx, j = (c / nx) % ny, k = c / sxy;
+        size_t nb[6];
+        int m = 0;
+        if (i > 0) nb[m++] = c - 1;
+        if (i + 1 < nx) nb[m++] = c + 1;
+        if (j > 0) nb[m++] = c - nx;
+        if (j + 1 < ny) nb[m++] = c + nx;
+        if (k > 0) nb[m++] = c - sxy;
+        if (k + 1 < nz) nb[m++] = c + sxy;
+        for (int q = 0; q < m; q++) {
+            if (state[nb[q]] != BRM_CELL_EMPTY) continue;
+            if (sp + 1 > *cap) {
+                size_t nc = *cap * 2;
+                uint32_t *ns = realloc(*stack, nc * sizeof *ns);
+                if (!ns) return brm_diag_error(d, BRM_E_NOMEM, "voxelizer: cannot grow the fill stack to %zu", nc);
+                *stack = ns;
+                *cap = nc;
+            }
+            state[nb[q]] = label;
+            (*stack)[sp++] = (uint32_t)nb[q];
+        }
+    }
+    return BRM_OK;
+}
+
+size_t brm_voxelize_memory(const brm_grid *g)
+{
+    /* state + fraction per cell, plus the fill stack, which holds at most one index per cell
+     * (usually far fewer: the stack grows only as needed). */
+    return brm_grid_cells(g) * (sizeof(uint8_t) + sizeof(float) + sizeof(uint32_t));
+}
+
+void brm_occupancy_free(brm_occupancy *o)
+{
+    if (!o) return;
+    free(o->state);
+    free(o->fraction);
+    o->state = NULL;
+    o->fraction = NULL;
+}
+
+static brm_status voxelize_world(const brm_scene *s, const brm_grid *g, int threads, brm_occupancy *out,
+                                 brm_diag *d)
+{
+    size_t cells = brm_grid_cells(g), fbytes;
+    BRM_CHECK(d, cells <= UINT32_MAX && brm_mul_size(cells, sizeof(float), &fbytes), BRM_E_BUDGET,
+              "voxelizer: %zu cells, at most %u supported", cells, UINT32_MAX);
+    vox v;
+    memset(&v, 0, sizeof v);
+    v.s = s;
+    v.g = g;
+    brm_status st = BRM_OK;
+    brm_solid_index *solid = NULL;
+    uint32_t *stack = NULL;
+    v.state = calloc(cells, 1);
+    v.fraction = malloc(fbytes);
+    v.slice_start = calloc((size_t)g->n[2] + 1, sizeof *v.slice_start);
+    if (!v.state || !v.fraction || !v.slice_start) {
+        st = brm_diag_error(d, BRM_E_NOMEM, "voxelizer: cannot allocate %zu cells", cells);
+        goto fail;
+    }
+    if ((st = brm_solid_index_build(s, &solid, d)) != BRM_OK) goto fail;
+    v.solid = solid;
+
+    /* Triangles per z-slice (boxes are done analytically: skip their triangles). */
+    uint64_t total = 0;
+    for (int pass = 0; pass < 2; pass++) {
+        for (uint32_t t = 0; t < s->tri_count; t++) {
+            const brm_tri *tr = &s->tris[t];
+            if (s->objects[tr->object].shape == BRM_SHAPE_BOX) continue;
+            double z0 = fmin(tr->v[0].z, fmin(tr->v[1].z, tr->v[2].z));
+            double z1 = fmax(tr->v[0].z, fmax(tr->v[1].z, tr->v[2].z));
+            uint32_t k0, k1;
+            if (!axis_range(g, 2, z0, z1, &k0, &k1)) continue;
+            for (uint32_t k = k0; k <= k1; k++) {
+                if (pass == 0) v.slice_start[k + 1]++;
+                else v.slice_tris[v.slice_start[k]++] = t;
+            }
+            if (pass == 0) total += k1 - k0 + 1;
+        }
+        if (pass == 0) {
+            if (total > UINT32_MAX) {
+                st = brm_diag_error(d, BRM_E_BUDGET, "voxelizer: %llu triangle-slice pairs, too many",
+                                    (unsigned long long)total);
+                goto fail;
+            }
+            for (uint32_t k = 0; k < g->n[2]; k++) v.slice_start[k + 1] += v.slice_start[k];
+            v.slice_tris = malloc(sizeof *v.slice_tris * (total ? total : 1));
+            if (!v.slice_tris) {
+                st = brm_diag_error(d, BRM_E_NOMEM, "voxelizer: cannot allocate the slice lists");
+                goto fail;
+            }
+        }
+    }
+    /* The fill pass advanced each start to the next slice's start: shift back. */
+    for (uint32_t k = g->n[2]; k > 0; k--) v.slice_start[k] = v.slice_start[k - 1];
+    v.slice_start[0] = 0;
+
+    brm_parallel_for(g->n[2], threads, surface_slice, &v, NULL);
+
+    /* Empty components: one query at the first cell of each decides the whole component. */
+    size_t cap = 1u << 16;
+    stack = malloc(cap * sizeof *stack);
+    if (!stack) {
+        st = brm_diag_error(d, BRM_E_NOMEM, "voxelizer: cannot allocate the fill stack");
+        goto fail;
+    }
+    for (size_t c = 0; c < cells; c++) {
+        if (v.state[c] != BRM_CELL_EMPTY) continue;
+        uint32_t i = (uint32_t)(c % g->n[0]), j = (uint32_t)((c / g->n[0]) % g->n[1]);
+        uint32_t k = (uint32_t)(c / ((size_t)g->n[0] * g->n[1]));
+        brm_vec3 centre = brm_grid_point(g, i + 0.5, j + 0.5, k + 0.5);
+        uint8_t label = brm_solid_index_query(solid, centre) ? BRM_CELL_INTERIOR : CELL_DONE_EMPTY;
+        if ((st = fill_component(g, v.state, c, label, &stack, &cap, d)) != BRM_OK) goto fail;
+    }
+    for (size_t c = 0; c < cells; c++)
+        if (v.state[c] == CELL_DONE_EMPTY) v.state[c] = BRM_CELL_EMPTY;
+
+    brm_parallel_for(g->n[2], threads, fraction_slice, &v, NULL);
+
+    free(stack);
+    free(v.slice_start);
+    free(v.slice_tris);
+    brm_solid_index_free(solid);
+    memcpy(out->n, g->n, sizeof out->n);
+    out->state = v.state;
+    out->fraction = v.fraction;
+    return BRM_OK;
+fail:
+    free(stack);
+    free(v.state);
+    free(v.fraction);
+    free(v.slice_start);
+    free(v.slice_tris);
+    brm_solid_index_free(solid);
+    return st;
+}
+
+brm_status brm_voxelize(const brm_scene *s, const brm_grid *g, int threads, brm_occupancy *out, brm_diag *d)
+{
+    if (g->kind == BRM_GRID_WORLD) return voxelize_world(s, g, threads, out, d);
+    return brm_diag_error(d, BRM_E_INTERNAL,
+                          "voxelizer: grid kind %d is not voxelized yet (world grids only in this version)",
+                          (int)g->kind);
+}
