@@ -236,8 +236,10 @@ static void surface_slice(void *ctx, uint32_t k, int worker)
     const brm_scene *s = v->s;
     for (uint32_t q = v->slice_start[k]; q < v->slice_start[k + 1]; q++) {
         const brm_tri *t = &s->tris[v->slice_tris[q]];
-        brm_vec3 lo = brm_vmin(t->v[0], brm_vmin(t->v[1], t->v[2]));
-        brm_vec3 hi = brm_vmax(t->v[0], brm_vmax(t->v[1], t->v[2]));
+        /* A local copy: gcc 12 with sanitizers misjudges the size behind t->v (stringop-overread). */
+        const brm_vec3 tv[3] = {t->v[0], t->v[1], t->v[2]};
+        brm_vec3 lo = brm_vmin(tv[0], brm_vmin(tv[1], tv[2]));
+        brm_vec3 hi = brm_vmax(tv[0], brm_vmax(tv[1], tv[2]));
         uint32_t i0, i1, j0, j1;
         if (!axis_range(g, 0, lo.x, hi.x, &i0, &i1) || !axis_range(g, 1, lo.y, hi.y, &j0, &j1)) continue;
         for (uint32_t j = j0; j <= j1; j++) {
@@ -246,7 +248,7 @@ static void surface_slice(void *ctx, uint32_t k, int worker)
                 if (*st != BRM_CELL_EMPTY) continue;
                 brm_aabb b = cell_box(g, i, j, k);
                 brm_vec3 c = brm_scale(brm_add(b.min, b.max), 0.5), h = brm_scale(brm_sub(b.max, b.min), 0.5);
-                if (brm_tri_box_overlap(c, h, t->v)) *st = BRM_CELL_SURFACE;
+                if (brm_tri_box_overlap(c, h, tv)) *st = BRM_CELL_SURFACE;
             }
         }
     }
