@@ -38,6 +38,14 @@ double brm_shadow_transmittance(const brm_shadow_set *ss, uint32_t l, brm_vec3 p
 /* Texel size (m) of light l's map near p; 0 for lights without a map (for warnings). */
 double brm_shadow_texel_size(const brm_shadow_set *ss, uint32_t l);
 
+/* The reference transmittance (a fine composite-Simpson march to the light or the fog-bounds
+ * exit), whatever opts.reference says: what the fast path is checked against. */
+double brm_shadow_transmittance_march(const brm_shadow_set *ss, uint32_t l, brm_vec3 p);
+
+/* Wall-clock seconds brm_shadows_build took, and the bytes it allocated (reports, benches). */
+double brm_shadows_build_seconds(const brm_shadow_set *ss);
+size_t brm_shadows_bytes(const brm_shadow_set *ss);
+
 /* ---- sky ---------------------------------------------------------------------------- */
 
 /* Sky light reaching p, blocked by all the scene's geometry (not dimmed by fog: an ambient

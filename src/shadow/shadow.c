@@ -1,0 +1,248 @@
+/* The shadow set: plans and builds every light's depth maps and optical-depth grids for one
+ * target, and answers the per-sample questions of the lighting kernel (shadow.h). */
+#include <math.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "base/threads.h"
+#include "scene/media.h"
+#include "shadow/shadow_internal.h"
+
+/* Rows of a depth map one work item rasterizes: small enough to share a single map between
+ * threads, large enough that walking the triangle list per band stays cheap. */
+#define RASTER_BAND 64u
+
+static double scene_scale(const brm_scene *s, const brm_shadow_opts *o)
+{
+    brm_aabb b = o->bounds;
+    if (s->fog_bounds.min.x <= s->fog_bounds.max.x) brm_aabb_union(&b, s->fog_bounds);
+    for (uint32_t k = 0; k < s->object_count; k++) brm_aabb_union(&b, s->objects[k].bounds);
+    double d = brm_len(brm_sub(b.max, b.min));
+    return isfinite(d) && d > 0.0 ? d : 1.0;
+}
+
+static bool needs_bvh(const brm_scene *s, const brm_shadow_opts *o)
+{
+    return s->object_count > 0 && (o->reference || s->sky.present);
+}
+
+/* Plans every light; returns the bytes the maps and grids need. */
+static size_t plan_all(const brm_scene *s, const brm_shadow_opts *o, const media_info *mi, light_shadow *ls)
+{
+    size_t bytes = 0;
+    for (uint32_t l = 0; l < s->light_count; l++) {
+        brm_shadowmap_plan(s, o, &ls[l], &s->lights[l]);
+        if (o->reference) { /* rays and marches: no maps, no grids */
+            ls[l].has_map = false;
+            ls[l].has_od = false;
+            continue;
+        }
+        if (ls[l].has_map)
+            bytes += (size_t)ls[l].view_count * ls[l].views[0].res * ls[l].views[0].res * sizeof(float);
+        bytes += brm_od_plan(s, o, mi, &ls[l], &s->lights[l]);
+    }
+    return bytes;
+}
+
+size_t brm_shadows_memory(const brm_scene *s, const brm_shadow_opts *o)
+{
+    media_info mi;
+    brm_media_info_init(s, &mi);
+    size_t bytes = sizeof(brm_shadow_set);
+    if (s->light_count) {
+        light_shadow *ls = calloc(s->light_count, sizeof *ls);
+        if (!ls) return (size_t)-1;
+        bytes += s->light_count * sizeof *ls + plan_all(s, o, &mi, ls);
+        free(ls);
+    }
+    if (needs_bvh(s, o) && !o->bvh) bytes += brm_bvh_memory(s);
+    return bytes;
+}
+
+typedef struct build_item {
+    uint32_t light, view, row;
+} build_item;
+
+typedef struct build_ctx {
+    brm_shadow_set *ss;
+    build_item *items;
+} build_ctx;
+
+static void raster_item(void *ctx, uint32_t item, int worker)
+{
+    (void)worker;
+    build_ctx *c = ctx;
+    build_item *it = &c->items[item];
+    shadow_view *v = &c->ss->lights[it->light].views[it->view];
+    uint32_t r1 = it->row + RASTER_BAND < v->res ? it->row + RASTER_BAND : v->res;
+    brm_shadowmap_raster_rows(c->ss->scene, v, it->row, r1);
+}
+
+static void od_item(void *ctx, uint32_t item, int worker)
+{
+    (void)worker;
+    build_ctx *c = ctx;
+    build_item *it = &c->items[item];
+    brm_od_fill_row(c->ss->scene, &c->ss->media, &c->ss->lights[it->light].views[it->view], it->row);
+}
+
+brm_status brm_shadows_build(const brm_scene *s, const brm_shadow_opts *o, brm_shadow_set **out, brm_diag *d)
+{
+    BRM_CHECK(d, s && o && out, BRM_E_INTERNAL, "shadows: missing scene, options or output");
+    double t_start = brm_now();
+    brm_shadow_set *ss = calloc(1, sizeof *ss);
+    BRM_CHECK(d, ss, BRM_E_NOMEM, "shadows: out of memory");
+    ss->scene = s;
+    ss->opts = *o;
+    brm_media_info_init(s, &ss->media);
+    double scale = scene_scale(s, o);
+    ss->eps = 1e-7 * scale;
+    double step = fmin(o->cell_size > 0.0 ? o->cell_size : HUGE_VAL, ss->media.feature);
+    ss->ref_step = (isfinite(step) ? step : scale / 64.0) / 4.0;
+    ss->light_count = s->light_count;
+    brm_status st = BRM_OK;
+    build_item *items = NULL;
+    if (s->light_count) {
+        ss->lights = calloc(s->light_count, sizeof *ss->lights);
+        if (!ss->lights) {
+            st = brm_diag_error(d, BRM_E_NOMEM, "shadows: out of memory");
+            goto fail;
+        }
+    }
+    ss->bytes = sizeof *ss + s->light_count * sizeof *ss->lights + plan_all(s, o, &ss->media, ss->lights);
+
+    /* Allocate, and list the work: depth-map bands, then optical-depth rows. */
+    uint32_t n_raster = 0, n_od = 0;
+    for (uint32_t l = 0; l < s->light_count; l++) {
+        light_shadow *ls = &ss->lights[l];
+        for (uint32_t k = 0; k < ls->view_count; k++) {
+            shadow_view *v = &ls->views[k];
+            if (ls->has_map) {
+                v->depth = malloc((size_t)v->res * v->res * sizeof(float));
+                n_raster += (v->res + RASTER_BAND - 1) / RASTER_BAND;
+            }
+            if (ls->has_od) {
+                v->od = malloc((size_t)v->og_n[0] * v->og_n[1] * v->og_n[2] * 2 * sizeof(float));
+                n_od += v->og_n[1];
+            }
+            if ((ls->has_map && !v->depth) || (ls->has_od && !v->od)) {
+                st = brm_diag_error(d, BRM_E_NOMEM, "shadows: out of memory for %s's maps (%zu bytes planned)",
+                                    s->lights[l].json_path, ss->bytes);
+                goto fail;
+            }
+        }
+    }
+    items = calloc((size_t)n_raster + n_od + 1, sizeof *items);
+    if (!items) {
+        st = brm_diag_error(d, BRM_E_NOMEM, "shadows: out of memory");
+        goto fail;
+    }
+    uint32_t ni = 0;
+    for (uint32_t l = 0; l < s->light_count; l++)
+        for (uint32_t k = 0; k < ss->lights[l].view_count; k++)
+            if (ss->lights[l].has_map)
+                for (uint32_t r = 0; r < ss->lights[l].views[k].res; r += RASTER_BAND) items[ni++] = (build_item){l, k, r};
+    for (uint32_t l = 0; l < s->light_count; l++)
+        for (uint32_t k = 0; k < ss->lights[l].view_count; k++)
+            if (ss->lights[l].has_od)
+                for (uint32_t r = 0; r < ss->lights[l].views[k].og_n[1]; r++) items[ni++] = (build_item){l, k, r};
+
+    build_ctx ctx = {ss, items};
+    int threads = o->threads > 0 ? o->threads : 1;
+    if (brm_parallel_for(n_raster, threads, raster_item, &ctx, &brm_interrupted) != n_raster ||
+        brm_parallel_for(n_od, threads, od_item, &(build_ctx){ss, items + n_raster}, &brm_interrupted) != n_od) {
+        st = brm_diag_error(d, BRM_E_INTERRUPTED, "shadows: interrupted while building the light maps");
+        goto fail;
+    }
+    free(items);
+    items = NULL;
+
+    /* Sky. */
+    ss->sky_present = s->sky.present;
+    brm_sky_projection(&s->sky, ss->sky_proj);
+    ss->sky_trace = s->sky.present && s->object_count > 0;
+    ss->sky_rays = o->reference ? BRM_SKY_RAYS_REFERENCE : BRM_SKY_RAYS;
+
+    ss->bvh = o->bvh;
+    if (needs_bvh(s, o) && !ss->bvh) {
+        st = brm_bvh_build(s, &ss->own_bvh, d);
+        if (st != BRM_OK) goto fail;
+        ss->bvh = ss->own_bvh;
+        ss->bytes += brm_bvh_memory(s);
+    }
+    ss->build_seconds = brm_now() - t_start;
+    *out = ss;
+    return BRM_OK;
+
+fail:
+    free(items);
+    brm_shadows_free(ss);
+    return st;
+}
+
+void brm_shadows_free(brm_shadow_set *ss)
+{
+    if (!ss) return;
+    for (uint32_t l = 0; l < ss->light_count && ss->lights; l++)
+        for (uint32_t k = 0; k < 6; k++) {
+            free(ss->lights[l].views[k].depth);
+            free(ss->lights[l].views[k].od);
+        }
+    free(ss->lights);
+    brm_bvh_free(ss->own_bvh);
+    free(ss);
+}
+
+double brm_shadows_build_seconds(const brm_shadow_set *ss) { return ss->build_seconds; }
+size_t brm_shadows_bytes(const brm_shadow_set *ss) { return ss->bytes; }
+
+/* Unit direction from p toward light l and the distance to it (HUGE_VAL for directional). */
+static brm_vec3 toward(const brm_light *l, brm_vec3 p, double *dist)
+{
+    if (l->type == BRM_LIGHT_DIRECTIONAL) {
+        *dist = HUGE_VAL;
+        return brm_scale(brm_norm(l->direction), -1.0);
+    }
+    brm_vec3 t = brm_sub(l->position, p);
+    *dist = brm_len(t);
+    return *dist > 0.0 ? brm_scale(t, 1.0 / *dist) : brm_v3(0, 1, 0);
+}
+
+double brm_shadow_visibility(const brm_shadow_set *ss, uint32_t l, brm_vec3 p)
+{
+    const brm_light *light = &ss->scene->lights[l];
+    if (!light->shadow || ss->scene->object_count == 0) return 1.0;
+    if (ss->opts.reference) {
+        double dist;
+        brm_vec3 dir = toward(light, p, &dist);
+        double tmax = isfinite(dist) ? dist - ss->eps : HUGE_VAL;
+        return brm_bvh_occluded(ss->bvh, p, dir, ss->eps, tmax) ? 0.0 : 1.0;
+    }
+    const light_shadow *ls = &ss->lights[l];
+    if (!ls->has_map) return 1.0;
+    return brm_shadowmap_pcf(brm_shadow_pick_view(ls, p), p, ls->softness);
+}
+
+/* Reference: composite Simpson from p toward the light, to the light or the fog-bounds exit. */
+double brm_shadow_transmittance_march(const brm_shadow_set *ss, uint32_t l, brm_vec3 p)
+{
+    if (!ss->media.any) return 1.0;
+    double dist;
+    brm_vec3 dir = toward(&ss->scene->lights[l], p, &dist);
+    return exp(-brm_optical_depth_segment(ss->scene, &ss->media, p, dir, 0.0, dist, ss->ref_step));
+}
+
+double brm_shadow_transmittance(const brm_shadow_set *ss, uint32_t l, brm_vec3 p)
+{
+    if (!ss->media.any) return 1.0;
+    const light_shadow *ls = &ss->lights[l];
+    double tau;
+    if (ls->has_od && brm_od_lookup(brm_shadow_pick_view(ls, p), p, &tau)) return exp(-tau);
+    return brm_shadow_transmittance_march(ss, l, p);
+}
+
+double brm_shadow_texel_size(const brm_shadow_set *ss, uint32_t l)
+{
+    const light_shadow *ls = &ss->lights[l];
+    return ls->has_map ? ls->texel_size : 0.0;
+}

@@ -1,0 +1,123 @@
+/* Private to src/shadow: the per-light views (one orthographic or perspective projection each),
+ * their depth maps and optical-depth grids, and the media summary the integrators use.
+ * Tests include it to check the pieces one by one. */
+#ifndef BRM_SHADOW_INTERNAL_H
+#define BRM_SHADOW_INTERNAL_H
+
+#include <stddef.h>
+
+#include "shadow/shadow.h"
+
+/* Automatic shadow-map resolution never exceeds this many texels per side (per cube face): a
+ * 4096² float map is 64 MiB. A target whose cells are finer than its extent / 4096 gets texels
+ * larger than a cell (common practice, no source: the cap keeps memory bounded). */
+#define BRM_SHADOW_AUTO_MAX 4096u
+#define BRM_SHADOW_MIN_RES 16u
+#define BRM_SHADOW_MAX_RES 16384u
+/* Nodes per optical-depth grid (all faces of one light together): 2 floats each, 16 MiB. */
+#define BRM_OD_MAX_NODES (1u << 21)
+/* Spots wider than this (outer half-angle, degrees) use six cube faces instead of one
+ * perspective map, whose texels would stretch too much toward the rim. */
+#define BRM_SPOT_CUBE_DEG 60.0
+/* Sky rays per brm_sky_incident call: fast path and reference. */
+#define BRM_SKY_RAYS 8u
+#define BRM_SKY_RAYS_REFERENCE 32u
+
+typedef enum shadow_view_kind {
+    BRM_VIEW_ORTHO = 0,     /* directional: x = u·p, y = v·p, depth = f·p */
+    BRM_VIEW_PERSP          /* spot, cube face: tan coordinates (u·d/f·d, v·d/f·d), d = p − origin */
+} shadow_view_kind;
+
+/* One projection of one light, with its optional depth map and optical-depth grid. */
+typedef struct shadow_view {
+    shadow_view_kind kind;
+    brm_vec3 origin;            /* persp: the light position; ortho: world origin */
+    brm_vec3 u, v, f;           /* right-handed orthonormal basis, f the way light travels */
+
+    /* depth map: texel (i, j) covers lateral [lo + i·texel, lo + (i+1)·texel) */
+    uint32_t res;               /* texels per side, 0 = no map */
+    double lo[2];               /* ortho: metres; persp: tan units */
+    double texel;               /* ortho: metres per texel; persp: tan units per texel */
+    double z_near;              /* ortho: depth of the near plane (f·p); persp: clip distance */
+    float *depth;               /* res², first occluder depth plus bias: ortho f·p − z_near,
+                                   persp view depth f·d; +inf where nothing is */
+
+    /* optical-depth grid: node (i, j, k) at lateral og_lo + (i, j)·og_step, depth param
+     * og_lo[2] + k·og_step[2] (ortho: f·p; persp: distance from the light) */
+    uint32_t og_n[3];           /* nodes per axis, 0 = no grid */
+    double og_lo[3], og_step[3];
+    float *od;                  /* 2 floats per node (tau, sigma_t), k fastest, then i, then j */
+} shadow_view;
+
+typedef struct light_shadow {
+    bool active;                /* the light reaches the target */
+    bool has_map;               /* shadows on and there is geometry */
+    bool has_od;                /* media present */
+    bool cube;                  /* six faces (point lights, wide spots) */
+    uint32_t view_count;
+    double softness;            /* PCF radius in texels */
+    double texel_size;          /* world size of a texel near the target (m) */
+    shadow_view views[6];
+} light_shadow;
+
+/* What the optical-depth integrators need to know about the media. */
+typedef struct media_info {
+    bool any;                   /* some medium can be non-zero inside the fog bounds */
+    bool only_uniform;
+    double feature;             /* smallest length over which sigma_t varies smoothly (m), HUGE_VAL
+                                   when it is piecewise constant: the march step follows it */
+    double feature_lateral;     /* the same for how fast optical depth varies across paths: the
+                                   finest noise octaves average out along a path, so only the
+                                   coarser ones count (optical-depth grid spacing) */
+    uint32_t box_count;         /* places where sigma_t has a kink or a jump: box faces */
+    brm_aabb boxes[2 * BRM_MAX_MEDIA];
+    uint32_t plane_count;       /* and horizontal planes (height fog's base) */
+    double plane_y[BRM_MAX_MEDIA];
+} media_info;
+
+struct brm_shadow_set {
+    const brm_scene *scene;
+    brm_shadow_opts opts;
+    brm_bvh *own_bvh;           /* built here when the caller gave none and one is needed */
+    const brm_bvh *bvh;
+    media_info media;
+    double ref_step;            /* reference march step (m) */
+    double eps;                 /* ray offset (m) */
+    light_shadow *lights;
+    uint32_t light_count;
+    bool sky_present, sky_trace;
+    uint32_t sky_rays;
+    double sky_proj[3][4];      /* unoccluded sky, bands 0–1 */
+    size_t bytes;
+    double build_seconds;
+};
+
+/* ---- media integration (optical_depth.c) ---- */
+void brm_media_info_init(const brm_scene *s, media_info *mi);
+/* ∫ sigma_t over p + t·d, t in [t0, t1], d unit: composite Simpson with panels ≤ h, split at
+ * the fog bounds and at every box face and base plane the path crosses. */
+double brm_optical_depth_segment(const brm_scene *s, const media_info *mi, brm_vec3 p, brm_vec3 d, double t0,
+                                 double t1, double h);
+/* Plans a light's optical-depth grids (dimensions only), sets has_od. Returns bytes. */
+size_t brm_od_plan(const brm_scene *s, const brm_shadow_opts *o, const media_info *mi, light_shadow *ls,
+                   const brm_light *l);
+/* Fills row j of view v's grid. */
+void brm_od_fill_row(const brm_scene *s, const media_info *mi, shadow_view *v, uint32_t j);
+/* Optical depth at p from the grid; returns 0 and leaves *tau when p is outside it. */
+int brm_od_lookup(const shadow_view *v, brm_vec3 p, double *tau);
+
+/* ---- depth maps (shadowmap.c) ---- */
+/* Plans the views and the map resolution of light l for the target (no allocation). */
+void brm_shadowmap_plan(const brm_scene *s, const brm_shadow_opts *o, light_shadow *ls, const brm_light *l);
+/* Rasterizes all geometry into rows [row0, row1) of view v's depth map. */
+void brm_shadowmap_raster_rows(const brm_scene *s, shadow_view *v, uint32_t row0, uint32_t row1);
+/* The view of light ls that sees p (cube: by major axis). */
+const shadow_view *brm_shadow_pick_view(const light_shadow *ls, brm_vec3 p);
+/* Filtered visibility of p in one view's map, radius r texels. */
+double brm_shadowmap_pcf(const shadow_view *v, brm_vec3 p, double r);
+
+/* ---- sky (sky.c) ---- */
+/* Bands 0–1 of the unoccluded sky of SPEC.md, in closed form. */
+void brm_sky_projection(const brm_sky *sky, double out[3][4]);
+
+#endif

@@ -1,0 +1,385 @@
+/* CPU depth maps: view planning, conservative triangle rasterization, analytic spheres, and
+ * percentage-closer filtered lookups.
+ *
+ * A view maps a point to texel coordinates (X, Y) and a depth. Orthographic (directional
+ * lights): X, Y from the light-space position, depth = f·p − z_near, linear in X and Y over a
+ * triangle. Perspective (spots, cube faces): X, Y from the tan coordinates (u·d/f·d, v·d/f·d)
+ * and depth = f·d; over a triangle 1/depth is linear in X and Y (perspective-correct
+ * interpolation), so that is the quantity the rasterizer interpolates. */
+#include <float.h>
+#include <math.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "scene/light.h"
+#include "shadow/shadow_internal.h"
+
+/* Depth bias in texels (world size of a texel at the occluder): a constant of one texel plus
+ * one texel per unit of tan(angle between the surface normal and the light ray), the slope
+ * of depth across a texel, capped at 4 (grazing surfaces). Common practice, no source: the
+ * classic slope-scaled depth offset, sized so fog just in front of a lit surface is lit. */
+#define BIAS_CONST 1.0
+#define BIAS_SLOPE 1.0
+#define BIAS_TAN_MAX 4.0
+/* Perspective views clip geometry closer to the light than this (m). */
+#define PERSP_NEAR 1e-4
+
+static void basis_from(brm_vec3 f, brm_vec3 *u, brm_vec3 *v)
+{
+    brm_vec3 a = fabs(f.y) < 0.9 ? brm_v3(0, 1, 0) : brm_v3(1, 0, 0);
+    *u = brm_norm(brm_cross(a, f));
+    *v = brm_cross(f, *u); /* u × v = f */
+}
+
+static void box_corners(brm_aabb b, brm_vec3 c[8])
+{
+    for (int i = 0; i < 8; i++)
+        c[i] = brm_v3(i & 1 ? b.max.x : b.min.x, i & 2 ? b.max.y : b.min.y, i & 4 ? b.max.z : b.min.z);
+}
+
+static double max_corner_distance(brm_aabb b, brm_vec3 o)
+{
+    brm_vec3 c[8];
+    box_corners(b, c);
+    double r = 0.0;
+    for (int i = 0; i < 8; i++) {
+        double d = brm_len(brm_sub(c[i], o));
+        if (d > r) r = d;
+    }
+    return r;
+}
+
+static uint32_t pad_texels(double softness)
+{
+    return (uint32_t)ceil(softness > 0.5 ? softness : 0.5) + 2u;
+}
+
+static uint32_t clamp_res(double want, uint32_t hi)
+{
+    if (!(want >= BRM_SHADOW_MIN_RES)) return BRM_SHADOW_MIN_RES;
+    if (want > hi) return hi;
+    return (uint32_t)want;
+}
+
+/* Resolution of a map of `extent` (m, or tan units × r at the far end) at texel ≤ cell. */
+static uint32_t pick_res(const brm_light *l, double extent_world, double cell, uint32_t pad)
+{
+    if (l->shadow_resolution) {
+        uint32_t r = l->shadow_resolution;
+        if (r < BRM_SHADOW_MIN_RES) r = BRM_SHADOW_MIN_RES;
+        if (r > BRM_SHADOW_MAX_RES) r = BRM_SHADOW_MAX_RES;
+        return r;
+    }
+    if (!(cell > 0.0)) cell = extent_world / 256.0;
+    return clamp_res(ceil(extent_world / cell) + 2.0 * pad, BRM_SHADOW_AUTO_MAX);
+}
+
+static void plan_persp(shadow_view *v, brm_vec3 origin, brm_vec3 f, double tan_half, uint32_t res, uint32_t pad)
+{
+    v->kind = BRM_VIEW_PERSP;
+    v->origin = origin;
+    v->f = brm_norm(f);
+    basis_from(v->f, &v->u, &v->v);
+    if (pad > res / 4) pad = res / 4;
+    v->res = res;
+    v->texel = 2.0 * tan_half / (double)(res - 2 * pad);
+    v->lo[0] = v->lo[1] = -v->texel * (double)res * 0.5;
+    v->z_near = PERSP_NEAR;
+}
+
+void brm_shadowmap_plan(const brm_scene *s, const brm_shadow_opts *o, light_shadow *ls, const brm_light *l)
+{
+    memset(ls, 0, sizeof *ls);
+    ls->active = brm_light_reaches(l, o->bounds);
+    ls->softness = l->softness_texels > 0.5 ? l->softness_texels : 0.5;
+    ls->has_map = ls->active && l->shadow && s->object_count > 0;
+    uint32_t pad = pad_texels(ls->softness);
+    brm_vec3 c[8];
+    box_corners(o->bounds, c);
+
+    if (l->type == BRM_LIGHT_DIRECTIONAL) {
+        shadow_view *v = &ls->views[0];
+        ls->view_count = 1;
+        v->kind = BRM_VIEW_ORTHO;
+        v->origin = brm_v3(0, 0, 0);
+        v->f = brm_norm(l->direction);
+        basis_from(v->f, &v->u, &v->v);
+        double lo[2] = {HUGE_VAL, HUGE_VAL}, hi[2] = {-HUGE_VAL, -HUGE_VAL}, zn = HUGE_VAL;
+        for (int i = 0; i < 8; i++) {
+            double x = brm_dot(c[i], v->u), y = brm_dot(c[i], v->v), z = brm_dot(c[i], v->f);
+            lo[0] = fmin(lo[0], x), hi[0] = fmax(hi[0], x);
+            lo[1] = fmin(lo[1], y), hi[1] = fmax(hi[1], y);
+            zn = fmin(zn, z);
+        }
+        /* Reach toward the light past every occluder: the near plane in front of all geometry. */
+        for (uint32_t k = 0; k < s->object_count; k++) {
+            brm_vec3 g[8];
+            box_corners(s->objects[k].bounds, g);
+            for (int i = 0; i < 8; i++) zn = fmin(zn, brm_dot(g[i], v->f));
+        }
+        double ext = fmax(fmax(hi[0] - lo[0], hi[1] - lo[1]), 1e-6);
+        uint32_t res = pick_res(l, ext, o->cell_size, pad);
+        if (pad > res / 4) pad = res / 4;
+        v->res = res;
+        v->texel = ext / (double)(res - 2 * pad);
+        for (int a = 0; a < 2; a++) v->lo[a] = 0.5 * (lo[a] + hi[a]) - v->texel * (double)res * 0.5;
+        v->z_near = zn - v->texel;
+        ls->texel_size = v->texel;
+        return;
+    }
+
+    double rmax = fmax(max_corner_distance(o->bounds, l->position), 1e-3);
+    if (l->range_m > 0.0 && l->range_m < rmax) rmax = l->range_m;
+    bool cube = l->type == BRM_LIGHT_POINT || l->outer_deg > BRM_SPOT_CUBE_DEG;
+    double tan_half = cube ? 1.0 : tan(l->outer_deg * BRM_PI / 180.0);
+    uint32_t res = pick_res(l, 2.0 * tan_half * rmax, o->cell_size, pad);
+    ls->cube = cube;
+    if (cube) {
+        static const brm_vec3 axes[6] = {{1, 0, 0}, {-1, 0, 0}, {0, 1, 0}, {0, -1, 0}, {0, 0, 1}, {0, 0, -1}};
+        ls->view_count = 6;
+        for (int k = 0; k < 6; k++) plan_persp(&ls->views[k], l->position, axes[k], tan_half, res, pad);
+    } else {
+        ls->view_count = 1;
+        plan_persp(&ls->views[0], l->position, l->direction, tan_half, res, pad);
+    }
+    ls->texel_size = ls->views[0].texel * rmax;
+}
+
+const shadow_view *brm_shadow_pick_view(const light_shadow *ls, brm_vec3 p)
+{
+    if (!ls->cube) return &ls->views[0];
+    brm_vec3 d = brm_sub(p, ls->views[0].origin);
+    double ax = fabs(d.x), ay = fabs(d.y), az = fabs(d.z);
+    if (ax >= ay && ax >= az) return &ls->views[d.x >= 0 ? 0 : 1];
+    if (ay >= az) return &ls->views[d.y >= 0 ? 2 : 3];
+    return &ls->views[d.z >= 0 ? 4 : 5];
+}
+
+/* ---- rasterization ----------------------------------------------------------------- */
+
+typedef struct rvert {
+    double x, y, q; /* texel coordinates and the interpolated quantity (depth or 1/depth) */
+} rvert;
+
+static double bias_texels(brm_vec3 n, brm_vec3 ray)
+{
+    double c = fabs(brm_dot(n, ray));
+    double t = c * BIAS_TAN_MAX >= sqrt(1.0 - c * c) ? sqrt(fmax(0.0, 1.0 - c * c)) / c : BIAS_TAN_MAX;
+    return BIAS_CONST + BIAS_SLOPE * t;
+}
+
+static inline void store(shadow_view *v, uint32_t i, uint32_t j, double depth)
+{
+    float *t = &v->depth[(size_t)j * v->res + i];
+    float d = (float)depth;
+    if (d < *t) *t = d;
+}
+
+/* Conservative coverage: every texel the triangle's 2-D projection touches, tested with the
+ * edge functions shifted by the texel's half-extent along each edge normal. Depth at the texel
+ * centre from the plane, clamped to the triangle's own range (so texels covered only at their
+ * rim do not extrapolate), plus the bias. */
+static void raster_tri2d(shadow_view *v, uint32_t row0, uint32_t row1, const rvert t[3], double bias)
+{
+    double minx = fmin(t[0].x, fmin(t[1].x, t[2].x)), maxx = fmax(t[0].x, fmax(t[1].x, t[2].x));
+    double miny = fmin(t[0].y, fmin(t[1].y, t[2].y)), maxy = fmax(t[0].y, fmax(t[1].y, t[2].y));
+    if (maxx < 0.0 || maxy < (double)row0 || minx >= (double)v->res || miny >= (double)row1) return;
+    int64_t i0 = (int64_t)floor(fmax(minx, 0.0)), i1 = (int64_t)floor(fmin(maxx, (double)v->res - 0.5));
+    int64_t j0 = (int64_t)floor(fmax(miny, (double)row0)), j1 = (int64_t)floor(fmin(maxy, (double)row1 - 0.5));
+    if (i0 > i1 || j0 > j1) return;
+
+    double area2 = (t[1].x - t[0].x) * (t[2].y - t[0].y) - (t[2].x - t[0].x) * (t[1].y - t[0].y);
+    double sign = area2 < 0.0 ? -1.0 : 1.0;
+    double A[3], B[3], C[3];
+    for (int k = 0; k < 3; k++) {
+        const rvert *a = &t[k], *b = &t[(k + 1) % 3];
+        A[k] = -(b->y - a->y) * sign;
+        B[k] = (b->x - a->x) * sign;
+        C[k] = -(A[k] * a->x + B[k] * a->y) + 0.5 * (fabs(A[k]) + fabs(B[k])); /* shifted by the slack */
+    }
+    bool persp = v->kind == BRM_VIEW_PERSP;
+    double qlo = fmin(t[0].q, fmin(t[1].q, t[2].q)), qhi = fmax(t[0].q, fmax(t[1].q, t[2].q));
+    bool flat = fabs(area2) < 1e-9;
+    double gx = 0.0, gy = 0.0;
+    if (!flat) {
+        gx = ((t[1].q - t[0].q) * (t[2].y - t[0].y) - (t[2].q - t[0].q) * (t[1].y - t[0].y)) / area2;
+        gy = ((t[2].q - t[0].q) * (t[1].x - t[0].x) - (t[1].q - t[0].q) * (t[2].x - t[0].x)) / area2;
+    }
+    /* Flat (edge-on) triangles: their nearest point for every texel they touch. */
+    double qflat = persp ? qhi : qlo;
+    double tol = -1e-9 * (1.0 + fabs(area2));
+    for (int64_t j = j0; j <= j1; j++) {
+        double cy = (double)j + 0.5;
+        for (int64_t i = i0; i <= i1; i++) {
+            double cx = (double)i + 0.5;
+            if (A[0] * cx + B[0] * cy + C[0] < tol || A[1] * cx + B[1] * cy + C[1] < tol ||
+                A[2] * cx + B[2] * cy + C[2] < tol)
+                continue;
+            double q = flat ? qflat : brm_clamp(t[0].q + gx * (cx - t[0].x) + gy * (cy - t[0].y), qlo, qhi);
+            double depth = persp ? (1.0 / q) * (1.0 + bias * v->texel) : q + bias * v->texel;
+            store(v, (uint32_t)i, (uint32_t)j, depth);
+        }
+    }
+}
+
+static rvert to_raster(const shadow_view *v, brm_vec3 d /* view space: (u, v, f) */)
+{
+    rvert r;
+    if (v->kind == BRM_VIEW_ORTHO) {
+        r.x = (d.x - v->lo[0]) / v->texel;
+        r.y = (d.y - v->lo[1]) / v->texel;
+        r.q = d.z - v->z_near;
+    } else {
+        r.x = (d.x / d.z - v->lo[0]) / v->texel;
+        r.y = (d.y / d.z - v->lo[1]) / v->texel;
+        r.q = 1.0 / d.z;
+    }
+    return r;
+}
+
+static brm_vec3 to_view(const shadow_view *v, brm_vec3 p)
+{
+    brm_vec3 d = brm_sub(p, v->origin);
+    return brm_v3(brm_dot(d, v->u), brm_dot(d, v->v), brm_dot(d, v->f));
+}
+
+static void raster_tri(shadow_view *v, uint32_t row0, uint32_t row1, const brm_tri *tri)
+{
+    brm_vec3 n = brm_cross(brm_sub(tri->v[1], tri->v[0]), brm_sub(tri->v[2], tri->v[0]));
+    double nl = brm_len(n);
+    if (!(nl > 0.0)) return;
+    n = brm_scale(n, 1.0 / nl);
+    brm_vec3 vs[3];
+    for (int k = 0; k < 3; k++) vs[k] = to_view(v, tri->v[k]);
+    if (v->kind == BRM_VIEW_ORTHO) {
+        rvert t[3];
+        for (int k = 0; k < 3; k++) t[k] = to_raster(v, vs[k]);
+        raster_tri2d(v, row0, row1, t, bias_texels(n, v->f));
+        return;
+    }
+    /* Perspective: clip to the near plane (Sutherland–Hodgman on one plane: at most 4 vertices). */
+    double zn = v->z_near;
+    if (vs[0].z < zn && vs[1].z < zn && vs[2].z < zn) return;
+    brm_vec3 cen = brm_scale(brm_add(tri->v[0], brm_add(tri->v[1], tri->v[2])), 1.0 / 3.0);
+    double bias = bias_texels(n, brm_norm(brm_sub(cen, v->origin)));
+    brm_vec3 poly[4];
+    int np = 0;
+    for (int k = 0; k < 3; k++) {
+        brm_vec3 a = vs[k], b = vs[(k + 1) % 3];
+        bool ain = a.z >= zn, bin = b.z >= zn;
+        if (ain) poly[np++] = a;
+        if (ain != bin) {
+            double s = (zn - a.z) / (b.z - a.z);
+            poly[np++] = brm_v3(a.x + s * (b.x - a.x), a.y + s * (b.y - a.y), zn);
+        }
+    }
+    rvert t[4];
+    for (int k = 0; k < np; k++) t[k] = to_raster(v, poly[k]);
+    for (int k = 1; k + 1 < np; k++) {
+        rvert f3[3] = {t[0], t[k], t[k + 1]};
+        raster_tri2d(v, row0, row1, f3, bias);
+    }
+}
+
+/* Spheres analytically: the ray through each texel centre meets the sphere or not (exact
+ * silhouette); depth at the entry point. */
+static void raster_sphere(shadow_view *v, uint32_t row0, uint32_t row1, const brm_object *ob)
+{
+    double r = ob->radius;
+    brm_vec3 c = to_view(v, ob->center);
+    double x0, x1, y0, y1;
+    if (v->kind == BRM_VIEW_ORTHO) {
+        x0 = (c.x - r - v->lo[0]) / v->texel, x1 = (c.x + r - v->lo[0]) / v->texel;
+        y0 = (c.y - r - v->lo[1]) / v->texel, y1 = (c.y + r - v->lo[1]) / v->texel;
+    } else if (c.z - r * 1.7320508075688772 > v->z_near) {
+        /* Bounds of the projected bounding cube (all in front of the light). */
+        x0 = y0 = HUGE_VAL, x1 = y1 = -HUGE_VAL;
+        for (int k = 0; k < 8; k++) {
+            brm_vec3 q = brm_v3(c.x + (k & 1 ? r : -r), c.y + (k & 2 ? r : -r), c.z + (k & 4 ? r : -r));
+            rvert t = to_raster(v, q);
+            x0 = fmin(x0, t.x), x1 = fmax(x1, t.x), y0 = fmin(y0, t.y), y1 = fmax(y1, t.y);
+        }
+    } else if (c.z + r <= 0.0) {
+        return;
+    } else {
+        x0 = y0 = 0.0, x1 = y1 = (double)v->res;
+    }
+    int64_t i0 = (int64_t)floor(fmax(x0, 0.0)), i1 = (int64_t)floor(fmin(x1, (double)v->res - 0.5));
+    int64_t j0 = (int64_t)floor(fmax(y0, (double)row0)), j1 = (int64_t)floor(fmin(y1, (double)row1 - 0.5));
+    double cc = brm_dot(c, c) - r * r;
+    for (int64_t j = j0; j <= j1; j++) {
+        double ly = v->lo[1] + ((double)j + 0.5) * v->texel;
+        for (int64_t i = i0; i <= i1; i++) {
+            double lx = v->lo[0] + ((double)i + 0.5) * v->texel;
+            double depth;
+            if (v->kind == BRM_VIEW_ORTHO) {
+                double rho2 = (lx - c.x) * (lx - c.x) + (ly - c.y) * (ly - c.y);
+                if (rho2 > r * r) continue;
+                double h = sqrt(r * r - rho2);
+                double cs = h / r, t = cs * BIAS_TAN_MAX >= sqrt(1.0 - cs * cs) ? sqrt(1.0 - cs * cs) / cs : BIAS_TAN_MAX;
+                depth = c.z - h - v->z_near + (BIAS_CONST + BIAS_SLOPE * t) * v->texel;
+            } else {
+                double inv = 1.0 / sqrt(1.0 + lx * lx + ly * ly);
+                brm_vec3 dir = brm_v3(lx * inv, ly * inv, inv);
+                double b = brm_dot(dir, c), disc = b * b - cc;
+                if (disc < 0.0) continue;
+                double sq = sqrt(disc), t0 = b - sq;
+                if (b + sq <= 0.0) continue;
+                if (t0 < 0.0) t0 = 0.0; /* the light is inside the sphere */
+                brm_vec3 hit = brm_scale(dir, t0);
+                brm_vec3 nrm = brm_scale(brm_sub(hit, c), 1.0 / r);
+                double cs = fabs(brm_dot(nrm, dir));
+                double t = cs * BIAS_TAN_MAX >= sqrt(fmax(0.0, 1.0 - cs * cs)) ? sqrt(fmax(0.0, 1.0 - cs * cs)) / cs
+                                                                               : BIAS_TAN_MAX;
+                depth = t0 * inv * (1.0 + (BIAS_CONST + BIAS_SLOPE * t) * v->texel);
+            }
+            store(v, (uint32_t)i, (uint32_t)j, depth);
+        }
+    }
+}
+
+void brm_shadowmap_raster_rows(const brm_scene *s, shadow_view *v, uint32_t row0, uint32_t row1)
+{
+    for (size_t k = (size_t)row0 * v->res; k < (size_t)row1 * v->res; k++) v->depth[k] = INFINITY;
+    for (uint32_t k = 0; k < s->tri_count; k++) raster_tri(v, row0, row1, &s->tris[k]);
+    for (uint32_t k = 0; k < s->object_count; k++)
+        if (s->objects[k].shape == BRM_SHAPE_SPHERE) raster_sphere(v, row0, row1, &s->objects[k]);
+}
+
+/* ---- lookup ------------------------------------------------------------------------ */
+
+/* Percentage-closer filtering: the fraction of the square of half-width r texels around p's
+ * texel position whose texels do not hide p, each texel weighted by its overlap with the
+ * square (a box filter over nearest-texel comparisons: bilinear weights at r = 0.5, and
+ * continuous in p for any r). Texels outside the map count as lit. */
+double brm_shadowmap_pcf(const shadow_view *v, brm_vec3 p, double r)
+{
+    brm_vec3 d = to_view(v, p);
+    double z;
+    if (v->kind == BRM_VIEW_ORTHO) {
+        z = d.z - v->z_near;
+    } else {
+        if (d.z <= v->z_near) return 1.0;
+        z = d.z;
+        d.x /= d.z, d.y /= d.z;
+    }
+    double X = (d.x - v->lo[0]) / v->texel, Y = (d.y - v->lo[1]) / v->texel;
+    double x0 = X - r, x1 = X + r, y0 = Y - r, y1 = Y + r;
+    double res = (double)v->res;
+    if (x1 <= 0.0 || y1 <= 0.0 || x0 >= res || y0 >= res) return 1.0;
+    int64_t i0 = (int64_t)floor(fmax(x0, 0.0)), i1 = (int64_t)ceil(fmin(x1, res)) - 1;
+    int64_t j0 = (int64_t)floor(fmax(y0, 0.0)), j1 = (int64_t)ceil(fmin(y1, res)) - 1;
+    double shadowed = 0.0;
+    for (int64_t j = j0; j <= j1; j++) {
+        double wy = fmin((double)j + 1.0, y1) - fmax((double)j, y0);
+        const float *row = v->depth + (size_t)j * v->res;
+        double sx = 0.0;
+        for (int64_t i = i0; i <= i1; i++) {
+            if (z > (double)row[i]) sx += fmin((double)i + 1.0, x1) - fmax((double)i, x0);
+        }
+        shadowed += sx * wy;
+    }
+    /* The overlaps sum to the square's area up to rounding: snap the ends to exact 0 and 1. */
+    double lit = 1.0 - shadowed / (4.0 * r * r);
+    return lit < 1e-12 ? 0.0 : lit > 1.0 - 1e-12 ? 1.0 : lit;
+}

@@ -1,0 +1,320 @@
+/* Tests of src/shadow/shadowmap.c: depth maps for directional, spot and point lights, their
+ * filtered lookups, against analytic shadow volumes and the BVH ray caster. */
+#include <stdio.h>
+
+#include "shadow_fixture.h"
+#include "shadow/shadow_internal.h"
+#include "voxel/voxelize.h"
+
+static const brm_aabb slab = {{-10, 0, -10}, {10, 4, 10}};
+
+/* Distance from p to the axis of the shadow cylinder a sphere (c, r) casts along f, and
+ * whether p lies behind the sphere (past its centre along f). */
+static double cylinder_distance(brm_vec3 p, brm_vec3 c, brm_vec3 f, int *behind)
+{
+    brm_vec3 d = brm_sub(p, c);
+    double along = brm_dot(d, f);
+    *behind = along > 0.0;
+    return brm_len(brm_sub(d, brm_scale(f, along)));
+}
+
+static void sphere_outside_target_should_shadow_exactly_its_cylinder(void **state)
+{
+    (void)state;
+    /* A sphere 25 m above a fog slab and outside the target casts a shadow cylinder of its
+     * own radius along the light (Source: the geometry of a parallel projection — a sphere's
+     * orthographic silhouette is a circle of its radius). */
+    brm_scene *s = sf_scene((brm_aabb){{-50, -10, -50}, {50, 50, 50}});
+    brm_vec3 c = brm_v3(1.0, 29.0, -2.0);
+    double r = 3.0;
+    sf_sphere(s, c, r);
+    brm_vec3 f = brm_norm(brm_v3(0.2, -1.0, 0.1));
+    sf_sun(s, f);
+    sf_ready(s);
+    double cell = 0.125;
+    brm_shadow_set *ss = sf_build(s, slab, cell, false, NULL, 1);
+    double texel = brm_shadow_texel_size(ss, 0);
+    assert_true(texel > 0.0 && texel <= cell); /* default: a texel no larger than a cell */
+    uint64_t rng = 1;
+    int inside = 0, outside = 0;
+    for (int n = 0; n < 20000; n++) {
+        brm_vec3 p = sf_in_box(&rng, slab);
+        int behind;
+        double dist = cylinder_distance(p, c, f, &behind);
+        assert_true(behind);
+        if (fabs(dist - r) < 3.0 * texel) continue; /* the filtered edge band */
+        double v = brm_shadow_visibility(ss, 0, p);
+        if (dist < r) {
+            inside++;
+            assert_near(v, 0.0, 0.0, 0.0);
+        } else {
+            outside++;
+            assert_near(v, 1.0, 0.0, 0.0);
+        }
+    }
+    /* Both sides were really tested: the shadow disc covers about π·3²/400 of the slab. */
+    assert_true(inside > 1000 && outside > 10000);
+    brm_shadows_free(ss);
+    brm_scene_free(s);
+}
+
+static void shadow_edge_should_be_filtered_not_stair_stepped(void **state)
+{
+    (void)state;
+    /* A large box's straight edge, crossed slowly: PCF gives a monotone ramp with many
+     * intermediate values, about 2·softness texels wide. */
+    brm_scene *s = sf_scene((brm_aabb){{-50, -10, -50}, {50, 50, 50}});
+    sf_box(s, brm_v3(-40, 20, -40), brm_v3(0.03, 21, 40), false);
+    sf_sun(s, brm_v3(0, -1, 0));
+    sf_ready(s);
+    brm_shadow_set *ss = sf_build(s, slab, 0.25, false, NULL, 1);
+    double texel = brm_shadow_texel_size(ss, 0), prev = -1.0;
+    int partial = 0;
+    double first0 = HUGE_VAL, last1 = -HUGE_VAL;
+    for (int k = 0; k <= 400; k++) {
+        double x = 2.0 - 4.0 * k / 400.0; /* from lit (x > 0) into shadow (x < 0) */
+        double v = brm_shadow_visibility(ss, 0, brm_v3(x, 2.0, 0.37));
+        if (prev >= 0.0) assert_true(v <= prev + 1e-12);
+        prev = v;
+        if (v > 0.0 && v < 1.0) partial++;
+        if (v >= 1.0) last1 = x;
+        if (v <= 0.0 && x > -HUGE_VAL && first0 == HUGE_VAL) first0 = x;
+    }
+    printf("edge: %d partial values, width %.3f m, texel %.3f m\n", partial, last1 - fmax(first0, -2.0), texel);
+    assert_true(partial >= 10);
+    double width = last1 - fmax(first0, -2.0);
+    /* Source (common practice, no source): a box filter of half-width 1.5 texels over
+     * nearest-texel tests, plus up to one texel of conservative coverage, spans ≤ 4 texels. */
+    assert_true(width > 2.0 * texel && width < 5.0 * texel);
+    brm_shadows_free(ss);
+    brm_scene_free(s);
+}
+
+/* Whether the BVH answer is the same at p and at points a distance `band` around it across
+ * the ray and along it: then p is away from every shadow edge and occluder surface. */
+static int reference_ray(const brm_bvh *b, const brm_light *l, brm_vec3 p)
+{
+    if (l->type == BRM_LIGHT_DIRECTIONAL) return !brm_bvh_occluded(b, p, brm_scale(l->direction, -1.0), 1e-9, HUGE_VAL);
+    brm_vec3 t = brm_sub(l->position, p);
+    double d = brm_len(t);
+    return !brm_bvh_occluded(b, p, brm_scale(t, 1.0 / d), 1e-9, d - 1e-9);
+}
+
+static int away_from_edges(const brm_bvh *b, const brm_light *l, brm_vec3 p, double band, int ref)
+{
+    brm_vec3 t = l->type == BRM_LIGHT_DIRECTIONAL ? brm_scale(l->direction, -1.0) : brm_norm(brm_sub(l->position, p));
+    brm_vec3 a = brm_norm(brm_cross(t, fabs(t.y) < 0.9 ? brm_v3(0, 1, 0) : brm_v3(1, 0, 0)));
+    brm_vec3 c = brm_cross(t, a);
+    for (int k = 0; k < 10; k++) {
+        brm_vec3 off;
+        if (k < 8) {
+            double ang = 2.0 * BRM_PI * k / 8.0;
+            off = brm_add(brm_scale(a, cos(ang) * band), brm_scale(c, sin(ang) * band));
+        } else {
+            off = brm_scale(t, k == 8 ? band : -band);
+        }
+        if (reference_ray(b, l, brm_add(p, off)) != ref) return 0;
+    }
+    return 1;
+}
+
+static void shadow_maps_should_agree_with_bvh_rays_away_from_edges(void **state)
+{
+    (void)state;
+    /* A yard: ground slab, two boxes, a thin wall (mesh), a sphere, a roof outside the target;
+     * sun, spot and point light. */
+    brm_aabb target = {{-8, 0.05, -8}, {8, 6, 8}};
+    brm_scene *s = sf_scene((brm_aabb){{-60, -5, -60}, {60, 60, 60}});
+    sf_box(s, brm_v3(-20, -1, -20), brm_v3(20, 0, 20), false);
+    sf_box(s, brm_v3(-5, 0, -3), brm_v3(-2, 4, 1), false);
+    sf_box(s, brm_v3(2, 1, 2), brm_v3(4.5, 2.5, 6), true);
+    sf_box(s, brm_v3(-1, 0, 4), brm_v3(3, 5, 4.05), true); /* thin wall */
+    sf_sphere(s, brm_v3(3, 3.5, -4), 1.5);
+    sf_box(s, brm_v3(-30, 14, -30), brm_v3(-6, 14.2, 30), false); /* roof outside the target */
+    sf_sun(s, brm_v3(0.5, -1.0, 0.3));
+    sf_spot(s, brm_v3(0, 9, 0), brm_v3(0.1, -1, 0.05), 30, 50);
+    sf_point(s, brm_v3(1, 5.5, -1));
+    sf_ready(s);
+    brm_bvh *b = sf_bvh(s);
+    brm_shadow_set *ss = sf_build(s, target, 0.1, false, b, 2);
+    uint64_t rng = 7;
+    for (uint32_t l = 0; l < s->light_count; l++) {
+        int tested = 0, agree = 0, lit = 0;
+        for (int n = 0; n < 6000; n++) {
+            brm_vec3 p = sf_in_box(&rng, target);
+            if (brm_point_in_solid(s, p)) continue;
+            int ref = reference_ray(b, &s->lights[l], p);
+            double dist = s->lights[l].type == BRM_LIGHT_DIRECTIONAL ? 1.0 : brm_len(brm_sub(s->lights[l].position, p));
+            double texel = s->lights[l].type == BRM_LIGHT_DIRECTIONAL
+                               ? brm_shadow_texel_size(ss, l)
+                               : brm_shadow_pick_view(&ss->lights[l], p)->texel * dist;
+            if (!away_from_edges(b, &s->lights[l], p, 4.0 * texel, ref)) continue;
+            if (s->lights[l].type == BRM_LIGHT_SPOT) {
+                brm_vec3 to = brm_norm(brm_sub(p, s->lights[l].position));
+                if (brm_dot(to, s->lights[l].direction) < s->lights[l].cos_outer) continue;
+            }
+            tested++;
+            lit += ref;
+            double v = brm_shadow_visibility(ss, l, p);
+            if (fabs(v - (double)ref) < 1e-9) agree++;
+        }
+        printf("light %u: %d tested, %d lit, %d agree\n", l, tested, lit, agree);
+        assert_true(tested > 2000);
+        assert_true(lit > tested / 10 && lit < tested - tested / 10); /* both cases occur */
+        /* The brief's criterion: more than 99 % agreement away from edges. */
+        assert_true(agree > 0.99 * tested);
+    }
+    brm_shadows_free(ss);
+    brm_bvh_free(b);
+    brm_scene_free(s);
+}
+
+static void closed_room_of_thin_walls_should_not_leak_light(void **state)
+{
+    (void)state;
+    /* A room of zero-thickness walls (an open-or-closed mesh of six quads): every point
+     * inside, clear of the filter band, sees no light from any of the three light kinds.
+     * Source: the definition of a closed surface — every ray from inside meets it. */
+    brm_aabb room = {{-3, 0, -3}, {3, 3, 3}};
+    brm_scene *s = sf_scene((brm_aabb){{-20, -5, -20}, {20, 20, 20}});
+    sf_box(s, room.min, room.max, true);
+    sf_sun(s, brm_v3(0.7, -0.4, 0.2));
+    sf_spot(s, brm_v3(0, 8, 2), brm_v3(0, -1, -0.2), 40, 55);
+    sf_point(s, brm_v3(6, 2, 5));
+    sf_ready(s);
+    brm_aabb target = {{-6, 0, -6}, {6, 5, 6}};
+    brm_shadow_set *ss = sf_build(s, target, 0.1, false, NULL, 1);
+    uint64_t rng = 3;
+    brm_aabb inner = {{-2.6, 0.4, -2.6}, {2.6, 2.6, 2.6}};
+    for (int n = 0; n < 3000; n++) {
+        brm_vec3 p = sf_in_box(&rng, inner);
+        for (uint32_t l = 0; l < s->light_count; l++) assert_near(brm_shadow_visibility(ss, l, p), 0.0, 0.0, 0.0);
+    }
+    /* And the light does reach outside, beside the room. */
+    assert_near(brm_shadow_visibility(ss, 0, brm_v3(-5.5, 4.5, 0)), 1.0, 0.0, 0.0);
+    assert_near(brm_shadow_visibility(ss, 2, brm_v3(5, 2, 5)), 1.0, 0.0, 0.0);
+    brm_shadows_free(ss);
+    brm_scene_free(s);
+}
+
+static void lights_without_shadows_or_geometry_should_see_everything(void **state)
+{
+    (void)state;
+    brm_scene *s = sf_scene((brm_aabb){{-20, -5, -20}, {20, 20, 20}});
+    sf_sun(s, brm_v3(0, -1, 0));
+    sf_point(s, brm_v3(0, 3, 0));
+    sf_ready(s);
+    brm_shadow_set *ss = sf_build(s, slab, 0.5, false, NULL, 1);
+    assert_near(brm_shadow_visibility(ss, 0, brm_v3(1, 1, 1)), 1.0, 0.0, 0.0);
+    assert_near(brm_shadow_texel_size(ss, 0), 0.0, 0.0, 0.0); /* no geometry: no map */
+    brm_shadows_free(ss);
+    sf_box(s, brm_v3(-20, 10, -20), brm_v3(20, 11, 20), false);
+    s->lights[0].shadow = false;
+    ss = sf_build(s, slab, 0.5, false, NULL, 1);
+    assert_near(brm_shadow_visibility(ss, 0, brm_v3(1, 1, 1)), 1.0, 0.0, 0.0); /* shadow: false */
+    assert_near(brm_shadow_visibility(ss, 1, brm_v3(1, 1, 1)), 1.0, 0.0, 0.0); /* under the light */
+    assert_near(brm_shadow_visibility(ss, 1, brm_v3(1, 11.5, 1)), 0.0, 0.0, 0.0);
+    brm_shadows_free(ss);
+    brm_scene_free(s);
+}
+
+static void resolution_should_follow_cells_overrides_and_cap(void **state)
+{
+    (void)state;
+    brm_scene *s = sf_scene((brm_aabb){{-20, -5, -20}, {20, 20, 20}});
+    sf_box(s, brm_v3(-1, 6, -1), brm_v3(1, 7, 1), false);
+    brm_light *sun = sf_sun(s, brm_v3(0, -1, 0));
+    sf_ready(s);
+    brm_shadow_set *ss = sf_build(s, slab, 0.5, false, NULL, 1);
+    const shadow_view *v = &ss->lights[0].views[0];
+    /* 20 m across at 0.5 m cells: 40 texels plus the filter margin of 2·(⌈1.5⌉ + 2). */
+    assert_int_equal(v->res, 40 + 8);
+    assert_near(v->texel, 0.5, 0.0, 1e-12);
+    brm_shadows_free(ss);
+    /* A 1 mm cell would ask for 20 000 texels: the automatic resolution stops at 4096. */
+    ss = sf_build(s, slab, 0.001, false, NULL, 1);
+    assert_int_equal(ss->lights[0].views[0].res, BRM_SHADOW_AUTO_MAX);
+    brm_shadows_free(ss);
+    sun->shadow_resolution = 300;
+    ss = sf_build(s, slab, 0.001, false, NULL, 1);
+    assert_int_equal(ss->lights[0].views[0].res, 300);
+    brm_shadows_free(ss);
+    /* Point light: six faces, each of the requested resolution. */
+    sf_point(s, brm_v3(0, 2, 0))->shadow_resolution = 64;
+    ss = sf_build(s, slab, 0.5, false, NULL, 1);
+    assert_int_equal(ss->lights[1].view_count, 6);
+    for (int k = 0; k < 6; k++) assert_int_equal(ss->lights[1].views[k].res, 64);
+    brm_shadows_free(ss);
+    brm_scene_free(s);
+}
+
+static void build_should_not_depend_on_thread_count(void **state)
+{
+    (void)state;
+    brm_scene *s = sf_scene((brm_aabb){{-30, -5, -30}, {30, 30, 30}});
+    sf_box(s, brm_v3(-5, 0, -3), brm_v3(-2, 4, 1), false);
+    sf_sphere(s, brm_v3(3, 3.5, -4), 1.5);
+    sf_sun(s, brm_v3(0.5, -1.0, 0.3));
+    sf_point(s, brm_v3(1, 5.5, -1));
+    brm_medium *m = sf_medium(s, BRM_MEDIUM_HEIGHT, 0.1);
+    m->scale_height_m = 3.0;
+    sf_ready(s);
+    brm_aabb target = {{-8, 0, -8}, {8, 6, 8}};
+    brm_shadow_set *a = sf_build(s, target, 0.1, false, NULL, 1);
+    brm_shadow_set *b = sf_build(s, target, 0.1, false, NULL, 2);
+    for (uint32_t l = 0; l < s->light_count; l++) {
+        const light_shadow *la = &a->lights[l], *lb = &b->lights[l];
+        assert_int_equal(la->view_count, lb->view_count);
+        assert_true(la->has_map && la->has_od);
+        for (uint32_t k = 0; k < la->view_count; k++) {
+            const shadow_view *va = &la->views[k], *vb = &lb->views[k];
+            assert_int_equal(va->res, vb->res);
+            assert_memory_equal(va->depth, vb->depth, (size_t)va->res * va->res * sizeof(float));
+            size_t n = (size_t)va->og_n[0] * va->og_n[1] * va->og_n[2] * 2;
+            assert_true(n > 0);
+            assert_memory_equal(va->od, vb->od, n * sizeof(float));
+        }
+    }
+    /* The memory estimate is what the build allocated. */
+    brm_shadow_opts o = {target, 0.1, 1, false, NULL};
+    assert_true(brm_shadows_memory(s, &o) == brm_shadows_bytes(a));
+    brm_shadows_free(a);
+    brm_shadows_free(b);
+    brm_scene_free(s);
+}
+
+static void reference_mode_should_trace_rays(void **state)
+{
+    (void)state;
+    brm_scene *s = sf_scene((brm_aabb){{-20, -5, -20}, {20, 20, 20}});
+    sf_sphere(s, brm_v3(0, 10, 0), 2.0);
+    sf_sun(s, brm_v3(0, -1, 0));
+    sf_point(s, brm_v3(0, 15, 0));
+    sf_ready(s);
+    brm_bvh *b = sf_bvh(s);
+    brm_shadow_set *ss = sf_build(s, slab, 0.5, true, b, 1);
+    /* Exactly on and off the axis, right at the rim: rays know no filter band. */
+    assert_near(brm_shadow_visibility(ss, 0, brm_v3(1.99, 1, 0)), 0.0, 0.0, 0.0);
+    assert_near(brm_shadow_visibility(ss, 0, brm_v3(2.01, 1, 0)), 1.0, 0.0, 0.0);
+    assert_near(brm_shadow_visibility(ss, 1, brm_v3(0, 1, 0)), 0.0, 0.0, 0.0);
+    assert_near(brm_shadow_visibility(ss, 1, brm_v3(0, 12.5, 0)), 1.0, 0.0, 0.0); /* between sphere and light */
+    assert_near(brm_shadow_texel_size(ss, 0), 0.0, 0.0, 0.0);
+    brm_shadows_free(ss);
+    brm_bvh_free(b);
+    brm_scene_free(s);
+}
+
+int main(void)
+{
+    const struct CMUnitTest tests[] = {
+        cmocka_unit_test(sphere_outside_target_should_shadow_exactly_its_cylinder),
+        cmocka_unit_test(shadow_edge_should_be_filtered_not_stair_stepped),
+        cmocka_unit_test(shadow_maps_should_agree_with_bvh_rays_away_from_edges),
+        cmocka_unit_test(closed_room_of_thin_walls_should_not_leak_light),
+        cmocka_unit_test(lights_without_shadows_or_geometry_should_see_everything),
+        cmocka_unit_test(resolution_should_follow_cells_overrides_and_cap),
+        cmocka_unit_test(build_should_not_depend_on_thread_count),
+        cmocka_unit_test(reference_mode_should_trace_rays),
+    };
+    return cmocka_run_group_tests(tests, NULL, NULL);
+}
