@@ -1,0 +1,166 @@
+/* Probe lattices against closed forms: a uniform sky, a single directional light, a lit wall's
+ * bounce, shadowing by a roof and validity inside a closed box. */
+#include <math.h>
+#include <stdio.h>
+
+#include "bake_util.h"
+#include "base/sh.h"
+
+static char *dir;
+
+static int setup(void **state)
+{
+    (void)state;
+    dir = temp_dir();
+    return 0;
+}
+
+static int teardown(void **state)
+{
+    (void)state;
+    char cmd[128];
+    snprintf(cmd, sizeof cmd, "rm -rf %s", dir);
+    if (system(cmd) != 0) return 1;
+    free(dir);
+    return 0;
+}
+
+/* The 9 coefficients of one colour channel of probe index c. */
+static void probe_sh(const brv_volume *v, char colour, size_t c, double L[9])
+{
+    for (int m = 0; m < 9; m++) {
+        char name[16];
+        snprintf(name, sizeof name, "sh.%c%d", colour, m);
+        float *ch = read_channel(v, name);
+        L[m] = ch[c];
+        free(ch);
+    }
+}
+
+static brv_volume *bake_json(const char *json, const char *name, int threads)
+{
+    brm_scene *s = load_json(json);
+    char p[128];
+    snprintf(p, sizeof p, "%s/%s.brv", dir, name);
+    brv_volume *v = bake_to(s, 0, threads, false, p);
+    brm_scene_free(s);
+    return v;
+}
+
+static void uniform_sky_should_project_to_band_zero_and_irradiance_pi(void **state)
+{
+    (void)state;
+    const char *json =
+        "{\"brume\": 1, \"name\": \"open\", \"sky\": {\"zenith\": [1,1,1], \"horizon\": [1,1,1], \"ground\": [1,1,1]},"
+        " \"targets\": [{\"name\": \"p\", \"grid\": \"probes\", \"min\": [0,0,0], \"max\": [2,2,2], \"spacing_m\": 1,"
+        "   \"rays\": 256, \"encoding\": \"f32\"}]}";
+    brv_volume *v = bake_json(json, "open", 2);
+    const brv_grid_info *gi = brv_grid(v);
+    assert_int_equal(gi->cells[0], 3);
+    size_t n = brv_channel_size(v);
+    for (size_t c = 0; c < n; c++) {
+        double L[9];
+        probe_sh(v, 'g', c, L);
+        /* Source: REFERENCES.md §3 — a constant environment L = 1 has L00 = 4π·Y00 = 2√π, every
+         * other coefficient 0, and irradiance E(n) = π for every n (Ramamoorthi & Hanrahan 2001). */
+        assert_rel(L[0], 2.0 * sqrt(BRM_PI), 0.01);
+        for (int m = 1; m < 9; m++) assert_near(L[m], 0.0, 0.01 * L[0], 0);
+        const brm_vec3 ns[] = {{1, 0, 0}, {0, 1, 0}, {0, 0, -1}, {0.6, -0.8, 0}};
+        for (int k = 0; k < 4; k++) assert_rel(brm_sh9_irradiance(L, ns[k]), BRM_PI, 0.01);
+    }
+    brv_free(v);
+}
+
+static void directional_light_should_project_as_a_delta(void **state)
+{
+    (void)state;
+    const char *json =
+        "{\"brume\": 1, \"name\": \"sun\", \"fog_bounds\": {\"min\": [-1,-1,-1], \"max\": [1,1,1]},"
+        " \"lights\": [{\"type\": \"directional\", \"direction\": [-0.3,-1,0.4], \"illuminance_lux\": 1000}],"
+        " \"targets\": [{\"name\": \"p\", \"grid\": \"probes\", \"min\": [0,0,0], \"max\": [0,0,0], \"spacing_m\": 1,"
+        "   \"rays\": 64, \"encoding\": \"f32\"}]}";
+    brv_volume *v = bake_json(json, "sun", 1);
+    double L[9];
+    probe_sh(v, 'r', 0, L);
+    const double E = 1000.0;
+    /* Source: a delta of irradiance E along d projects to E·Y_lm(d), so band energies
+     * sqrt(Σ_m L_lm²) are E·sqrt((2l+1)/(4π)) (SH addition theorem): E·Y00, E·sqrt(3/(4π)),
+     * E·sqrt(5/(4π)). */
+    double b1 = sqrt(L[1] * L[1] + L[2] * L[2] + L[3] * L[3]);
+    double b2 = sqrt(L[4] * L[4] + L[5] * L[5] + L[6] * L[6] + L[7] * L[7] + L[8] * L[8]);
+    assert_rel(L[0], E * BRM_SH_C0, 0.01);
+    assert_rel(b1, E * sqrt(3.0 / (4 * BRM_PI)), 0.01);
+    assert_rel(b2, E * sqrt(5.0 / (4 * BRM_PI)), 0.01);
+    /* Source: REFERENCES.md §3 table — toward the light the band-limited irradiance is 17/16·E,
+     * at 60° 0.4609375·E. */
+    brm_vec3 to = brm_norm(brm_v3(0.3, 1, -0.4));
+    assert_rel(brm_sh9_irradiance(L, to), E * 17.0 / 16.0, 0.01);
+    brm_vec3 side = brm_norm(brm_cross(to, brm_v3(0, 0, 1)));
+    brm_vec3 at60 = brm_add(brm_scale(to, 0.5), brm_scale(side, sqrt(0.75)));
+    assert_rel(brm_sh9_irradiance(L, at60), E * 0.4609375, 0.01);
+    brv_free(v);
+}
+
+static void probe_facing_a_lit_white_wall_should_see_its_exitance(void **state)
+{
+    (void)state;
+    /* A 40 m × 40 m wall of albedo 1 with its face at x = 0, lit head-on by a sun of E lux; the
+     * probe 0.5 m in front of it. */
+    const char *json =
+        "{\"brume\": 1, \"name\": \"wall\", \"fog_bounds\": {\"min\": [-1,-21,-21], \"max\": [6,21,21]},"
+        " \"geometry\": [{\"shape\": \"box\", \"min\": [-0.4,-20,-20], \"max\": [0,20,20], \"albedo\": [1,1,1]}],"
+        " \"lights\": [{\"type\": \"directional\", \"direction\": [-1,0,0], \"illuminance_lux\": 100}],"
+        " \"targets\": [{\"name\": \"p\", \"grid\": \"probes\", \"min\": [0.5,0,0], \"max\": [0.5,0,0], \"spacing_m\": 1,"
+        "   \"rays\": 2048, \"encoding\": \"f32\"}]}";
+    brv_volume *v = bake_json(json, "wall", 2);
+    double L[9];
+    probe_sh(v, 'g', 0, L);
+    const double E = 100.0;
+    /* Source: a Lambertian surface of exitance M = albedo·E has radiance M/π, and a plane filling
+     * the hemisphere delivers π·(M/π) = M to a point facing it (radiometry of a uniform
+     * hemisphere). Bands 0–2 reproduce a uniform hemisphere's irradiance at its axis exactly.
+     * The sun reaching the probe from behind adds its band-limited ringing E/16 at 180°
+     * (REFERENCES.md §3 table), which we add to the expectation. The wall's finite size hides
+     * (0.5/20)² of the cosine-weighted hemisphere: negligible. */
+    double got = brm_sh9_irradiance(L, brm_v3(-1, 0, 0));
+    assert_rel(got, E * 1.0 + E / 16.0, 0.05);
+    float *valid = read_channel(v, "validity");
+    assert_true(valid[0] == 1.0f);
+    free(valid);
+    brv_free(v);
+}
+
+static void probe_under_a_roof_should_get_no_sun_and_probe_in_a_box_is_invalid(void **state)
+{
+    (void)state;
+    const char *json =
+        "{\"brume\": 1, \"name\": \"roof\", \"fog_bounds\": {\"min\": [-60,-2,-60], \"max\": [60,10,60]},"
+        " \"geometry\": [{\"shape\": \"box\", \"min\": [-50,5,-50], \"max\": [50,5.3,50]},"
+        "                {\"shape\": \"box\", \"min\": [3,0,-1], \"max\": [5,2,1]}],"
+        " \"lights\": [{\"type\": \"directional\", \"direction\": [0.2,-1,0.1], \"illuminance_lux\": 50000}],"
+        " \"targets\": [{\"name\": \"p\", \"grid\": \"probes\", \"min\": [0,1,0], \"max\": [4,1,0], \"spacing_m\": 2,"
+        "   \"rays\": 128, \"encoding\": \"f32\"}]}";
+    brv_volume *v = bake_json(json, "roof", 2);
+    assert_int_equal(brv_grid(v)->cells[0], 3);
+    double L[9];
+    probe_sh(v, 'r', 0, L);
+    /* Nothing lights the underside of the roof or the ground here (no sky, no floor): a probe
+     * in the roof's shadow sees nothing at all. */
+    for (int m = 0; m < 9; m++) assert_near(L[m], 0.0, 1e-6 * 50000, 0);
+    float *valid = read_channel(v, "validity");
+    assert_true(valid[0] == 1.0f);
+    assert_true(valid[2] == 0.0f); /* (4,1,0) lies inside the closed box [3,5]×[0,2]×[−1,1] */
+    free(valid);
+    brv_free(v);
+}
+
+int main(void)
+{
+    const struct CMUnitTest tests[] = {
+        cmocka_unit_test(uniform_sky_should_project_to_band_zero_and_irradiance_pi),
+        cmocka_unit_test(directional_light_should_project_as_a_delta),
+        cmocka_unit_test(probe_facing_a_lit_white_wall_should_see_its_exitance),
+        cmocka_unit_test(probe_under_a_roof_should_get_no_sun_and_probe_in_a_box_is_invalid),
+    };
+    return cmocka_run_group_tests_name("bake-probes", tests, setup, teardown);
+}
