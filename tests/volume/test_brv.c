@@ -1,0 +1,801 @@
+/* The .brv writer and reader: round trips, error bounds, hostile files, golden bytes,
+ * sampling and threads. */
+#include <pthread.h>
+#include <stdlib.h>
+
+#include "check.h"
+#include "fixture.h"
+#include "volume/brv_internal.h"
+
+static const char *golden_path; /* argv[1]: tests/volume/golden_v1.brv */
+
+static uint8_t *write_or_fail(const brv_write_desc *d, fixture_field f, void *user, size_t *size)
+{
+    brv_result r;
+    uint8_t *buf = fixture_write(d, f, user, size, &r);
+    if (!buf) print_error("write: %s\n", brv_result_text(r));
+    assert_non_null(buf);
+    return buf;
+}
+
+static brv_volume *open_or_fail(const uint8_t *buf, size_t size)
+{
+    brv_volume *v = NULL;
+    brv_result r = brv_open_memory(buf, size, NULL, &v);
+    if (r != BRV_OK) print_error("open: %s\n", brv_result_text(r));
+    assert_int_equal(r, BRV_OK);
+    return v;
+}
+
+/* f16 bound of brv.h: |d − v| ≤ max(|v|·2^-11, s·2^-25). */
+static double f16_bound(double v, int scale_exp) { return fmax(fabs(v) * ldexp(1.0, -11), ldexp(1.0, scale_exp - 25)); }
+
+/* ---- round trips ----------------------------------------------------------------------- */
+
+static void roundtrip_should_return_same_floats_for_f32(void **state)
+{
+    (void)state;
+    brv_channel_desc ch[2] = {{"extinction", "1/m", BRV_ENCODING_F32}, {"occupancy", "", BRV_ENCODING_F32}};
+    brv_write_desc d = fixture_world(37, 21, 18, ch, 2); /* clipped bricks on every axis */
+    size_t size;
+    uint8_t *buf = write_or_fail(&d, fixture_smooth, NULL, &size);
+    brv_volume *v = open_or_fail(buf, size);
+    const brv_grid_info *g = brv_grid(v);
+    assert_int_equal(g->kind, BRV_GRID_WORLD);
+    assert_int_equal(g->cells[0], 37);
+    assert_int_equal(g->bricks[0], 3);
+    assert_int_equal(g->bricks[1], 2);
+    assert_int_equal(g->brick_count, 3 * 2 * 2);
+    assert_int_equal(brv_channel_find(v, "occupancy"), 1);
+    assert_int_equal(brv_channel_find(v, "Occupancy"), -1);
+    assert_string_equal(brv_channel(v, 0)->units, "1/m");
+    size_t n = brv_channel_size(v);
+    assert_int_equal(n, 37 * 21 * 18);
+    float *all = malloc(brv_all_size(v) * sizeof(float));
+    assert_int_equal(brv_decode_all(v, all, brv_all_size(v)), BRV_OK);
+    float *one = malloc(n * sizeof(float));
+    float lo = INFINITY, hi = -INFINITY;
+    for (uint32_t c = 0; c < 2; c++) {
+        assert_int_equal(brv_decode_channel(v, c, one, n), BRV_OK);
+        for (uint32_t z = 0, i = 0; z < 18; z++)
+            for (uint32_t y = 0; y < 21; y++)
+                for (uint32_t x = 0; x < 37; x++, i++) {
+                    float want = fixture_smooth(c, x, y, z, NULL);
+                    assert_true(one[i] == want);
+                    assert_true(all[c * n + i] == want);
+                    if (c == 1) {
+                        lo = fminf(lo, want);
+                        hi = fmaxf(hi, want);
+                    }
+                }
+    }
+    assert_true(brv_channel(v, 1)->min == lo && brv_channel(v, 1)->max == hi);
+    assert_int_equal(brv_decode_channel(v, 0, one, n - 1), BRV_E_BUFFER);
+    assert_int_equal(brv_decode_channel(v, 2, one, n), BRV_E_NOT_FOUND);
+    assert_int_equal(brv_verify(v, NULL), BRV_OK);
+    free(one);
+    free(all);
+    brv_free(v);
+    free(buf);
+}
+
+static void roundtrip_should_return_same_halves_for_f16(void **state)
+{
+    (void)state;
+    brv_channel_desc ch[1] = {{"extinction", "1/m", BRV_ENCODING_F16}};
+    brv_write_desc d = fixture_world(20, 17, 33, ch, 1);
+    d.brick_size = 8;
+    size_t size;
+    uint8_t *buf = write_or_fail(&d, fixture_smooth, NULL, &size);
+    brv_volume *v = open_or_fail(buf, size);
+    size_t n = brv_channel_size(v);
+    uint16_t *h = malloc(n * sizeof *h);
+    float *f = malloc(n * sizeof *f);
+    assert_int_equal(brv_decode_channel_f16(v, 0, h, n), BRV_OK);
+    assert_int_equal(brv_decode_channel(v, 0, f, n), BRV_OK);
+    assert_int_equal(brv_channel(v, 0)->scale_exp_max, 0);
+    for (uint32_t z = 0, i = 0; z < 33; z++)
+        for (uint32_t y = 0; y < 17; y++)
+            for (uint32_t x = 0; x < 20; x++, i++) {
+                uint16_t want = brv_f32_to_f16(fixture_smooth(0, x, y, z, NULL));
+                assert_int_equal(h[i], want);
+                assert_true(f[i] == brv_f16_to_f32(want));
+            }
+    free(h);
+    free(f);
+    brv_free(v);
+    free(buf);
+}
+
+/* A sun seen through fog: radiance far over binary16's 65504 and rgb9e5's 65408. */
+static float bright_field(uint32_t c, uint32_t x, uint32_t y, uint32_t z, void *user)
+{
+    (void)user;
+    double r2 = (x - 10.0) * (x - 10.0) + (y - 6.0) * (y - 6.0) + (z - 9.0) * (z - 9.0);
+    return (float)(0.02 + 2.5e5 * exp(-r2 / 6.0) * (1.0 + 0.1 * c) + 1e-3 * c * x);
+}
+
+static void f16_and_rgb9e5_should_scale_bright_values_within_bound(void **state)
+{
+    (void)state;
+    brv_channel_desc ch[4] = {{"scatter.r", "cd/m2", BRV_ENCODING_RGB9E5},
+                              {"scatter.g", "cd/m2", BRV_ENCODING_RGB9E5},
+                              {"scatter.b", "cd/m2", BRV_ENCODING_RGB9E5},
+                              {"sun", "cd/m2", BRV_ENCODING_F16}};
+    brv_write_desc d = fixture_world(24, 13, 19, ch, 4);
+    size_t size;
+    uint8_t *buf = write_or_fail(&d, bright_field, NULL, &size);
+    brv_volume *v = open_or_fail(buf, size);
+    /* 2.75e5 / 65504 needs 2^3 (65504·4 = 262016 is too small); rgb9e5: 65408·4 < 2.75e5 too. */
+    assert_int_equal(brv_channel(v, 3)->scale_exp_max, 3);
+    assert_int_equal(brv_channel(v, 2)->scale_exp_max, 3);
+    assert_int_equal(brv_channel(v, 0)->encoding, BRV_ENCODING_RGB9E5);
+    float *all = malloc(brv_all_size(v) * sizeof(float));
+    assert_int_equal(brv_decode_all(v, all, brv_all_size(v)), BRV_OK);
+    size_t n = brv_channel_size(v);
+    double worst_f16 = 0, worst_rgb = 0;
+    for (uint32_t z = 0, i = 0; z < 19; z++)
+        for (uint32_t y = 0; y < 13; y++)
+            for (uint32_t x = 0; x < 24; x++, i++) {
+                /* The per-brick scale is at most the channel's largest. */
+                double vs = bright_field(3, x, y, z, NULL);
+                double e = fabs(all[3 * n + i] - vs);
+                assert_true(e <= f16_bound(vs, 3));
+                worst_f16 = fmax(worst_f16, e / f16_bound(vs, 3));
+                double m = 0;
+                for (uint32_t c = 0; c < 3; c++) m = fmax(m, bright_field(c, x, y, z, NULL));
+                for (uint32_t c = 0; c < 3; c++) {
+                    double want = bright_field(c, x, y, z, NULL);
+                    double bound = fmax(m / 511.0, ldexp(1.0, 3 - 25));
+                    assert_true(fabs(all[c * n + i] - want) <= bound);
+                    worst_rgb = fmax(worst_rgb, fabs(all[c * n + i] - want) / bound);
+                }
+            }
+    assert_true(brv_channel(v, 3)->max > 2.7e5f);
+    print_message("worst error / bound: f16 %.3f, rgb9e5 %.3f\n", worst_f16, worst_rgb);
+    free(all);
+    brv_free(v);
+    free(buf);
+}
+
+static float nan_at(uint32_t c, uint32_t x, uint32_t y, uint32_t z, void *user)
+{
+    const float *bad = user;
+    return (c == 1 && x == 3 && y == 2 && z == 1) ? bad[0] : 1.0f;
+}
+
+static void writer_should_refuse_unrepresentable_values(void **state)
+{
+    (void)state;
+    struct {
+        brv_encoding enc;
+        float value;
+    } cases[] = {{BRV_ENCODING_F16, NAN}, {BRV_ENCODING_F32, INFINITY}, {BRV_ENCODING_RGB9E5, -0.5f}};
+    for (size_t k = 0; k < 3; k++) {
+        brv_channel_desc ch[3] = {{"a", "", cases[k].enc}, {"b", "", cases[k].enc}, {"c", "", cases[k].enc}};
+        brv_write_desc d = fixture_world(5, 4, 3, ch, cases[k].enc == BRV_ENCODING_RGB9E5 ? 3 : 2);
+        FILE *f = tmpfile();
+        brv_writer *w;
+        assert_int_equal(brv_writer_create(f, &d, &w), BRV_OK);
+        float data[3 * 60];
+        for (uint32_t i = 0; i < 3 * 60; i++) data[i] = nan_at(i / 60, i % 5, i / 5 % 4, i / 20 % 3, &cases[k].value);
+        assert_int_equal(brv_writer_put_brick(w, 0, data), BRV_E_UNREPRESENTABLE);
+        /* The message names the channel and the cell. */
+        assert_non_null(strstr(brv_writer_error(w), "channel 'b'"));
+        assert_non_null(strstr(brv_writer_error(w), "(3, 2, 1)"));
+        brv_writer_free(w);
+        fclose(f);
+    }
+}
+
+static void writer_should_refuse_bad_descriptions_with_a_reason(void **state)
+{
+    (void)state;
+    char err[256] = "";
+    brv_channel_desc ch[2] = {{"r", "", BRV_ENCODING_RGB9E5}, {"g", "", BRV_ENCODING_RGB9E5}};
+    brv_write_desc d = fixture_world(4, 4, 4, ch, 2);
+    d.error = err;
+    d.error_size = sizeof err;
+    FILE *f = tmpfile();
+    brv_writer *w = NULL;
+    assert_int_equal(brv_writer_create(f, &d, &w), BRV_E_ARGUMENT);
+    assert_null(w);
+    assert_non_null(strstr(err, "triplets"));
+    d.channel_count = 1;
+    ch[0].encoding = BRV_ENCODING_F16;
+    d.compression_level = 25;
+    assert_int_equal(brv_writer_create(f, &d, &w), BRV_E_ARGUMENT);
+    assert_non_null(strstr(err, "compression level 25"));
+    d.compression_level = 0;
+    d.cells[1] = 70000;
+    assert_int_equal(brv_writer_create(f, &d, &w), BRV_E_LIMIT);
+    fclose(f);
+}
+
+static void writer_should_insist_on_every_brick_once(void **state)
+{
+    (void)state;
+    brv_channel_desc ch[1] = {{"a", "", BRV_ENCODING_F32}};
+    brv_write_desc d = fixture_world(20, 4, 4, ch, 1); /* two bricks */
+    FILE *f = tmpfile();
+    brv_writer *w;
+    assert_int_equal(brv_writer_create(f, &d, &w), BRV_OK);
+    float data[16 * 4 * 4] = {0};
+    assert_int_equal(brv_writer_put_brick(w, 1, data), BRV_OK);
+    assert_int_equal(brv_writer_put_brick(w, 1, data), BRV_E_STATE);
+    assert_int_equal(brv_writer_put_brick(w, 2, data), BRV_E_ARGUMENT);
+    assert_int_equal(brv_writer_finish(w), BRV_E_STATE);
+    assert_non_null(strstr(brv_writer_error(w), "brick 0"));
+    assert_int_equal(brv_writer_put_brick(w, 0, data), BRV_OK);
+    assert_int_equal(brv_writer_finish(w), BRV_OK);
+    assert_int_equal(brv_writer_finish(w), BRV_E_STATE);
+    brv_writer_free(w);
+    brv_writer_free(NULL);
+    brv_free(NULL);
+    brv_decoder_free(NULL);
+    brv_sampler_free(NULL);
+    fclose(f);
+}
+
+static float zero_field(uint32_t c, uint32_t x, uint32_t y, uint32_t z, void *user)
+{
+    (void)c, (void)x, (void)y, (void)z, (void)user;
+    return 0.0f;
+}
+
+static void uniform_bricks_should_cost_bytes_not_kilobytes(void **state)
+{
+    (void)state;
+    brv_channel_desc ch[3] = {{"extinction", "1/m", BRV_ENCODING_F16},
+                              {"occupancy", "", BRV_ENCODING_F32},
+                              {"t", "", BRV_ENCODING_F16}};
+    brv_write_desc d = fixture_world(64, 64, 64, ch, 3);
+    size_t size;
+    uint8_t *buf = write_or_fail(&d, zero_field, NULL, &size);
+    brv_volume *v = open_or_fail(buf, size);
+    const brv_grid_info *g = brv_grid(v);
+    /* 64 bricks of 16³ cells × 3 channels = 640 KiB raw; each brick is a ~30-byte frame. */
+    double per_brick = (double)g->brick_bytes / g->brick_count;
+    print_message("uniform brick: %.1f bytes stored (raw %u)\n", per_brick, 16 * 16 * 16 * 10);
+    assert_true(per_brick < 48.0);
+    float *all = malloc(brv_all_size(v) * sizeof(float));
+    assert_int_equal(brv_decode_all(v, all, brv_all_size(v)), BRV_OK);
+    for (size_t i = 0; i < brv_all_size(v); i++) assert_true(all[i] == 0.0f);
+    free(all);
+    brv_free(v);
+    free(buf);
+}
+
+static void smooth_f16_should_compress_over_4x_against_raw_halves(void **state)
+{
+    (void)state;
+    brv_channel_desc ch[1] = {{"extinction", "1/m", BRV_ENCODING_F16}};
+    brv_write_desc d = fixture_world(64, 64, 64, ch, 1);
+    size_t size;
+    uint8_t *buf = write_or_fail(&d, fixture_smooth, NULL, &size);
+    double ratio = (64.0 * 64 * 64 * 2) / (double)size;
+    print_message("smooth f16: %zu bytes, %.2fx smaller than raw halves\n", size, ratio);
+    assert_true(ratio >= 4.0);
+    free(buf);
+}
+
+/* ---- determinism ----------------------------------------------------------------------- */
+
+static void writer_should_give_the_same_bytes_for_the_same_input(void **state)
+{
+    (void)state;
+    brv_channel_desc ch[2] = {{"a", "", BRV_ENCODING_F16}, {"b", "", BRV_ENCODING_F32}};
+    brv_write_desc d = fixture_world(30, 9, 20, ch, 2);
+    d.metadata = "{\"scene\":\"x\"}";
+    d.metadata_len = strlen(d.metadata);
+    size_t s1, s2;
+    uint8_t *a = write_or_fail(&d, fixture_smooth, NULL, &s1);
+    uint8_t *b = write_or_fail(&d, fixture_smooth, NULL, &s2);
+    assert_int_equal(s1, s2);
+    assert_memory_equal(a, b, s1);
+    brv_volume *v = open_or_fail(a, s1);
+    size_t len;
+    assert_string_equal(brv_metadata(v, &len), "{\"scene\":\"x\"}");
+    assert_int_equal(len, 13);
+    brv_free(v);
+    free(a);
+    free(b);
+}
+
+/* ---- hostile files ---------------------------------------------------------------------- */
+
+typedef struct counting {
+    size_t live, peak, largest, calls;
+} counting;
+
+static void *count_alloc(void *user, size_t size)
+{
+    counting *c = user;
+    size_t *p = malloc(size + 16);
+    if (!p) return NULL;
+    p[0] = size;
+    c->live += size;
+    c->calls++;
+    if (c->live > c->peak) c->peak = c->live;
+    if (size > c->largest) c->largest = size;
+    return (uint8_t *)p + 16;
+}
+
+static void count_free(void *user, void *ptr)
+{
+    counting *c = user;
+    if (!ptr) return;
+    size_t *p = (size_t *)((uint8_t *)ptr - 16);
+    c->live -= p[0];
+    free(p);
+}
+
+static uint8_t *small_file(size_t *size)
+{
+    static const brv_channel_desc ch[4] = {{"extinction", "1/m", BRV_ENCODING_F16},
+                                           {"inscatter.r", "cd/m2/m", BRV_ENCODING_RGB9E5},
+                                           {"inscatter.g", "cd/m2/m", BRV_ENCODING_RGB9E5},
+                                           {"inscatter.b", "cd/m2/m", BRV_ENCODING_RGB9E5}};
+    brv_write_desc d = fixture_world(9, 5, 6, ch, 4);
+    d.brick_size = 4;
+    d.metadata = "{\"tool\":\"brume 0.1.0\"}";
+    d.metadata_len = strlen(d.metadata);
+    return write_or_fail(&d, fixture_smooth, NULL, size);
+}
+
+/* A fault is any named code but BRV_OK; a truncated or flipped file must never give data. */
+static brv_result open_and_read(const uint8_t *src, size_t size, counting *cnt)
+{
+    uint8_t *copy = malloc(size ? size : 1); /* fresh, exact size: overreads are caught */
+    if (size) memcpy(copy, src, size);
+    brv_allocator a = {count_alloc, count_free, cnt};
+    brv_volume *v = NULL;
+    brv_result r = brv_open_memory(copy, size, &a, &v);
+    if (r == BRV_OK) {
+        r = brv_verify(v, NULL);
+        float *all = malloc(brv_all_size(v) * sizeof(float));
+        brv_result r2 = brv_decode_all(v, all, brv_all_size(v));
+        assert_true((r == BRV_OK) == (r2 == BRV_OK));
+        free(all);
+        brv_free(v);
+    }
+    free(copy);
+    assert_true(r >= BRV_OK && r < BRV_RESULT_MAX_ENUM);
+    return r;
+}
+
+static void open_should_reject_every_truncation(void **state)
+{
+    (void)state;
+    size_t size;
+    uint8_t *buf = small_file(&size);
+    counting cnt = {0};
+    assert_int_equal(open_and_read(buf, size, &cnt), BRV_OK);
+    int counts[BRV_RESULT_MAX_ENUM] = {0};
+    for (size_t len = 0; len < size; len++) {
+        brv_result r = open_and_read(buf, len, &cnt);
+        assert_int_not_equal(r, BRV_OK);
+        counts[r]++;
+    }
+    assert_int_equal(cnt.live, 0);
+    print_message("%zu truncations: %d magic, %d truncated, %d layout\n", size, counts[BRV_E_MAGIC],
+                  counts[BRV_E_TRUNCATED], counts[BRV_E_LAYOUT]);
+    free(buf);
+}
+
+static void open_should_reject_random_byte_flips(void **state)
+{
+    (void)state;
+    size_t size;
+    uint8_t *buf = small_file(&size);
+    uint8_t *mod = malloc(size);
+    counting cnt = {0};
+    srand(12345);
+    int counts[BRV_RESULT_MAX_ENUM] = {0};
+    for (int k = 0; k < 4000; k++) {
+        memcpy(mod, buf, size);
+        size_t at = (size_t)rand() % size;
+        mod[at] ^= (uint8_t)(1 + rand() % 255);
+        if (k % 3 == 0 && at + 1 < size) mod[at + 1] ^= (uint8_t)(1 + rand() % 255);
+        brv_result r = open_and_read(mod, size, &cnt);
+        if (r == BRV_OK) print_error("flip at byte %zu read as data\n", at);
+        assert_int_not_equal(r, BRV_OK);
+        counts[r]++;
+    }
+    print_message("4000 flips: %d header/table CRC, %d brick corrupt, %d magic, %d version, %d other\n",
+                  counts[BRV_E_HEADER_CRC], counts[BRV_E_BRICK_CORRUPT], counts[BRV_E_MAGIC], counts[BRV_E_VERSION],
+                  4000 - counts[BRV_E_HEADER_CRC] - counts[BRV_E_BRICK_CORRUPT] - counts[BRV_E_MAGIC] -
+                      counts[BRV_E_VERSION]);
+    free(mod);
+    free(buf);
+}
+
+/* Re-seals a modified file: tables CRC and header CRC, so the checks behind them are reached. */
+static void reseal(uint8_t *buf)
+{
+    uint64_t toff = brv_rd64(buf + 32), tsize = brv_rd64(buf + 40);
+    brv_wr32(buf + 48, brv_crc32(0, buf + toff, (size_t)tsize));
+    brv_wr32(buf + 60, brv_crc32(0, buf, 60));
+}
+
+static brv_result open_counting(const uint8_t *buf, size_t size, counting *cnt)
+{
+    brv_allocator a = {count_alloc, count_free, cnt};
+    brv_volume *v = NULL;
+    brv_result r = brv_open_memory(buf, size, &a, &v);
+    if (r == BRV_OK) {
+        r = brv_verify(v, NULL);
+        brv_free(v);
+    }
+    return r;
+}
+
+static void open_should_refuse_hostile_tables_before_allocating(void **state)
+{
+    (void)state;
+    size_t size;
+    uint8_t *buf = small_file(&size), *m = malloc(size + 64);
+    uint64_t toff = brv_rd64(buf + 32);
+    uint8_t *bt = NULL;
+    counting cnt;
+#define CASE(code, ...)                                                 \
+    do {                                                                \
+        memcpy(m, buf, size);                                           \
+        bt = m + toff + BRV_TABLES_FIXED + 4 * BRV_CHANNEL_ENTRY;       \
+        __VA_ARGS__;                                                    \
+        reseal(m);                                                      \
+        memset(&cnt, 0, sizeof cnt);                                    \
+        assert_int_equal(open_counting(m, size, &cnt), code);           \
+        if (cnt.largest > 16384) print_error("largest allocation %zu\n", cnt.largest); \
+        assert_true(cnt.largest <= 16384);                              \
+        assert_int_equal(cnt.live, 0);                                  \
+    } while (0)
+    (void)bt;
+    /* Each case fails before any allocation past the fixed-size volume object (under 16 KiB).
+     * A header that claims huge dimensions (valid CRC). */
+    CASE(BRV_E_LIMIT, brv_wr32(m + 20, 1u << 20));
+    CASE(BRV_E_LIMIT, brv_wr32(m + 20, 65536); brv_wr32(m + 24, 65536); brv_wr32(m + 28, 65536));
+    /* 16.7 million bricks whose table is not in the file. */
+    CASE(BRV_E_LAYOUT, brv_wr32(m + 20, 4096); brv_wr32(m + 24, 4096); brv_wr32(m + 28, 64));
+    CASE(BRV_E_LIMIT, m[17] = 200);
+    CASE(BRV_E_LIMIT, brv_wr16(m + 18, 1000));
+    CASE(BRV_E_LAYOUT, m[16] = 9);
+    /* Tables that do not add up: metadata one byte longer than there is. */
+    CASE(BRV_E_LAYOUT, brv_wr32(m + toff + 156, brv_rd32(m + toff + 156) + 1));
+    CASE(BRV_E_LAYOUT, brv_wr32(m + toff + 152, 7));
+    /* Overlapping bricks: brick 1 starts where brick 0 does. */
+    CASE(BRV_E_BRICK_RANGE, brv_wr64(bt + 16, brv_rd64(bt)));
+    /* A brick outside the file. */
+    CASE(BRV_E_BRICK_RANGE, brv_wr64(bt + 16, 1ull << 40));
+    CASE(BRV_E_BRICK_RANGE, brv_wr32(bt + 8, 0));
+    /* A compressed size that lies: brick 0 claims one more byte (its CRC made to match) and
+     * brick 1 starts one later, so the layout still adds up. */
+    {
+        memcpy(m, buf, size);
+        bt = m + toff + BRV_TABLES_FIXED + 4 * BRV_CHANNEL_ENTRY;
+        uint32_t b0 = 0, b1 = 1;
+        /* find the brick stored first and the one right after it */
+        uint32_t nb = 3 * 2 * 2; /* 9×5×6 cells in bricks of 4 */
+        for (uint32_t b = 0; b < nb; b++) {
+            if (brv_rd64(bt + 16 * b) == 64) b0 = b;
+        }
+        uint64_t end0 = brv_rd64(bt + 16 * b0) + brv_rd32(bt + 16 * b0 + 8);
+        for (uint32_t b = 0; b < nb; b++)
+            if (brv_rd64(bt + 16 * b) == end0) b1 = b;
+        brv_wr32(bt + 16 * b0 + 8, brv_rd32(bt + 16 * b0 + 8) + 1);
+        brv_wr32(bt + 16 * b0 + 12, brv_crc32(0, m + 64, brv_rd32(bt + 16 * b0 + 8)));
+        brv_wr64(bt + 16 * b1, end0 + 1);
+        brv_wr32(bt + 16 * b1 + 8, brv_rd32(bt + 16 * b1 + 8) - 1);
+        reseal(m);
+        memset(&cnt, 0, sizeof cnt);
+        assert_int_equal(open_counting(m, size, &cnt), BRV_E_BRICK_CORRUPT);
+    }
+    /* Not a volume at all; another major version; a bad header CRC. */
+    CASE(BRV_E_MAGIC, m[0] = 'X');
+    CASE(BRV_E_VERSION, brv_wr16(m + 8, 2));
+    memcpy(m, buf, size);
+    m[19] ^= 1;
+    assert_int_equal(open_counting(m, size, &cnt), BRV_E_HEADER_CRC);
+    /* Trailing bytes after the tables. */
+    memcpy(m, buf, size);
+    m[size] = 0;
+    assert_int_equal(open_counting(m, size + 1, &cnt), BRV_E_LAYOUT);
+#undef CASE
+    free(m);
+    free(buf);
+}
+
+static void reader_should_skip_a_newer_minors_unknown_encoding(void **state)
+{
+    (void)state;
+    brv_channel_desc ch[2] = {{"future", "", BRV_ENCODING_F32}, {"extinction", "1/m", BRV_ENCODING_F16}};
+    brv_write_desc d = fixture_world(18, 5, 4, ch, 2);
+    size_t size;
+    uint8_t *buf = write_or_fail(&d, fixture_smooth, NULL, &size);
+    uint64_t toff = brv_rd64(buf + 32);
+    buf[toff + BRV_TABLES_FIXED + 48] = 9; /* an encoding this reader does not know */
+    reseal(buf);
+    brv_volume *v = NULL;
+    assert_int_equal(brv_open_memory(buf, size, NULL, &v), BRV_E_LAYOUT); /* not allowed in 1.0 */
+    brv_wr16(buf + 10, 1);                                                /* minor 1 */
+    reseal(buf);
+    v = open_or_fail(buf, size);
+    assert_int_equal(brv_channel(v, 0)->encoding, BRV_ENCODING_INVALID);
+    assert_int_equal(brv_channel(v, 0)->encoding_code, 9);
+    size_t n = brv_channel_size(v);
+    float *f = malloc(n * sizeof *f);
+    assert_int_equal(brv_decode_channel(v, 0, f, n), BRV_E_VERSION);
+    assert_int_equal(brv_decode_channel(v, 1, f, n), BRV_OK);
+    assert_true(f[5] == brv_f16_to_f32(brv_f32_to_f16(fixture_smooth(1, 5, 0, 0, NULL))));
+    assert_int_equal(brv_verify(v, NULL), BRV_OK);
+    free(f);
+    brv_free(v);
+    free(buf);
+}
+
+/* ---- golden bytes ---------------------------------------------------------------------- */
+
+static float golden_field(uint32_t c, uint32_t x, uint32_t y, uint32_t z, void *user)
+{
+    (void)user;
+    return (float)(0.25 * (c + 1) + 0.125 * x + 0.0625 * y + 0.5 * z);
+}
+
+static uint8_t *golden_bytes(size_t *size)
+{
+    static const brv_channel_desc ch[5] = {{"extinction", "1/m", BRV_ENCODING_F16},
+                                           {"occupancy", "", BRV_ENCODING_F32},
+                                           {"inscatter.r", "cd/m2/m", BRV_ENCODING_RGB9E5},
+                                           {"inscatter.g", "cd/m2/m", BRV_ENCODING_RGB9E5},
+                                           {"inscatter.b", "cd/m2/m", BRV_ENCODING_RGB9E5}};
+    brv_write_desc d = fixture_world(5, 3, 2, ch, 5);
+    d.brick_size = 4;
+    d.compression_level = 3;
+    d.metadata = "{\"brume\":1,\"scene_sha256\":\"golden\"}";
+    d.metadata_len = strlen(d.metadata);
+    return write_or_fail(&d, golden_field, NULL, size);
+}
+
+static void golden_file_should_read_and_be_reproduced_byte_for_byte(void **state)
+{
+    (void)state;
+    size_t size;
+    uint8_t *mine = golden_bytes(&size);
+    const char *regen = getenv("BRV_REGENERATE_GOLDEN");
+    if (regen && *regen) { /* BRV_REGENERATE_GOLDEN=path rewrites the file: a format change */
+        FILE *f = fopen(regen, "wb");
+        assert_non_null(f);
+        assert_int_equal(fwrite(mine, 1, size, f), size);
+        fclose(f);
+    }
+    brv_volume *v = NULL;
+    assert_int_equal(brv_open_file(golden_path, NULL, &v), BRV_OK);
+    const brv_grid_info *g = brv_grid(v);
+    /* Pinned layout: the header's fixed fields. */
+    static const uint8_t head[20] = {'B', 'R', 'U', 'M', 'E', 'V', 'O', 'L', 1, 0, 0, 0, 64, 0, 0, 0, 1, 4, 5, 0};
+    assert_int_equal(g->file_size, size);
+    uint8_t *file = malloc(size);
+    FILE *f = fopen(golden_path, "rb");
+    assert_non_null(f);
+    assert_int_equal(fread(file, 1, size, f), size);
+    fclose(f);
+    assert_memory_equal(file, head, sizeof head);
+    assert_memory_equal(file, mine, size);
+    /* Its values, within each encoding's bound. */
+    assert_int_equal(g->cells[0], 5);
+    assert_int_equal(g->brick_count, 2);
+    assert_true(g->bounds_min[1] == -2.0 && g->bounds_max[2] == 5.0);
+    assert_non_null(strstr(brv_metadata(v, NULL), "golden"));
+    float all[5 * 30];
+    assert_int_equal(brv_decode_all(v, all, 150), BRV_OK);
+    for (uint32_t i = 0; i < 30; i++) {
+        uint32_t x = i % 5, y = i / 5 % 3, z = i / 15;
+        assert_true(all[i] == brv_f16_to_f32(brv_f32_to_f16(golden_field(0, x, y, z, NULL))));
+        assert_true(all[30 + i] == golden_field(1, x, y, z, NULL));
+        for (uint32_t c = 2; c < 5; c++) assert_near(all[c * 30 + i], golden_field(c, x, y, z, NULL), 3.0 / 511, 0);
+    }
+    assert_int_equal(brv_verify(v, NULL), BRV_OK);
+    brv_free(v);
+    free(file);
+    free(mine);
+}
+
+/* ---- sampling -------------------------------------------------------------------------- */
+
+/* A linear field in world coordinates: trilinear interpolation reproduces it exactly
+ * (interpolation theory: multilinear interpolation is exact on affine functions). */
+static double lin_world(uint32_t c, double x, double y, double z) { return 2.0 + 0.5 * x - 0.25 * y + 0.75 * z + c; }
+
+typedef struct lin_grid {
+    brv_write_desc d;
+} lin_grid;
+
+static float lin_field(uint32_t c, uint32_t x, uint32_t y, uint32_t z, void *user)
+{
+    const brv_write_desc *d = user;
+    double p[3], i[3] = {x, y, z};
+    for (int a = 0; a < 3; a++) {
+        double span = d->bounds_max[a] - d->bounds_min[a];
+        p[a] = d->kind == BRV_GRID_WORLD ? d->bounds_min[a] + (i[a] + 0.5) * span / d->cells[a]
+                                         : d->bounds_min[a] + i[a] * span / (d->cells[a] - 1);
+    }
+    return (float)lin_world(c, p[0], p[1], p[2]);
+}
+
+static void sampling_should_match_direct_evaluation_within_encoding_bound(void **state)
+{
+    (void)state;
+    brv_channel_desc ch[2] = {{"a", "", BRV_ENCODING_F32}, {"b", "", BRV_ENCODING_F16}};
+    for (int kind = BRV_GRID_WORLD; kind <= BRV_GRID_PROBES; kind += 2) {
+        brv_write_desc d = fixture_world(23, 19, 35, ch, 2);
+        d.kind = (brv_grid_kind)kind;
+        size_t size;
+        uint8_t *buf = write_or_fail(&d, lin_field, &d, &size);
+        brv_volume *v = open_or_fail(buf, size);
+        brv_sampler *s;
+        assert_int_equal(brv_sampler_create(v, 8, &s), BRV_OK);
+        srand(99);
+        double worst = 0.0;
+        for (int k = 0; k < 20000; k++) {
+            double p[3];
+            for (int a = 0; a < 3; a++) {
+                double span = d.bounds_max[a] - d.bounds_min[a];
+                /* stay between the first and last sample positions, where no clamping happens */
+                double lo = kind == BRV_GRID_WORLD ? 0.5 * span / d.cells[a] : 0.0;
+                p[a] = d.bounds_min[a] + lo + (span - 2 * lo) * rand() / (double)RAND_MAX;
+            }
+            float out[2];
+            assert_int_equal(brv_sample_world(s, p, out), BRV_OK);
+            double want0 = lin_world(0, p[0], p[1], p[2]), want1 = lin_world(1, p[0], p[1], p[2]);
+            /* f32: float rounding of the stored values and weights only. */
+            assert_near(out[0], want0, 1e-5, 1e-5);
+            /* f16: the weights sum to one, so the bound of the largest corner applies. */
+            double bound = f16_bound(fabs(want1) + 3.0, 0) + 1e-5;
+            assert_near(out[1], want1, bound, 0);
+            worst = fmax(worst, fabs(out[1] - want1) / bound);
+        }
+        print_message("%s: worst f16 sample error / bound %.3f\n", kind == BRV_GRID_WORLD ? "world" : "probes", worst);
+        /* Outside: clamp to the edge value. */
+        double far[3] = {-100, -100, -100};
+        float out[2], corner[2];
+        assert_int_equal(brv_sample_world(s, far, out), BRV_OK);
+        assert_int_equal(brv_sample_world(s, d.bounds_min, corner), BRV_OK);
+        assert_true(out[0] == corner[0]);
+        assert_true(out[0] == lin_field(0, 0, 0, 0, &d));
+        double nanp[3] = {NAN, 0, 0};
+        assert_int_equal(brv_sample_world(s, nanp, out), BRV_E_ARGUMENT);
+        assert_int_equal(brv_sample_frustum(s, 1, 1, 1, out), BRV_E_ARGUMENT);
+        brv_sampler_free(s);
+        brv_free(v);
+        free(buf);
+    }
+}
+
+static float frustum_field(uint32_t c, uint32_t x, uint32_t y, uint32_t z, void *user)
+{
+    const double *depth = user;
+    double mid = 0.5 * (depth[z] + depth[z + 1]);
+    return (float)(c + 0.5 * (x + 0.5) + 0.25 * (y + 0.5) + 0.1 * mid);
+}
+
+static void frustum_sampling_should_interpolate_pixels_and_depth(void **state)
+{
+    (void)state;
+    brv_channel_desc ch[1] = {{"transmittance", "", BRV_ENCODING_F32}};
+    double depth[21];
+    for (int k = 0; k <= 20; k++) depth[k] = 0.3 * pow(120.0 / 0.3, k / 20.0); /* exponential slices */
+    brv_write_desc d = fixture_world(16, 9, 20, ch, 1);
+    d.kind = BRV_GRID_FRUSTUM;
+    d.slice_depths = depth;
+    d.camera = (brv_camera){{0, 1, 0}, {0, 1, -1}, {0, 1, 0}, 60, 16.0 / 9.0, 0.3, 120};
+    size_t size;
+    uint8_t *buf = write_or_fail(&d, frustum_field, depth, &size);
+    brv_volume *v = open_or_fail(buf, size);
+    const brv_grid_info *g = brv_grid(v);
+    assert_non_null(g->slice_depths);
+    assert_true(g->slice_depths[20] == 120.0 && g->camera.fov_y_deg == 60.0);
+    brv_sampler *s;
+    assert_int_equal(brv_sampler_create(v, 0, &s), BRV_OK);
+    float out;
+    /* At a froxel's centre pixel and middle depth: its own value. */
+    assert_int_equal(brv_sample_frustum(s, 3.5, 2.5, 0.5 * (depth[7] + depth[8]), &out), BRV_OK);
+    assert_near(out, frustum_field(0, 3, 2, 7, depth), 1e-5, 0);
+    /* Linear in pixel and in depth between two middles: exact (affine in every variable). */
+    srand(5);
+    for (int k = 0; k < 5000; k++) {
+        double px = 0.5 + 15.0 * rand() / RAND_MAX, py = 0.5 + 8.0 * rand() / RAND_MAX;
+        double dd = 0.5 * (depth[0] + depth[1]) + (0.5 * (depth[19] + depth[20]) - 0.5 * (depth[0] + depth[1])) * rand() / RAND_MAX;
+        assert_int_equal(brv_sample_frustum(s, px, py, dd, &out), BRV_OK);
+        assert_near(out, 0.5 * px + 0.25 * py + 0.1 * dd, 1e-4, 1e-5);
+    }
+    brv_sampler_free(s);
+    brv_free(v);
+    free(buf);
+}
+
+/* ---- threads --------------------------------------------------------------------------- */
+
+typedef struct job {
+    const brv_volume *v;
+    uint32_t first, step;
+    float *out;
+    brv_result r;
+} job;
+
+static void *decode_job(void *arg)
+{
+    job *j = arg;
+    brv_decoder *dec;
+    j->r = brv_decoder_create(j->v, &dec);
+    size_t per = brv_brick_size(j->v);
+    for (uint32_t b = j->first; j->r == BRV_OK && b < brv_grid(j->v)->brick_count; b += j->step)
+        j->r = brv_decode_brick(j->v, dec, b, j->out + (size_t)b * per, per);
+    brv_decoder_free(dec);
+    return NULL;
+}
+
+static void distinct_bricks_should_decode_from_two_threads_at_once(void **state)
+{
+    (void)state;
+    brv_channel_desc ch[2] = {{"a", "", BRV_ENCODING_F16}, {"b", "", BRV_ENCODING_F32}};
+    brv_write_desc d = fixture_world(48, 40, 33, ch, 2);
+    size_t size;
+    uint8_t *buf = write_or_fail(&d, fixture_smooth, NULL, &size);
+    brv_volume *v = open_or_fail(buf, size);
+    size_t total = brv_brick_size(v) * brv_grid(v)->brick_count;
+    float *one = calloc(total, sizeof(float)), *two = calloc(total, sizeof(float));
+    job j0 = {v, 0, 1, one, BRV_OK};
+    decode_job(&j0);
+    job a = {v, 0, 2, two, BRV_OK}, b = {v, 1, 2, two, BRV_OK};
+    pthread_t ta, tb;
+    pthread_create(&ta, NULL, decode_job, &a);
+    pthread_create(&tb, NULL, decode_job, &b);
+    pthread_join(ta, NULL);
+    pthread_join(tb, NULL);
+    assert_int_equal(j0.r, BRV_OK);
+    assert_int_equal(a.r, BRV_OK);
+    assert_int_equal(b.r, BRV_OK);
+    assert_memory_equal(one, two, total * sizeof(float));
+    free(one);
+    free(two);
+    brv_free(v);
+    free(buf);
+}
+
+static void result_texts_should_come_from_one_list(void **state)
+{
+    (void)state;
+    for (int r = 0; r < BRV_RESULT_MAX_ENUM; r++) {
+        const char *t = brv_result_text((brv_result)r);
+        assert_true(t && *t);
+        for (int q = 0; q < r; q++) assert_string_not_equal(t, brv_result_text((brv_result)q));
+    }
+    assert_string_equal(brv_result_text(BRV_E_BRICK_CORRUPT), "brick data corrupt (zstd or checksum)");
+    assert_string_equal(brv_result_text((brv_result)999), "unknown result");
+}
+
+int main(int argc, char **argv)
+{
+    golden_path = argc > 1 ? argv[1] : "golden_v1.brv";
+    const struct CMUnitTest tests[] = {
+        cmocka_unit_test(roundtrip_should_return_same_floats_for_f32),
+        cmocka_unit_test(roundtrip_should_return_same_halves_for_f16),
+        cmocka_unit_test(f16_and_rgb9e5_should_scale_bright_values_within_bound),
+        cmocka_unit_test(writer_should_refuse_unrepresentable_values),
+        cmocka_unit_test(writer_should_refuse_bad_descriptions_with_a_reason),
+        cmocka_unit_test(writer_should_insist_on_every_brick_once),
+        cmocka_unit_test(uniform_bricks_should_cost_bytes_not_kilobytes),
+        cmocka_unit_test(smooth_f16_should_compress_over_4x_against_raw_halves),
+        cmocka_unit_test(writer_should_give_the_same_bytes_for_the_same_input),
+        cmocka_unit_test(open_should_reject_every_truncation),
+        cmocka_unit_test(open_should_reject_random_byte_flips),
+        cmocka_unit_test(open_should_refuse_hostile_tables_before_allocating),
+        cmocka_unit_test(reader_should_skip_a_newer_minors_unknown_encoding),
+        cmocka_unit_test(golden_file_should_read_and_be_reproduced_byte_for_byte),
+        cmocka_unit_test(sampling_should_match_direct_evaluation_within_encoding_bound),
+        cmocka_unit_test(frustum_sampling_should_interpolate_pixels_and_depth),
+        cmocka_unit_test(distinct_bricks_should_decode_from_two_threads_at_once),
+        cmocka_unit_test(result_texts_should_come_from_one_list),
+    };
+    return cmocka_run_group_tests(tests, NULL, NULL);
+}

@@ -1,0 +1,147 @@
+/* Word codecs of the .brv format against outside references: IEEE 754 binary16, RGB9E5 of
+ * EXT_texture_shared_exponent, CRC-32, and the lossless filters. */
+#include <stdlib.h>
+
+#include "check.h"
+#include "volume/brv_internal.h"
+
+/* Source: IEEE Std 754-2008 binary16 (1 sign, 5 exponent bits bias 15, 10 fraction bits,
+ * round to nearest, ties to even); values as Python's struct 'e' format gives them
+ * (REFERENCES.md §9 table). */
+static void f16_should_match_ieee754_check_values(void **state)
+{
+    (void)state;
+    struct {
+        float in;
+        uint16_t bits;
+    } t[] = {
+        {0.0f, 0x0000},          {-0.0f, 0x8000},        {1.0f, 0x3C00},
+        {-2.0f, 0xC000},         {0.5f, 0x3800},         {0.1f, 0x2E66},
+        {1.0f / 3.0f, 0x3555},   {65504.0f, 0x7BFF},     {65519.0f, 0x7BFF},
+        {65520.0f, 0x7C00},      /* 65504 + half an ULP ties to even: infinity */
+        {6.103515625e-5f, 0x0400}, /* 2^-14, the smallest normal */
+        {5.9604644775390625e-8f, 0x0001}, /* 2^-24, the smallest subnormal */
+        {2.98023223876953125e-8f, 0x0000}, /* 2^-25, an exact tie: to even 0 */
+        {4.470348358154297e-8f, 0x0001}, /* 3·2^-26: above the half */
+        {8.940696716308594e-8f, 0x0002}, /* 3·2^-25 = 1.5·2^-24: tie between 1 and 2 → even 2 */
+        {1.00048828125f, 0x3C00}, /* 1 + 2^-11: tie, to even (down) */
+        {1.00146484375f, 0x3C02}, /* 1 + 3·2^-11: tie, to even (up) */
+        {2049.0f, 0x6800},       {2051.0f, 0x6802},      {INFINITY, 0x7C00},
+        {-INFINITY, 0xFC00},
+    };
+    for (size_t i = 0; i < sizeof t / sizeof t[0]; i++) {
+        uint16_t h = brv_f32_to_f16(t[i].in);
+        if (h != t[i].bits) print_error("f16(%.9g) = 0x%04X, expected 0x%04X\n", (double)t[i].in, h, t[i].bits);
+        assert_int_equal(h, t[i].bits);
+    }
+    /* Source: the same table's decoded column. */
+    assert_true(brv_f16_to_f32(0x2E66) == 0.0999755859375f);
+    assert_true(brv_f16_to_f32(0x03FF) == 6.097555160522461e-5f); /* largest subnormal */
+    assert_true(brv_f16_to_f32(0x6802) == 2052.0f);
+    assert_true(isnan(brv_f16_to_f32(brv_f32_to_f16(NAN))));
+}
+
+/* Every binary16 value survives decode → encode (the two are inverse on representable values;
+ * a property of any correct implementation of IEEE 754 rounding, no outside value needed). */
+static void f16_should_round_trip_every_finite_half(void **state)
+{
+    (void)state;
+    for (uint32_t h = 0; h < 0x10000u; h++) {
+        if ((h & 0x7C00u) == 0x7C00u && (h & 0x3FFu)) continue; /* NaN payloads */
+        assert_int_equal(brv_f32_to_f16(brv_f16_to_f32((uint16_t)h)), h);
+    }
+}
+
+/* Source: EXT_texture_shared_exponent conversion (N = 9, B = 15, Emax = 31), worked examples
+ * of REFERENCES.md §9 computed by that algorithm. */
+static void rgb9e5_should_match_worked_examples(void **state)
+{
+    (void)state;
+    struct {
+        float r, g, b;
+        uint32_t packed;
+        float dr, dg, db;
+    } t[] = {
+        {1, 1, 1, 0x84020100u, 1, 1, 1},
+        {1, 0.5f, 0.25f, 0x81010100u, 1, 0.5f, 0.25f},
+        {0.1f, 0.2f, 0.3f, 0x74CD9A66u, 0.099609375f, 0.2001953125f, 0.2998046875f},
+        {1.998046875f, 0, 0, 0x88000100u, 2, 0, 0}, /* max rounds to 512: exponent bumps */
+        {65408, 0, 0, 0xF80001FFu, 65408, 0, 0},
+        {1e9f, 0, 0, 0xF80001FFu, 65408, 0, 0},     /* the codec clamps; the writer scales first */
+        {1, 0.001f, 0, 0x80000100u, 1, 0, 0},       /* green flushes to 0 */
+        {5.9604644775390625e-8f, 0, 0, 0x00000001u, 5.9604644775390625e-8f, 0, 0},
+        {0, 0, 0, 0, 0, 0, 0},
+    };
+    for (size_t i = 0; i < sizeof t / sizeof t[0]; i++) {
+        uint32_t p = brv_rgb9e5_pack(t[i].r, t[i].g, t[i].b);
+        if (p != t[i].packed) print_error("row %zu: 0x%08X, expected 0x%08X\n", i, p, t[i].packed);
+        assert_int_equal(p, t[i].packed);
+        float r, g, b;
+        brv_rgb9e5_unpack(p, &r, &g, &b);
+        assert_true(r == t[i].dr && g == t[i].dg && b == t[i].db);
+    }
+}
+
+/* Bound of the rgb9e5 rounding (derived in brv.h from the specification's quantum): each
+ * component is within max(m/511, 2^-25) of the input, m the largest component. */
+static void rgb9e5_error_should_stay_within_bound(void **state)
+{
+    (void)state;
+    srand(7);
+    for (int i = 0; i < 200000; i++) {
+        float v[3];
+        float mag = ldexpf(1.0f, rand() % 40 - 24);
+        for (int k = 0; k < 3; k++) v[k] = mag * (float)rand() / (float)RAND_MAX;
+        uint32_t p = brv_rgb9e5_pack(v[0], v[1], v[2]);
+        float d[3];
+        brv_rgb9e5_unpack(p, &d[0], &d[1], &d[2]);
+        float m = fmaxf(v[0], fmaxf(v[1], v[2]));
+        double bound = fmax(m / 511.0, ldexp(1.0, -25));
+        for (int k = 0; k < 3; k++) assert_true(fabs((double)d[k] - v[k]) <= bound);
+    }
+}
+
+/* Source: the CRC catalogue's check value for CRC-32/ISO-HDLC (zlib crc32): "123456789" →
+ * 0xCBF43926; the empty string → 0. */
+static void crc32_should_match_check_value(void **state)
+{
+    (void)state;
+    assert_int_equal(brv_crc32(0, "123456789", 9), 0xCBF43926u);
+    assert_int_equal(brv_crc32(0, "", 0), 0);
+    /* Continuation: crc(a‖b) = crc32(crc(a), b), for any split (slice-by-8 and byte paths). */
+    const char *s = "the quick brown fox jumps over the lazy dog, twice over";
+    size_t n = strlen(s);
+    uint32_t whole = brv_crc32(0, s, n);
+    for (size_t k = 0; k <= n; k++) assert_int_equal(brv_crc32(brv_crc32(0, s, k), s + k, n - k), whole);
+}
+
+static void filters_should_be_lossless(void **state)
+{
+    (void)state;
+    enum { NX = 7, N = 7 * 5 };
+    uint8_t w[N * 4], orig[N * 4], sh[N * 4], back[N * 4];
+    for (unsigned wb = 2; wb <= 4; wb += 2) {
+        for (int i = 0; i < N * 4; i++) orig[i] = w[i] = (uint8_t)(i * 37 + 11);
+        brv_delta_encode(w, N, wb, NX);
+        /* first word of each row is kept */
+        for (int row = 0; row < N; row += NX) assert_memory_equal(w + row * wb, orig + row * wb, wb);
+        brv_shuffle(w, sh, N, wb);
+        assert_int_equal(sh[1], w[wb]); /* plane 0 holds byte 0 of word 1 at index 1 */
+        brv_unshuffle(sh, back, N, wb);
+        brv_delta_decode(back, N, wb, NX);
+        assert_memory_equal(back, orig, N * wb);
+    }
+}
+
+int main(void)
+{
+    const struct CMUnitTest tests[] = {
+        cmocka_unit_test(f16_should_match_ieee754_check_values),
+        cmocka_unit_test(f16_should_round_trip_every_finite_half),
+        cmocka_unit_test(rgb9e5_should_match_worked_examples),
+        cmocka_unit_test(rgb9e5_error_should_stay_within_bound),
+        cmocka_unit_test(crc32_should_match_check_value),
+        cmocka_unit_test(filters_should_be_lossless),
+    };
+    return cmocka_run_group_tests(tests, NULL, NULL);
+}
