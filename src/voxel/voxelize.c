@@ -201,6 +201,9 @@ typedef struct vox {
     /* per z-slice lists of triangles (CSR) */
     uint32_t *slice_start;
     uint32_t *slice_tris;
+    /* frustum: triangles clipped to the near plane, in warped coordinates (see below) */
+    brm_vec3 (*wtris)[3];
+    uint32_t wtri_count;
 } vox;
 
 static brm_aabb cell_box(const brm_grid *g, uint32_t i, uint32_t j, uint32_t k)
@@ -324,14 +327,12 @@ static void fraction_slice(void *ctx, uint32_t k, int worker)
                 v->fraction[idx] = 0.0f;
                 continue;
             }
-            brm_vec3 size = brm_sub(b.max, b.min);
             int count = 0;
             for (int c = 0; c < BRM_OCC_SUB; c++)
                 for (int bb = 0; bb < BRM_OCC_SUB; bb++)
                     for (int a = 0; a < BRM_OCC_SUB; a++) {
-                        brm_vec3 p = brm_add(b.min, brm_mul(size, brm_v3((a + 0.5) / BRM_OCC_SUB,
-                                                                         (bb + 0.5) / BRM_OCC_SUB,
-                                                                         (c + 0.5) / BRM_OCC_SUB)));
+                        brm_vec3 p = brm_grid_point(g, i + (a + 0.5) / BRM_OCC_SUB, j + (bb + 0.5) / BRM_OCC_SUB,
+                                                    k + (c + 0.5) / BRM_OCC_SUB);
                         int in = 0;
                         for (uint32_t q = 0; q < nn && !in; q++) in = in_primitive(&s->objects[near[q]], p);
                         if (!in && !near && x->prim_count) in = brm_solid_index_query(x, p);
@@ -396,7 +397,204 @@ void brm_occupancy_free(brm_occupancy *o)
     o->fraction = NULL;
 }
 
-static brm_status voxelize_world(const brm_scene *s, const brm_grid *g, int threads, brm_occupancy *out,
+/* ---- frustum grids ---------------------------------------------------------------------
+ *
+ * A froxel is not a box in world space, but the projective map of view space
+ *   (X, Y, Z) → (fi, fj, w) = ((X/(Z·tan_x) + 1)·nx/2, (Y/(Z·tan_y) + 1)·ny/2, 1/Z),  Z > 0,
+ * sends planes to planes and segments to segments, so a triangle (clipped to Z >= near) stays a
+ * triangle, and froxel (i, j, k) becomes the axis-aligned box [i, i+1] × [j, j+1] ×
+ * [1/d_{k+1}, 1/d_k]. The separating-axis test is exact there. Boxes are voxelized through
+ * their own triangles (their surface is exactly those triangles, so this is exact too);
+ * spheres by the exact distance from the centre to the froxel, a convex hexahedron. */
+
+static brm_vec3 to_view(const brm_grid *g, brm_vec3 p)
+{
+    brm_vec3 d = brm_sub(p, g->cam.position);
+    return brm_v3(brm_dot(d, g->right), brm_dot(d, g->up), brm_dot(d, g->fwd));
+}
+
+static brm_vec3 warp(const brm_grid *g, brm_vec3 q)
+{
+    return brm_v3((q.x / (q.z * g->tan_half_x) + 1.0) * 0.5 * g->n[0],
+                  (q.y / (q.z * g->tan_half_y) + 1.0) * 0.5 * g->n[1], 1.0 / q.z);
+}
+
+/* Slice holding view depth z, clamped to [0, nz − 1]. */
+static uint32_t slice_of(const brm_grid *g, double z)
+{
+    uint32_t lo = 0, hi = g->n[2];
+    while (hi - lo > 1) {
+        uint32_t mid = lo + (hi - lo) / 2;
+        if (g->slice_depths[mid] <= z) lo = mid;
+        else hi = mid;
+    }
+    return lo;
+}
+
+/* Clips triangle t (view space) to Z >= near and appends its warped pieces (0, 1 or 2). */
+static uint32_t clip_and_warp(const brm_grid *g, const brm_vec3 t[3], brm_vec3 out[2][3])
+{
+    brm_vec3 poly[4];
+    int n = 0;
+    double zn = g->cam.near;
+    for (int a = 0; a < 3; a++) {
+        brm_vec3 p = t[a], q = t[(a + 1) % 3];
+        int pin = p.z >= zn, qin = q.z >= zn;
+        if (pin) poly[n++] = p;
+        if (pin != qin) {
+            double u = (zn - p.z) / (q.z - p.z);
+            brm_vec3 x = brm_madd(p, brm_sub(q, p), u);
+            x.z = zn;
+            poly[n++] = x;
+        }
+    }
+    if (n < 3) return 0;
+    brm_vec3 w[4];
+    for (int a = 0; a < n; a++) w[a] = warp(g, poly[a]);
+    out[0][0] = w[0];
+    out[0][1] = w[1];
+    out[0][2] = w[2];
+    if (n == 3) return 1;
+    out[1][0] = w[0];
+    out[1][1] = w[2];
+    out[1][2] = w[3];
+    return 2;
+}
+
+static const int hex_faces[6][4] = {{0, 2, 6, 4}, {1, 3, 7, 5}, {0, 1, 5, 4}, {2, 3, 7, 6}, {0, 1, 3, 2}, {4, 5, 7, 6}};
+
+static double seg_dist2(brm_vec3 p, brm_vec3 a, brm_vec3 b)
+{
+    brm_vec3 ab = brm_sub(b, a);
+    double l2 = brm_dot(ab, ab);
+    double t = l2 > 0 ? brm_clamp(brm_dot(brm_sub(p, a), ab) / l2, 0.0, 1.0) : 0.0;
+    brm_vec3 d = brm_sub(p, brm_madd(a, ab, t));
+    return brm_dot(d, d);
+}
+
+/* Squared distance from p to the convex hexahedron with corners c[8] (bit 0 = i, 1 = j,
+ * 2 = k); 0 inside. Outside, the nearest point lies on a face: a face's nearest point is the
+ * projection when that falls inside the (planar, convex) quad, else on one of its edges. */
+static double hex_dist2(const brm_vec3 c[8], brm_vec3 p)
+{
+    brm_vec3 centroid = {0, 0, 0};
+    for (int q = 0; q < 8; q++) centroid = brm_add(centroid, brm_scale(c[q], 0.125));
+    int inside = 1;
+    double best = HUGE_VAL;
+    for (int f = 0; f < 6; f++) {
+        brm_vec3 v[4];
+        for (int q = 0; q < 4; q++) v[q] = c[hex_faces[f][q]];
+        brm_vec3 n = brm_norm(brm_cross(brm_sub(v[2], v[0]), brm_sub(v[3], v[1])));
+        if (brm_dot(n, brm_sub(centroid, v[0])) > 0) n = brm_scale(n, -1.0);   /* outward */
+        double sd = brm_dot(n, brm_sub(p, v[0]));
+        if (sd > 0) inside = 0;
+        brm_vec3 proj = brm_madd(p, n, -sd);
+        /* Inside the quad: on the same side of all four edges as the quad's own turn. */
+        brm_vec3 turn = brm_cross(brm_sub(v[1], v[0]), brm_sub(v[2], v[0]));
+        int in_quad = 1;
+        for (int q = 0; q < 4 && in_quad; q++)
+            in_quad = brm_dot(brm_cross(brm_sub(v[(q + 1) % 4], v[q]), brm_sub(proj, v[q])), turn) >= 0;
+        double d2 = in_quad ? sd * sd : HUGE_VAL;
+        if (!in_quad)
+            for (int q = 0; q < 4; q++) d2 = fmin(d2, seg_dist2(p, v[q], v[(q + 1) % 4]));
+        best = fmin(best, d2);
+    }
+    return inside ? 0.0 : best;
+}
+
+static void surface_slice_frustum(void *ctx, uint32_t k, int worker)
+{
+    (void)worker;
+    vox *v = ctx;
+    const brm_grid *g = v->g;
+    const brm_scene *s = v->s;
+    double w0 = 1.0 / g->slice_depths[k + 1], w1 = 1.0 / g->slice_depths[k];
+    for (uint32_t q = v->slice_start[k]; q < v->slice_start[k + 1]; q++) {
+        const brm_vec3 *tv = v->wtris[v->slice_tris[q]];
+        brm_vec3 lo = brm_vmin(tv[0], brm_vmin(tv[1], tv[2])), hi = brm_vmax(tv[0], brm_vmax(tv[1], tv[2]));
+        if (hi.z < w0 || lo.z > w1) continue;
+        double fi0 = floor(lo.x) - 1, fi1 = floor(hi.x) + 1, fj0 = floor(lo.y) - 1, fj1 = floor(hi.y) + 1;
+        if (fi1 < 0 || fj1 < 0 || fi0 > g->n[0] - 1.0 || fj0 > g->n[1] - 1.0) continue;
+        uint32_t i0 = fi0 < 0 ? 0 : (uint32_t)fi0, j0 = fj0 < 0 ? 0 : (uint32_t)fj0;
+        uint32_t i1 = fi1 > g->n[0] - 1.0 ? g->n[0] - 1 : (uint32_t)fi1;
+        uint32_t j1 = fj1 > g->n[1] - 1.0 ? g->n[1] - 1 : (uint32_t)fj1;
+        for (uint32_t j = j0; j <= j1; j++)
+            for (uint32_t i = i0; i <= i1; i++) {
+                uint8_t *st = &v->state[brm_grid_index(g, i, j, k)];
+                if (*st != BRM_CELL_EMPTY) continue;
+                brm_vec3 c = brm_v3(i + 0.5, j + 0.5, 0.5 * (w0 + w1)), h = brm_v3(0.5, 0.5, 0.5 * (w1 - w0));
+                if (brm_tri_box_overlap(c, h, tv)) *st = BRM_CELL_SURFACE;
+            }
+    }
+    for (uint32_t oi = 0; oi < s->object_count; oi++) {
+        const brm_object *o = &s->objects[oi];
+        if (o->shape != BRM_SHAPE_SPHERE) continue;
+        double r2 = o->radius * o->radius;
+        for (uint32_t j = 0; j < g->n[1]; j++)
+            for (uint32_t i = 0; i < g->n[0]; i++) {
+                uint8_t *st = &v->state[brm_grid_index(g, i, j, k)];
+                if (*st == BRM_CELL_INTERIOR) continue;
+                brm_vec3 c[8];
+                brm_aabb b = brm_aabb_empty();
+                for (int q = 0; q < 8; q++) {
+                    c[q] = brm_grid_point(g, i + (q & 1), j + (q >> 1 & 1), k + (q >> 2 & 1));
+                    brm_aabb_grow(&b, c[q]);
+                }
+                if (!brm_aabb_overlaps(b, o->bounds)) continue;
+                if (!(hex_dist2(c, o->center) < r2)) continue;
+                int all_in = 1;
+                for (int q = 0; q < 8 && all_in; q++) {
+                    brm_vec3 dd = brm_sub(c[q], o->center);
+                    all_in = brm_dot(dd, dd) <= r2;
+                }
+                raise_state(st, all_in ? BRM_CELL_INTERIOR : BRM_CELL_SURFACE);
+            }
+    }
+}
+
+/* Fills v->wtris and the per-slice lists for a frustum grid. */
+static brm_status bin_frustum(vox *v, brm_diag *d)
+{
+    const brm_grid *g = v->g;
+    const brm_scene *s = v->s;
+    v->wtris = malloc(sizeof *v->wtris * 2 * ((size_t)s->tri_count + 1));
+    if (!v->wtris) return brm_diag_error(d, BRM_E_NOMEM, "voxelizer: cannot allocate %u triangles", s->tri_count);
+    uint32_t n = 0;
+    for (uint32_t t = 0; t < s->tri_count; t++) {
+        brm_vec3 q[3];
+        for (int a = 0; a < 3; a++) q[a] = to_view(g, s->tris[t].v[a]);
+        n += clip_and_warp(g, q, &v->wtris[n]);
+    }
+    v->wtri_count = n;
+    uint64_t total = 0;
+    for (int pass = 0; pass < 2; pass++) {
+        for (uint32_t t = 0; t < n; t++) {
+            const brm_vec3 *w = v->wtris[t];
+            double wlo = fmin(w[0].z, fmin(w[1].z, w[2].z)), whi = fmax(w[0].z, fmax(w[1].z, w[2].z));
+            if (1.0 / whi > g->cam.far) continue;
+            uint32_t k0 = slice_of(g, 1.0 / whi), k1 = slice_of(g, 1.0 / wlo);
+            if (k0 > 0) k0--;
+            if (k1 + 1 < g->n[2]) k1++;
+            for (uint32_t k = k0; k <= k1; k++) {
+                if (pass == 0) v->slice_start[k + 1]++;
+                else v->slice_tris[v->slice_start[k]++] = t;
+            }
+            if (pass == 0) total += k1 - k0 + 1;
+        }
+        if (pass == 0) {
+            BRM_CHECK(d, total <= UINT32_MAX, BRM_E_BUDGET, "voxelizer: %llu triangle-slice pairs, too many",
+                      (unsigned long long)total);
+            for (uint32_t k = 0; k < g->n[2]; k++) v->slice_start[k + 1] += v->slice_start[k];
+            v->slice_tris = malloc(sizeof *v->slice_tris * (total ? total : 1));
+            if (!v->slice_tris) return brm_diag_error(d, BRM_E_NOMEM, "voxelizer: cannot allocate the slice lists");
+        }
+    }
+    for (uint32_t k = g->n[2]; k > 0; k--) v->slice_start[k] = v->slice_start[k - 1];
+    v->slice_start[0] = 0;
+    return BRM_OK;
+}
+
+static brm_status voxelize_grid(const brm_scene *s, const brm_grid *g, int threads, brm_occupancy *out,
                                  brm_diag *d)
 {
     size_t cells = brm_grid_cells(g), fbytes;
@@ -419,41 +617,46 @@ static brm_status voxelize_world(const brm_scene *s, const brm_grid *g, int thre
     if ((st = brm_solid_index_build(s, &solid, d)) != BRM_OK) goto fail;
     v.solid = solid;
 
-    /* Triangles per z-slice (boxes are done analytically: skip their triangles). */
-    uint64_t total = 0;
-    for (int pass = 0; pass < 2; pass++) {
-        for (uint32_t t = 0; t < s->tri_count; t++) {
-            const brm_tri *tr = &s->tris[t];
-            if (s->objects[tr->object].shape == BRM_SHAPE_BOX) continue;
-            double z0 = fmin(tr->v[0].z, fmin(tr->v[1].z, tr->v[2].z));
-            double z1 = fmax(tr->v[0].z, fmax(tr->v[1].z, tr->v[2].z));
-            uint32_t k0, k1;
-            if (!axis_range(g, 2, z0, z1, &k0, &k1)) continue;
-            for (uint32_t k = k0; k <= k1; k++) {
-                if (pass == 0) v.slice_start[k + 1]++;
-                else v.slice_tris[v.slice_start[k]++] = t;
+    if (g->kind == BRM_GRID_FRUSTUM) {
+        if ((st = bin_frustum(&v, d)) != BRM_OK) goto fail;
+    } else {
+        /* Triangles per z-slice (boxes are done analytically: skip their triangles). */
+        uint64_t total = 0;
+        for (int pass = 0; pass < 2; pass++) {
+            for (uint32_t t = 0; t < s->tri_count; t++) {
+                const brm_tri *tr = &s->tris[t];
+                if (s->objects[tr->object].shape == BRM_SHAPE_BOX) continue;
+                double z0 = fmin(tr->v[0].z, fmin(tr->v[1].z, tr->v[2].z));
+                double z1 = fmax(tr->v[0].z, fmax(tr->v[1].z, tr->v[2].z));
+                uint32_t k0, k1;
+                if (!axis_range(g, 2, z0, z1, &k0, &k1)) continue;
+                for (uint32_t k = k0; k <= k1; k++) {
+                    if (pass == 0) v.slice_start[k + 1]++;
+                    else v.slice_tris[v.slice_start[k]++] = t;
+                }
+                if (pass == 0) total += k1 - k0 + 1;
             }
-            if (pass == 0) total += k1 - k0 + 1;
+            if (pass == 0) {
+                if (total > UINT32_MAX) {
+                    st = brm_diag_error(d, BRM_E_BUDGET, "voxelizer: %llu triangle-slice pairs, too many",
+                                        (unsigned long long)total);
+                    goto fail;
+                }
+                for (uint32_t k = 0; k < g->n[2]; k++) v.slice_start[k + 1] += v.slice_start[k];
+                v.slice_tris = malloc(sizeof *v.slice_tris * (total ? total : 1));
+                if (!v.slice_tris) {
+                    st = brm_diag_error(d, BRM_E_NOMEM, "voxelizer: cannot allocate the slice lists");
+                    goto fail;
+                }
+            }
         }
-        if (pass == 0) {
-            if (total > UINT32_MAX) {
-                st = brm_diag_error(d, BRM_E_BUDGET, "voxelizer: %llu triangle-slice pairs, too many",
-                                    (unsigned long long)total);
-                goto fail;
-            }
-            for (uint32_t k = 0; k < g->n[2]; k++) v.slice_start[k + 1] += v.slice_start[k];
-            v.slice_tris = malloc(sizeof *v.slice_tris * (total ? total : 1));
-            if (!v.slice_tris) {
-                st = brm_diag_error(d, BRM_E_NOMEM, "voxelizer: cannot allocate the slice lists");
-                goto fail;
-            }
-        }
+        /* The fill pass advanced each start to the next slice's start: shift back. */
+        for (uint32_t k = g->n[2]; k > 0; k--) v.slice_start[k] = v.slice_start[k - 1];
+        v.slice_start[0] = 0;
     }
-    /* The fill pass advanced each start to the next slice's start: shift back. */
-    for (uint32_t k = g->n[2]; k > 0; k--) v.slice_start[k] = v.slice_start[k - 1];
-    v.slice_start[0] = 0;
 
-    brm_parallel_for(g->n[2], threads, surface_slice, &v, NULL);
+    brm_parallel_for(g->n[2], threads, g->kind == BRM_GRID_FRUSTUM ? surface_slice_frustum : surface_slice, &v,
+                     NULL);
 
     /* Empty components: one query at the first cell of each decides the whole component. */
     size_t cap = 1u << 16;
@@ -478,6 +681,7 @@ static brm_status voxelize_world(const brm_scene *s, const brm_grid *g, int thre
     free(stack);
     free(v.slice_start);
     free(v.slice_tris);
+    free(v.wtris);
     brm_solid_index_free(solid);
     memcpy(out->n, g->n, sizeof out->n);
     out->state = v.state;
@@ -489,14 +693,14 @@ fail:
     free(v.fraction);
     free(v.slice_start);
     free(v.slice_tris);
+    free(v.wtris);
     brm_solid_index_free(solid);
     return st;
 }
 
 brm_status brm_voxelize(const brm_scene *s, const brm_grid *g, int threads, brm_occupancy *out, brm_diag *d)
 {
-    if (g->kind == BRM_GRID_WORLD) return voxelize_world(s, g, threads, out, d);
-    return brm_diag_error(d, BRM_E_INTERNAL,
-                          "voxelizer: grid kind %d is not voxelized yet (world grids only in this version)",
-                          (int)g->kind);
+    BRM_CHECK(d, g->kind == BRM_GRID_WORLD || g->kind == BRM_GRID_FRUSTUM, BRM_E_INTERNAL,
+              "voxelizer: grid kind %d has no cells to voxelize (world and frustum grids only)", (int)g->kind);
+    return voxelize_grid(s, g, threads, out, d);
 }

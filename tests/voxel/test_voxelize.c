@@ -404,6 +404,64 @@ static void point_in_solid_should_agree_with_closed_forms_and_the_index(void **s
     fx_free(&f);
 }
 
+static void frustum_voxelization_should_agree_with_point_classification(void **state)
+{
+    (void)state;
+    fx_scene f;
+    fx_init(&f);
+    /* Camera at the origin looking down −z. A box straddling the near plane (clipping), a
+     * box across the view, an analytic sphere and a triangulated one. */
+    fx_box(&f, brm_v3(-0.6, -0.4, -1.5), brm_v3(0.2, 0.3, 0.1));
+    fx_box(&f, brm_v3(-3, -2.5, -9), brm_v3(1.5, -0.8, -4));
+    fx_sphere(&f, brm_v3(1.2, 0.7, -6), 1.3);
+    fx_uv_sphere(&f, brm_v3(-2.0, 1.4, -11), 1.6, 24);
+    brm_target t;
+    memset(&t, 0, sizeof t);
+    strcpy(t.json_path, "targets[0]");
+    t.grid = BRM_GRID_FRUSTUM;
+    t.camera.position = brm_v3(0, 0, 0);
+    t.camera.look_at = brm_v3(0, 0, -1);
+    t.camera.up = brm_v3(0, 1, 0);
+    t.camera.fov_y_deg = 50;
+    t.camera.aspect = 1.5;
+    t.camera.near = 0.5;
+    t.camera.far = 20;
+    t.cells[0] = 30;
+    t.cells[1] = 20;
+    t.cells[2] = 24;
+    brm_grid g;
+    assert_int_equal(brm_grid_init(&g, &t, NULL), BRM_OK);
+    brm_occupancy o, o2;
+    assert_int_equal(brm_voxelize(&f.s, &g, 1, &o, NULL), BRM_OK);
+    assert_int_equal(brm_voxelize(&f.s, &g, 2, &o2, NULL), BRM_OK);
+    assert_memory_equal(o.state, o2.state, brm_grid_cells(&g));
+    assert_memory_equal(o.fraction, o2.fraction, brm_grid_cells(&g) * sizeof(float));
+    /* Brute force: random points of the view volume, classified by brm_point_in_solid. A point
+     * inside a solid never lies in an empty froxel; a point outside never in an interior one. */
+    uint64_t rng = 2718;
+    int in_interior = 0, out_empty = 0, in_surface = 0, out_surface = 0;
+    for (int n = 0; n < 40000; n++) {
+        double fi = fx_range(&rng, 0, 30), fj = fx_range(&rng, 0, 20), fk = fx_range(&rng, 0, 24);
+        brm_vec3 p = brm_grid_point(&g, fi, fj, fk);
+        uint8_t st = o.state[brm_grid_index(&g, (uint32_t)fi, (uint32_t)fj, (uint32_t)fk)];
+        int in = brm_point_in_solid(&f.s, p);
+        if (in) assert_int_not_equal(st, BRM_CELL_EMPTY);
+        else assert_int_not_equal(st, BRM_CELL_INTERIOR);
+        in_interior += in && st == BRM_CELL_INTERIOR;
+        out_empty += !in && st == BRM_CELL_EMPTY;
+        in_surface += in && st == BRM_CELL_SURFACE;
+        out_surface += !in && st == BRM_CELL_SURFACE;
+    }
+    assert_true(in_interior > 1000);
+    assert_true(out_empty > 10000);
+    assert_true(in_surface > 300);
+    assert_true(out_surface > 300);
+    brm_occupancy_free(&o);
+    brm_occupancy_free(&o2);
+    brm_grid_free(&g);
+    fx_free(&f);
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
@@ -415,6 +473,7 @@ int main(void)
         cmocka_unit_test(voxelize_should_mark_only_the_surface_of_open_meshes),
         cmocka_unit_test(voxelize_should_keep_sealed_air_empty_and_fill_cut_solids),
         cmocka_unit_test(voxelize_should_not_depend_on_thread_count),
+        cmocka_unit_test(frustum_voxelization_should_agree_with_point_classification),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }
