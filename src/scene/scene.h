@@ -213,6 +213,19 @@ brm_status brm_scene_load(const char *path, brm_scene **out, brm_diag *d);
 brm_status brm_scene_load_memory(const char *json, size_t len, const char *path, brm_scene **out,
                                  brm_diag *d);
 
+/* Options for brm_scene_load_ex; a zeroed struct gives brm_scene_load_memory's behaviour. */
+typedef struct brm_scene_load_opts {
+    /* Reads a referenced file (a mesh) whole into a malloc'd buffer (*data, *len; the loader
+     * frees it). Returns 0, or an errno value for the message. NULL reads from disk. Fuzz
+     * harnesses and tests use it to load scenes without touching the disk. */
+    int (*read_file)(void *user, const char *path, char **data, size_t *len);
+    void *user;
+} brm_scene_load_opts;
+
+/* brm_scene_load_memory with options (opts may be NULL). */
+brm_status brm_scene_load_ex(const char *json, size_t len, const char *path, const brm_scene_load_opts *opts,
+                             brm_scene **out, brm_diag *d);
+
 /* Frees a scene; accepts NULL. */
 void brm_scene_free(brm_scene *s);
 
