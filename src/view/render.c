@@ -89,6 +89,7 @@ typedef struct colouring {
     brm_view_mode mode;
     double k;               /* radiance: exposure multiplier */
     double lo, hi;          /* scalar: range; signed: −m..m */
+    uint8_t (*lut)[3];      /* scalar, signed: the map's BRM_COLORMAP_STEPS entries */
 } colouring;
 
 static void colour_of(const colouring *cl, const float *v, uint32_t nc, uint8_t rgb[3])
@@ -106,10 +107,10 @@ static void colour_of(const colouring *cl, const float *v, uint32_t nc, uint8_t 
             rgb[0] = rgb[1] = rgb[2] = brm_srgb_byte(brm_tone(cl->k * v[0]));
         break;
     case BRM_VIEW_MODE_SIGNED:
-        brm_diverging(v[0] / cl->hi, rgb);
+        memcpy(rgb, cl->lut[brm_colormap_entry(0.5 * (v[0] / cl->hi + 1.0))], 3);
         break;
     default:
-        brm_falsecolor((v[0] - cl->lo) / (cl->hi - cl->lo), rgb);
+        memcpy(rgb, cl->lut[brm_colormap_entry((v[0] - cl->lo) / (cl->hi - cl->lo))], 3);
         break;
     }
 }
@@ -281,13 +282,27 @@ static brm_status make_ppm(const brm_view_input *in, const brm_view_options *opt
         H += legend_h;
     }
 
+    uint8_t (*lut)[3] = NULL;
+    if (cl.mode != BRM_VIEW_MODE_RADIANCE) {
+        lut = malloc(sizeof *lut * BRM_COLORMAP_STEPS);
+        BRM_CHECK(d, lut != NULL, BRM_E_NOMEM, "out of memory");
+        for (uint32_t e = 0; e < BRM_COLORMAP_STEPS; e++) {
+            if (cl.mode == BRM_VIEW_MODE_SIGNED) brm_diverging_entry(e, lut[e]);
+            else brm_falsecolor_entry(e, lut[e]);
+        }
+        cl.lut = lut;
+    }
     brm_image im = {0, 0, NULL};
     st = brm_image_alloc(&im, W, H, BG, d);
-    if (st != BRM_OK) return st;
+    if (st != BRM_OK) {
+        free(lut);
+        return st;
+    }
     size_t plane = (size_t)sh->w * sh->h;
     uint8_t *tile = malloc(plane * 3);
     if (tile == NULL) {
         brm_image_free(&im);
+        free(lut);
         return brm_diag_error(d, BRM_E_NOMEM, "out of memory");
     }
     for (uint32_t t = 0; t < sh->count; t++) {
@@ -326,6 +341,7 @@ static brm_status make_ppm(const brm_view_input *in, const brm_view_options *opt
         if (mid_s[0]) brm_font_draw(&im, ((int64_t)W - brm_font_width(mid_s, fs)) / 2, y, mid_s, fs, INK);
     }
 
+    free(lut);
     st = brm_ppm_encode(&im, &res->bytes, &res->len, d);
     brm_image_free(&im);
     if (st != BRM_OK) return st;

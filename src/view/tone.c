@@ -134,10 +134,17 @@ static const double FOG_MAP[][3] = {
     {1.00, 4.0, 12.0},     /* warm white */
 };
 
-void brm_falsecolor(double t, uint8_t rgb[3])
+uint32_t brm_colormap_entry(double t)
 {
-    if (!(t > 0.0)) t = 0.0;
-    if (t > 1.0) t = 1.0;
+    if (!(t > 0.0)) return 0;
+    if (t >= 1.0) return BRM_COLORMAP_STEPS - 1;
+    return (uint32_t)lround(t * (BRM_COLORMAP_STEPS - 1));
+}
+
+void brm_falsecolor_entry(uint32_t e, uint8_t rgb[3])
+{
+    if (e > BRM_COLORMAP_STEPS - 1) e = BRM_COLORMAP_STEPS - 1;
+    double t = (double)e / (BRM_COLORMAP_STEPS - 1);
     size_t n = sizeof FOG_MAP / sizeof FOG_MAP[0], i = 0;
     while (i + 2 < n && t > FOG_MAP[i + 1][0]) i++;
     double u = (t - FOG_MAP[i][0]) / (FOG_MAP[i + 1][0] - FOG_MAP[i][0]);
@@ -146,14 +153,21 @@ void brm_falsecolor(double t, uint8_t rgb[3])
     lab_to_srgb8(14.0 + 83.0 * t, a, b, rgb);
 }
 
-void brm_diverging(double s, uint8_t rgb[3])
+void brm_diverging_entry(uint32_t e, uint8_t rgb[3])
 {
-    if (isnan(s)) s = 0.0;
-    if (s < -1.0) s = -1.0;
-    if (s > 1.0) s = 1.0;
+    if (e > BRM_COLORMAP_STEPS - 1) e = BRM_COLORMAP_STEPS - 1;
+    double s = 2.0 * (double)e / (BRM_COLORMAP_STEPS - 1) - 1.0;
     double m = fabs(s);
     double L = 96.0 - 62.0 * m;
     double a = s < 0.0 ? 8.0 * m : 48.0 * m;
     double b = s < 0.0 ? -52.0 * m : 36.0 * m;
     lab_to_srgb8(L, a, b, rgb);
+}
+
+void brm_falsecolor(double t, uint8_t rgb[3]) { brm_falsecolor_entry(brm_colormap_entry(t), rgb); }
+
+void brm_diverging(double s, uint8_t rgb[3])
+{
+    if (isnan(s)) s = 0.0;
+    brm_diverging_entry(brm_colormap_entry(0.5 * (s + 1.0)), rgb);
 }

@@ -37,9 +37,18 @@ double brm_auto_exposure(const float *vals, size_t n);
 /* CIE 1976 L* (0..100) of an 8-bit sRGB colour, D65. */
 double brm_srgb_lightness(const uint8_t rgb[3]);
 
+/* Both maps are defined on BRM_COLORMAP_STEPS evenly spaced entries (the input is rounded to
+ * the nearest), so a picture can use a table of that size and get exactly these colours. */
+#define BRM_COLORMAP_STEPS 4096
+
 /* False colour for t in [0,1] (clamped; NaN → 0). */
 void brm_falsecolor(double t, uint8_t rgb[3]);
 /* Diverging colour for s in [−1,1] (clamped; NaN → 0). */
 void brm_diverging(double s, uint8_t rgb[3]);
+/* Entry e (0 .. BRM_COLORMAP_STEPS − 1) of each map: t = e/(STEPS − 1), s = 2t − 1. */
+void brm_falsecolor_entry(uint32_t e, uint8_t rgb[3]);
+void brm_diverging_entry(uint32_t e, uint8_t rgb[3]);
+/* The entry a value falls on. */
+uint32_t brm_colormap_entry(double t);
 
 #endif
