@@ -8,6 +8,7 @@
 #include <unistd.h>
 
 #include "bake/kernel.h"
+#include "bake/warnings.h"
 #include "base/atomic_file.h"
 #include "base/lds.h"
 #include "base/sha256.h"
@@ -93,15 +94,52 @@ static void hash_str(brm_sha256 *c, const char *tag, const char *v)
     if (v) brm_sha256_update(c, v, strlen(v) + 1);
 }
 
+/* What decides whether target t's output is up to date. Besides the tool version, the scene's
+ * name, the target's own JSON, the settings and every referenced file's content hash, it takes
+ * the shared part of the scene (geometry, media, sky, fog bounds) without its "lights", plus the
+ * canonical JSON of only those lights that can reach what t depends on (brm_target_lit_bounds,
+ * in scene order): changing a light re-bakes exactly the targets it reaches. The resolved fog
+ * bounds are hashed too, since without "fog_bounds" they follow every target's box. When the
+ * shared text cannot be split (no "lights" array matching the scene), all of it is hashed. */
 void brm_bake_input_hash(const brm_scene *s, uint32_t t, const brm_bake_opts *o, char hex[65])
 {
     brm_sha256 c;
     brm_sha256_init(&c);
     hash_str(&c, "tool", BRUME_VERSION_STRING);
-    hash_str(&c, "shared", s->shared_json_text);
+    hash_str(&c, "scene", s->name);
+    cJSON *shared = s->shared_json_text ? cJSON_Parse(s->shared_json_text) : NULL;
+    cJSON *lights = cJSON_IsObject(shared) ? cJSON_DetachItemFromObjectCaseSensitive(shared, "lights") : NULL;
+    bool split = cJSON_IsObject(shared) && (lights ? cJSON_IsArray(lights) && cJSON_GetArraySize(lights) == (int)s->light_count
+                                                   : s->light_count == 0);
+    char *rest = split ? cJSON_PrintUnformatted(shared) : NULL;
+    if (rest) {
+        hash_str(&c, "shared-without-lights", rest);
+        brm_aabb lb = brm_target_lit_bounds(s, t);
+        const cJSON *lj = lights ? lights->child : NULL;
+        for (uint32_t i = 0; i < s->light_count && lj; i++, lj = lj->next) {
+            if (!brm_light_reaches(&s->lights[i], lb)) continue;
+            char *text = cJSON_PrintUnformatted(lj);
+            hash_str(&c, "light", text ? text : s->lights[i].json_path);
+            cJSON_free(text);
+        }
+        cJSON_free(rest);
+    } else {
+        hash_str(&c, "shared", s->shared_json_text);
+    }
+    cJSON_Delete(lights);
+    cJSON_Delete(shared);
+    char fb[160];
+    snprintf(fb, sizeof fb, "%.17g %.17g %.17g %.17g %.17g %.17g", s->fog_bounds.min.x, s->fog_bounds.min.y,
+             s->fog_bounds.min.z, s->fog_bounds.max.x, s->fog_bounds.max.y, s->fog_bounds.max.z);
+    hash_str(&c, "fog-bounds", fb);
     hash_str(&c, "target", s->targets[t].json_text);
+    /* Files by content, named relative to the scene's folder so that the same scene baked from
+     * another working folder stays up to date. */
+    const size_t dl = strlen(s->dir);
     for (uint32_t i = 0; i < s->file_count; i++) {
-        hash_str(&c, "file", s->files[i].path);
+        const char *fp = s->files[i].path;
+        if (dl && strncmp(fp, s->dir, dl) == 0 && fp[dl] == '/') fp += dl + 1;
+        hash_str(&c, "file", fp);
         brm_sha256_update(&c, s->files[i].sha256, 32);
     }
     hash_str(&c, "reference", o->reference ? "1" : "0");
