@@ -39,9 +39,6 @@ void brm_cell_samples(uint64_t key, uint32_t S, double (*out)[3])
             perm[s - 1] = perm[r];
             perm[r] = t;
         }
-        for (uint32_t s = 0; s < S; s++) {
-            double jitter = brm_hash_unit(k ^ (0xd1b54a32d192ed03ull * (s + 1)));
-            out[s][a] = ((double)perm[s] + jitter) / (double)S;
-        }
+        for (uint32_t s = 0; s < S; s++) out[s][a] = ((double)perm[s] + 0.5) / (double)S;
     }
 }

@@ -27,10 +27,12 @@ void brm_sample2(uint64_t key, uint32_t i, double out[2]);
 
 #endif
 
-/* Samples of one cell: S points in [0, 1)^3 forming a jittered Latin hypercube (McKay,
- * Beckman & Conover 1979): on each axis exactly one point falls in each of the S strata, so a
- * quantity that varies along one axis (height fog, attenuation along a light) is integrated
- * with the accuracy of a stratified rule, and shadow edges are jittered rather than aliased.
- * Permutations and jitter depend only on key. out must hold S points; S <= BRM_MAX_CELL_SAMPLES. */
+/* Samples of one cell: S points in [0, 1)^3 forming a centred Latin hypercube (McKay, Beckman
+ * & Conover 1979): on each axis exactly one point sits at the centre of each of the S strata,
+ * so a quantity that varies along one axis (height fog, attenuation along a light) is
+ * integrated with the midpoint rule's O(1/S²) accuracy, while the per-cell random pairing of
+ * the axes breaks up the pattern a fixed lattice would print on shadow edges. (Jitter inside
+ * the strata was tried: its noise, f'·h/√(12·S), cost half a percent on 0.5 m cells of 2 m
+ * height fog.) The permutations depend only on key. out must hold S points; S <= BRM_MAX_CELL_SAMPLES. */
 #define BRM_MAX_CELL_SAMPLES 1024
 void brm_cell_samples(uint64_t key, uint32_t S, double (*out)[3]);
