@@ -39,7 +39,7 @@ static void fail(scan *s, const char *expected)
 {
     if (s->failed) return;
     s->failed = true;
-    s->err_off = s->i < s->n ? s->i : (s->n ? s->n - 1 : 0);
+    s->err_off = s->i < s->n ? s->i : s->n;
     s->expected = expected;
     memcpy(s->err_path, s->path, s->plen);
     s->err_path[s->plen] = '\0';

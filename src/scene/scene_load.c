@@ -39,7 +39,16 @@ typedef struct loader {
 
 /* ---- messages ------------------------------------------------------------------------- */
 
-static const char *shown(const char *path) { return path[0] ? path : "(top level)"; }
+/* The path as printed: "(top level)" for the root, long paths (deep nesting) shortened. */
+static const char *shown_buf(const char *path, char buf[136])
+{
+    if (!path[0]) return "(top level)";
+    size_t l = strlen(path);
+    if (l <= 120) return path;
+    snprintf(buf, 136, "%.60s...%s", path, path + l - 40);
+    return buf;
+}
+#define shown(path) shown_buf((path), (char[136]){0})
 
 #if defined(__GNUC__)
 __attribute__((format(printf, 5, 6)))
@@ -1153,6 +1162,8 @@ static bool load_targets(loader *L, const cJSON *arr)
 
 /* ---- the whole file ------------------------------------------------------------------- */
 
+static bool my_exp_end(const char *expected) { return strstr(expected, "the file ends here") != NULL; }
+
 static bool syntax_error(loader *L, size_t cjson_off)
 {
     size_t off = cjson_off;
@@ -1180,9 +1191,9 @@ static bool syntax_error(loader *L, size_t cjson_off)
         near[k++] = (c >= 0x20 && c < 0x7f) ? (char)c : '?';
     }
     near[k] = '\0';
-    if (off >= L->len || k == 0)
+    if (off >= L->len || k == 0 || (my_exp_end(expected)))
         brm_diag_error(L->d, BRM_E_INPUT, "%s:%u:%u: %s: invalid JSON at the end of the %s; expected %s", L->file, line, col, shown(path),
-                       off >= L->len ? "file" : "line", expected);
+                       off >= L->len || my_exp_end(expected) ? "file" : "line", expected);
     else
         brm_diag_error(L->d, BRM_E_INPUT, "%s:%u:%u: %s: invalid JSON at \"%s\"; expected %s", L->file, line, col, shown(path), near,
                        expected);
