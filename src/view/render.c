@@ -272,8 +272,10 @@ static brm_status make_ppm(const brm_view_input *in, const brm_view_options *opt
     if (!opt->no_legend) {
         uint32_t tw_cap = brm_font_width(caption, fs) + 2 * m;
         uint32_t tw_dep = brm_font_width(depth, fs) + 2 * m;
-        uint32_t tw_num = brm_font_width(lo_s, fs) + brm_font_width(mid_s, fs) + brm_font_width(hi_s, fs) +
-                          2 * m + 24 * fs;
+        /* the middle text is centred: room for it plus twice the wider end value */
+        uint32_t end_w = brm_font_width(lo_s, fs) > brm_font_width(hi_s, fs) ? brm_font_width(lo_s, fs)
+                                                                              : brm_font_width(hi_s, fs);
+        uint32_t tw_num = 2 * end_w + brm_font_width(mid_s, fs) + 2 * m + 24 * fs;
         if (W < tw_cap) W = tw_cap;
         if (W < tw_dep) W = tw_dep;
         if (W < tw_num) W = tw_num;
