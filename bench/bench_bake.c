@@ -32,7 +32,7 @@ static double run(const brm_scene *s, uint32_t t, int threads, bool reference, c
 
 int main(int argc, char **argv)
 {
-    const char *path = argc > 1 ? argv[1] : BRUME_SOURCE_ROOT "/scenes/demo.json";
+    const char *path = argc > 1 ? argv[1] : BRUME_SOURCE_ROOT "/scenes/saltworks-dusk.json";
     brm_scene *s = NULL;
     brm_diag d;
     brm_diag_init(&d);
