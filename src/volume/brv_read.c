@@ -42,7 +42,7 @@ struct brv_decoder {
     float *scratch; /* one full brick, every channel */
 };
 
-static const brv_allocator *valloc(const brv_volume *v) { return v->has_alloc ? &v->alloc : NULL; }
+static const brv_allocator *vol_allocator(const brv_volume *v) { return v->has_alloc ? &v->alloc : NULL; }
 
 const char *brv_result_text(brv_result r)
 {
@@ -58,7 +58,7 @@ const char *brv_result_text(brv_result r)
 void brv_free(brv_volume *v)
 {
     if (!v) return;
-    const brv_allocator *a = valloc(v);
+    const brv_allocator *a = vol_allocator(v);
     brv_dealloc(a, v->owned);
     brv_dealloc(a, v->slice_depths);
     brv_dealloc(a, v->metadata);
@@ -166,7 +166,7 @@ static brv_result parse(brv_volume *v)
     g->camera.far_m = cv[12];
     const uint8_t *p = t + BRV_TABLES_FIXED;
     if (sd) {
-        v->slice_depths = brv_alloc(valloc(v), (size_t)sd * sizeof(double));
+        v->slice_depths = brv_alloc(vol_allocator(v), (size_t)sd * sizeof(double));
         if (!v->slice_depths) return BRV_E_NOMEM;
         for (uint32_t k = 0; k < sd; k++) {
             double z = brv_rdf64(p + 8 * (size_t)k);
@@ -216,7 +216,7 @@ static brv_result parse(brv_volume *v)
 
     v->brick_table = p;
     v->brick_entry = bes;
-    span *sp = brv_alloc(valloc(v), (size_t)g->brick_count * sizeof *sp);
+    span *sp = brv_alloc(vol_allocator(v), (size_t)g->brick_count * sizeof *sp);
     if (!sp) return BRV_E_NOMEM;
     brv_result r = BRV_OK;
     uint64_t total = 0;
@@ -238,12 +238,12 @@ static brv_result parse(brv_volume *v)
         }
         if (r == BRV_OK && at != toff) r = BRV_E_BRICK_RANGE;
     }
-    brv_dealloc(valloc(v), sp);
+    brv_dealloc(vol_allocator(v), sp);
     if (r != BRV_OK) return r;
     g->brick_bytes = total;
     p += (size_t)g->brick_count * bes;
 
-    v->metadata = brv_alloc(valloc(v), (size_t)msize + 1);
+    v->metadata = brv_alloc(vol_allocator(v), (size_t)msize + 1);
     if (!v->metadata) return BRV_E_NOMEM;
     memcpy(v->metadata, p, msize);
     v->metadata[msize] = '\0';
@@ -357,7 +357,7 @@ brv_result brv_brick_extent(const brv_volume *v, uint32_t b, uint32_t origin[3],
 brv_result brv_decoder_create(const brv_volume *v, brv_decoder **out)
 {
     if (!v || !out) return BRV_E_ARGUMENT;
-    const brv_allocator *a = valloc(v);
+    const brv_allocator *a = vol_allocator(v);
     brv_decoder *d = brv_alloc(a, sizeof *d);
     if (!d) return BRV_E_NOMEM;
     memset(d, 0, sizeof *d);
@@ -376,7 +376,7 @@ brv_result brv_decoder_create(const brv_volume *v, brv_decoder **out)
 void brv_decoder_free(brv_decoder *d)
 {
     if (!d) return;
-    const brv_allocator *a = valloc(d->v);
+    const brv_allocator *a = vol_allocator(d->v);
     ZSTD_freeDCtx(d->dctx);
     brv_dealloc(a, d->payload);
     brv_dealloc(a, d->scratch);

@@ -48,7 +48,7 @@ struct brv_writer {
     uint64_t pos; /* next brick offset, relative to base */
 };
 
-static const brv_allocator *walloc(const brv_writer *w) { return w->has_alloc ? &w->alloc : NULL; }
+static const brv_allocator *wr_allocator(const brv_writer *w) { return w->has_alloc ? &w->alloc : NULL; }
 
 static brv_result fail(brv_writer *w, brv_result r, const char *fmt, ...)
 #if defined(__GNUC__)
@@ -74,7 +74,7 @@ const char *brv_writer_error(const brv_writer *w) { return w ? w->err : ""; }
 void brv_writer_free(brv_writer *w)
 {
     if (!w) return;
-    const brv_allocator *a = walloc(w);
+    const brv_allocator *a = wr_allocator(w);
     ZSTD_freeCCtx(w->cctx);
     brv_dealloc(a, w->slice_depths);
     brv_dealloc(a, w->metadata);
@@ -151,7 +151,7 @@ brv_result brv_writer_create(FILE *f, const brv_write_desc *d, brv_writer **out)
         w->camera = d->camera;
         WCHECK(d->slice_depths != NULL, BRV_E_ARGUMENT, "a frustum grid needs cells[2] + 1 slice depths");
         uint32_t n = d->cells[2] + 1;
-        w->slice_depths = brv_alloc(walloc(w), n * sizeof(double));
+        w->slice_depths = brv_alloc(wr_allocator(w), n * sizeof(double));
         WCHECK(w->slice_depths, BRV_E_NOMEM, "out of memory");
         for (uint32_t k = 0; k < n; k++) {
             WCHECK(isfinite(d->slice_depths[k]) && d->slice_depths[k] > 0.0 &&
@@ -195,20 +195,20 @@ brv_result brv_writer_create(FILE *f, const brv_write_desc *d, brv_writer **out)
     WCHECK(level >= 1 && level <= 19, BRV_E_ARGUMENT, "compression level %d, expected 1..19", level);
     if (d->metadata && d->metadata_len) {
         WCHECK(d->metadata_len <= BRV_METADATA_MAX, BRV_E_LIMIT, "metadata of %zu bytes over %u", d->metadata_len, BRV_METADATA_MAX);
-        w->metadata = brv_alloc(walloc(w), d->metadata_len);
+        w->metadata = brv_alloc(wr_allocator(w), d->metadata_len);
         WCHECK(w->metadata, BRV_E_NOMEM, "out of memory");
         memcpy(w->metadata, d->metadata, d->metadata_len);
         w->metadata_len = d->metadata_len;
     }
     w->payload_cap = payload_max;
     w->cbuf_cap = ZSTD_compressBound(payload_max);
-    w->words = brv_alloc(walloc(w), cells_max * 4);
-    w->payload = brv_alloc(walloc(w), payload_max);
-    w->cbuf = brv_alloc(walloc(w), w->cbuf_cap);
-    w->off = brv_alloc(walloc(w), (size_t)w->brick_count * sizeof *w->off);
-    w->csize = brv_alloc(walloc(w), (size_t)w->brick_count * sizeof *w->csize);
-    w->crc = brv_alloc(walloc(w), (size_t)w->brick_count * sizeof *w->crc);
-    w->done = brv_alloc(walloc(w), w->brick_count);
+    w->words = brv_alloc(wr_allocator(w), cells_max * 4);
+    w->payload = brv_alloc(wr_allocator(w), payload_max);
+    w->cbuf = brv_alloc(wr_allocator(w), w->cbuf_cap);
+    w->off = brv_alloc(wr_allocator(w), (size_t)w->brick_count * sizeof *w->off);
+    w->csize = brv_alloc(wr_allocator(w), (size_t)w->brick_count * sizeof *w->csize);
+    w->crc = brv_alloc(wr_allocator(w), (size_t)w->brick_count * sizeof *w->crc);
+    w->done = brv_alloc(wr_allocator(w), w->brick_count);
     w->cctx = ZSTD_createCCtx();
     WCHECK(w->words && w->payload && w->cbuf && w->off && w->csize && w->crc && w->done && w->cctx, BRV_E_NOMEM,
            "out of memory for %u bricks", w->brick_count);
@@ -348,7 +348,7 @@ brv_result brv_writer_finish(brv_writer *w)
     uint32_t sd = w->kind == BRV_GRID_FRUSTUM ? w->cells[2] + 1 : 0;
     size_t tsize = BRV_TABLES_FIXED + 8 * (size_t)sd + BRV_CHANNEL_ENTRY * (size_t)w->channel_count +
                    BRV_BRICK_ENTRY * (size_t)w->brick_count + w->metadata_len;
-    uint8_t *t = brv_alloc(walloc(w), tsize);
+    uint8_t *t = brv_alloc(wr_allocator(w), tsize);
     if (!t) return fail(w, BRV_E_NOMEM, "out of memory for the tables");
     memset(t, 0, tsize);
     for (int a = 0; a < 3; a++) {
@@ -398,7 +398,7 @@ brv_result brv_writer_finish(brv_writer *w)
     brv_wr32(h + 60, brv_crc32(0, h, BRV_HEADER_SIZE - 4));
 
     bool ok = write_at_end(w, t, tsize);
-    brv_dealloc(walloc(w), t);
+    brv_dealloc(wr_allocator(w), t);
     ok = ok && fseek(w->f, w->base, SEEK_SET) == 0 && fwrite(h, 1, sizeof h, w->f) == sizeof h &&
          fseek(w->f, 0, SEEK_END) == 0 && fflush(w->f) == 0 && !ferror(w->f);
     if (!ok) {

@@ -1,6 +1,9 @@
 /* libFuzzer target for the .brv reader: open from memory, read the description, verify, decode
  * every channel, the whole grid and some bricks, and sample. Nothing may crash, leak, overread
  * or hit undefined behaviour; a fault must be a named result code.
+ * Each input is read twice: as it is, and "resealed" — a copy whose brick, table and header
+ * CRC-32s are recomputed — because almost every mutation breaks a CRC, and without resealing
+ * the fuzzer would never get past the header's checksum to the parsing behind it.
  *
  * Recipe (clang, from the repository root):
  *   CC=clang meson setup build-fuzz -Dfuzz=true -Db_sanitize=address,undefined -Db_lundef=false
@@ -14,15 +17,48 @@
 #include <string.h>
 
 #include "brume/brv.h"
+#include "volume/brv_internal.h"
 
 int LLVMFuzzerTestOneInput(const uint8_t *data, size_t size);
 
+static void reseal(uint8_t *d, size_t size)
+{
+    if (size < BRV_HEADER_SIZE) return;
+    uint64_t hs = brv_rd32(d + 12), toff = brv_rd64(d + 32), tsize = brv_rd64(d + 40);
+    if (hs < BRV_HEADER_SIZE || hs > size) return;
+    if (toff <= size && tsize <= size - toff && tsize >= BRV_TABLES_FIXED) {
+        const uint8_t *t = d + toff;
+        uint64_t bt = toff + BRV_TABLES_FIXED + 8ull * brv_rd32(t + 152) + (uint64_t)brv_rd16(d + 52) * brv_rd16(d + 18);
+        uint64_t bes = brv_rd16(d + 54);
+        for (uint64_t e = bt; bes >= BRV_BRICK_ENTRY && e + bes <= toff + tsize; e += bes) {
+            uint64_t off = brv_rd64(d + e), cs = brv_rd32(d + e + 8);
+            if (off <= size && cs <= size - off) brv_wr32(d + e + 12, brv_crc32(0, d + off, (size_t)cs));
+        }
+        brv_wr32(d + 48, brv_crc32(0, t, (size_t)tsize));
+    }
+    brv_wr32(d + hs - 4, brv_crc32(0, d, (size_t)hs - 4));
+}
+
+static void read_volume(const uint8_t *data, size_t size);
+
 int LLVMFuzzerTestOneInput(const uint8_t *data, size_t size)
+{
+    read_volume(data, size);
+    uint8_t *copy = malloc(size ? size : 1); /* exact size, so overreads are still caught */
+    if (!copy) return 0;
+    if (size) memcpy(copy, data, size);
+    reseal(copy, size);
+    read_volume(copy, size);
+    free(copy);
+    return 0;
+}
+
+static void read_volume(const uint8_t *data, size_t size)
 {
     brv_volume *v = NULL;
     brv_result r = brv_open_memory(data, size, NULL, &v);
     if ((unsigned)r >= BRV_RESULT_MAX_ENUM) abort();
-    if (r != BRV_OK) return 0;
+    if (r != BRV_OK) return;
     const brv_grid_info *g = brv_grid(v);
     volatile size_t sink = 0;
     for (uint32_t c = 0; c < g->channel_count; c++) {
@@ -70,5 +106,4 @@ int LLVMFuzzerTestOneInput(const uint8_t *data, size_t size)
     }
     (void)sink;
     brv_free(v);
-    return 0;
 }
