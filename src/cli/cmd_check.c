@@ -3,9 +3,11 @@
 #include <string.h>
 
 #include "bake/bake.h"
+#include "bake/warnings.h"
 #include "cli/cli.h"
 #include "cli/scenes.h"
 #include "scene/scene.h"
+#include "voxel/grid.h"
 
 static const char *help =
     "usage: brume check SCENE.json|FOLDER... [--reference] [-j N]\n"
@@ -29,7 +31,7 @@ static void print_vec(const char *label, brm_vec3 a, brm_vec3 b)
     printf("%s[%.6g, %.6g, %.6g] .. [%.6g, %.6g, %.6g]\n", label, a.x, a.y, a.z, b.x, b.y, b.z);
 }
 
-static void print_scene(const brm_scene *s, const brm_bake_opts *o, const brm_diag *d)
+static int print_scene(const brm_scene *s, const brm_bake_opts *o, const brm_diag *d)
 {
     printf("scene \"%s\" (%s)\n", s->name, s->path);
     uint32_t counts[BRM_SHAPE_MAX_ENUM] = {0};
@@ -55,21 +57,43 @@ static void print_scene(const brm_scene *s, const brm_bake_opts *o, const brm_di
         printf("%s%s", i ? ", " : " (", mnames[s->media[i].type < BRM_MEDIUM_MAX_ENUM ? s->media[i].type : 0]);
     printf("%s\n", s->medium_count ? ")" : "");
     printf("  sky: %s\n", s->sky.present ? "yes" : "none");
+    brm_diag sw;
+    brm_diag_init(&sw);
+    brm_diag_merge_warnings(&sw, d);
+    brm_scene_warnings(s, &sw);
+    for (uint32_t i = 0; i < sw.warning_count; i++) printf("  warning: %s\n", sw.warnings[i]);
+    int rc = BRM_EXIT_OK;
     for (uint32_t t = 0; t < s->target_count; t++) {
         const brm_target *tg = &s->targets[t];
-        uint64_t mem = brm_bake_estimate_memory(s, t, o);
-        if (tg->grid == BRM_GRID_PROBES) {
-            printf("  target \"%s\": probes, spacing %.6g m, %u rays; estimated memory %.1f MiB\n", tg->name,
-                   tg->spacing_m, tg->rays, (double)mem / 1048576.0);
+        /* The grid is what a bake would build first: its errors are the bake's errors. */
+        brm_diag gd;
+        brm_diag_init(&gd);
+        brm_grid g;
+        brm_status gs = brm_grid_init(&g, tg, &gd);
+        if (gs != BRM_OK) {
+            fprintf(stderr, "brume: %s: %s\n", s->path, gd.message);
+            if (rc == BRM_EXIT_OK) rc = brm_status_exit_code(gs);
             continue;
         }
-        uint64_t cells = (uint64_t)tg->cells[0] * tg->cells[1] * tg->cells[2];
-        printf("  target \"%s\": %s %ux%ux%u = %llu cells, %u samples; estimated memory %.1f MiB, work %.3g "
-               "cell-light-samples\n",
-               tg->name, grid_name(tg->grid), tg->cells[0], tg->cells[1], tg->cells[2], (unsigned long long)cells,
-               tg->samples, (double)mem / 1048576.0, (double)brm_bake_estimate_work(s, t));
+        uint64_t mem = brm_bake_estimate_memory(s, t, o);
+        uint64_t work = brm_cli_target_work(s, t);
+        if (tg->grid == BRM_GRID_PROBES)
+            printf("  target \"%s\": probes %ux%ux%u = %llu probes, spacing %.6g m, %u rays; estimated memory "
+                   "%.1f MiB, work %.3g ray-light evaluations\n",
+                   tg->name, g.n[0], g.n[1], g.n[2], (unsigned long long)brm_grid_cells(&g), tg->spacing_m, tg->rays,
+                   (double)mem / 1048576.0, (double)work);
+        else
+            printf("  target \"%s\": %s %ux%ux%u = %llu cells, %u samples; estimated memory %.1f MiB, work %.3g "
+                   "sample-light evaluations\n",
+                   tg->name, grid_name(tg->grid), g.n[0], g.n[1], g.n[2], (unsigned long long)brm_grid_cells(&g),
+                   tg->samples, (double)mem / 1048576.0, (double)work);
+        brm_grid_free(&g);
+        brm_diag tw;
+        brm_diag_init(&tw);
+        brm_target_warnings(s, t, o, &tw);
+        for (uint32_t i = 0; i < tw.warning_count; i++) printf("    warning: %s\n", tw.warnings[i]);
     }
-    for (uint32_t i = 0; i < d->warning_count; i++) printf("  warning: %s\n", d->warnings[i]);
+    return rc;
 }
 
 int brm_cmd_check(int argc, char **argv)
@@ -97,7 +121,12 @@ int brm_cmd_check(int argc, char **argv)
             brm_path_list_free(&scenes);
             return brm_cli_usage("check", "unknown option '%s'", argv[i]);
         } else {
-            brm_collect_scenes(&scenes, argv[i]);
+            int c = brm_collect_scenes(&scenes, argv[i]);
+            if (c < 0) {
+                if (c == -2) brm_cli_error("out of memory");
+                brm_path_list_free(&scenes);
+                return c == -2 ? BRM_EXIT_IO : BRM_EXIT_INPUT;
+            }
         }
     }
     if (scenes.count == 0) {
@@ -115,7 +144,8 @@ int brm_cmd_check(int argc, char **argv)
             if (rc == BRM_EXIT_OK) rc = brm_status_exit_code(st);
             continue;
         }
-        print_scene(s, &o, &d);
+        int prc = print_scene(s, &o, &d);
+        if (rc == BRM_EXIT_OK) rc = prc;
         brm_scene_free(s);
     }
     brm_path_list_free(&scenes);
