@@ -9,7 +9,7 @@ typedef struct slot {
     uint32_t brick; /* UINT32_MAX: empty */
     uint32_t ext[3];
     size_t n;
-    float *data;
+    float *data; /* interleaved: data[cell·channels + c], so a sample's corners share cache lines */
 } slot;
 
 struct brv_sampler {
@@ -18,7 +18,8 @@ struct brv_sampler {
     uint32_t count;
     slot *slots;
     float *pool;
-    const brv_allocator *alloc;
+    float *scratch; /* one decoded brick, channel-major */
+    uint32_t mask;  /* count − 1 when count is a power of two, else 0 */
 };
 
 brv_result brv_sampler_create(const brv_volume *v, uint32_t cache_bricks, brv_sampler **out)
@@ -37,8 +38,10 @@ brv_result brv_sampler_create(const brv_volume *v, uint32_t cache_bricks, brv_sa
     s->count = cache_bricks;
     s->slots = brv_alloc(NULL, cache_bricks * sizeof *s->slots);
     s->pool = brv_alloc(NULL, total * sizeof(float));
+    s->scratch = brv_alloc(NULL, per * sizeof(float));
+    s->mask = (cache_bricks & (cache_bricks - 1)) == 0 ? cache_bricks - 1 : 0;
     brv_result r = brv_decoder_create(v, &s->dec);
-    if (r == BRV_OK && (!s->slots || !s->pool)) r = BRV_E_NOMEM;
+    if (r == BRV_OK && (!s->slots || !s->pool || !s->scratch)) r = BRV_E_NOMEM;
     if (r != BRV_OK) {
         brv_sampler_free(s);
         return r;
@@ -57,19 +60,23 @@ void brv_sampler_free(brv_sampler *s)
     brv_decoder_free(s->dec);
     brv_dealloc(NULL, s->slots);
     brv_dealloc(NULL, s->pool);
+    brv_dealloc(NULL, s->scratch);
     brv_dealloc(NULL, s);
 }
 
 static brv_result fetch(brv_sampler *s, uint32_t b, const slot **out)
 {
-    slot *sl = &s->slots[b % s->count];
+    slot *sl = &s->slots[s->mask || s->count == 1 ? b & s->mask : b % s->count];
     if (sl->brick != b) {
         uint32_t o[3];
         sl->brick = UINT32_MAX;
         brv_brick_extent(s->v, b, o, sl->ext);
         sl->n = (size_t)sl->ext[0] * sl->ext[1] * sl->ext[2];
-        brv_result r = brv_decode_brick(s->v, s->dec, b, sl->data, brv_brick_size(s->v));
+        brv_result r = brv_decode_brick(s->v, s->dec, b, s->scratch, brv_brick_size(s->v));
         if (r != BRV_OK) return r;
+        uint32_t nc = brv_grid(s->v)->channel_count;
+        for (uint32_t c = 0; c < nc; c++)
+            for (size_t i = 0; i < sl->n; i++) sl->data[i * nc + c] = s->scratch[c * sl->n + i];
         sl->brick = b;
     }
     *out = sl;
@@ -90,22 +97,29 @@ static void axis(double u, uint32_t n, uint32_t *i0, uint32_t *i1, double *t)
 static brv_result trilinear(brv_sampler *s, const double u[3], float *out)
 {
     const brv_grid_info *g = brv_grid(s->v);
-    uint32_t i[3][2];
+    uint32_t i[3][2], bc[3][2], lc[3][2];
     double t[3];
-    for (int a = 0; a < 3; a++) axis(u[a], g->cells[a], &i[a][0], &i[a][1], &t[a]);
-    uint32_t nc = g->channel_count, bs = g->brick_size;
-    double acc[BRV_MAX_CHANNELS] = {0};
+    uint32_t bs = g->brick_size;
+    for (int a = 0; a < 3; a++) {
+        axis(u[a], g->cells[a], &i[a][0], &i[a][1], &t[a]);
+        for (int k = 0; k < 2; k++) {
+            bc[a][k] = i[a][k] / bs; /* six divisions per sample, not 48 */
+            lc[a][k] = i[a][k] - bc[a][k] * bs;
+        }
+    }
+    uint32_t nc = g->channel_count;
+    double acc[BRV_MAX_CHANNELS];
+    for (uint32_t c = 0; c < nc; c++) acc[c] = 0.0;
     for (int corner = 0; corner < 8; corner++) {
-        uint32_t x = i[0][corner & 1], y = i[1][(corner >> 1) & 1], z = i[2][corner >> 2];
-        double wgt = ((corner & 1) ? t[0] : 1.0 - t[0]) * (((corner >> 1) & 1) ? t[1] : 1.0 - t[1]) *
-                     ((corner >> 2) ? t[2] : 1.0 - t[2]);
+        int kx = corner & 1, ky = (corner >> 1) & 1, kz = corner >> 2;
+        double wgt = (kx ? t[0] : 1.0 - t[0]) * (ky ? t[1] : 1.0 - t[1]) * (kz ? t[2] : 1.0 - t[2]);
         if (wgt == 0.0) continue;
-        uint32_t b = x / bs + g->bricks[0] * (y / bs + g->bricks[1] * (z / bs));
+        uint32_t b = bc[0][kx] + g->bricks[0] * (bc[1][ky] + g->bricks[1] * bc[2][kz]);
         const slot *sl;
         brv_result r = fetch(s, b, &sl);
         if (r != BRV_OK) return r;
-        size_t li = (x % bs) + (size_t)sl->ext[0] * ((y % bs) + (size_t)sl->ext[1] * (z % bs));
-        for (uint32_t c = 0; c < nc; c++) acc[c] += wgt * sl->data[c * sl->n + li];
+        const float *p = sl->data + nc * (lc[0][kx] + (size_t)sl->ext[0] * (lc[1][ky] + (size_t)sl->ext[1] * lc[2][kz]));
+        for (uint32_t c = 0; c < nc; c++) acc[c] += wgt * p[c];
     }
     for (uint32_t c = 0; c < nc; c++) out[c] = (float)acc[c];
     return BRV_OK;

@@ -51,14 +51,15 @@ uint16_t brv_f32_to_f16(float f)
 
 float brv_f16_to_f32(uint16_t h)
 {
+    /* The half's exponent and fraction, shifted into a float's fraction field, times 2^112
+     * rebias the exponent from 15 to 127 exactly — subnormal halves included (they land on
+     * float subnormals, which the multiplication makes normal). Infinity and NaN keep the
+     * all-ones exponent. */
     uint32_t sign = (uint32_t)(h & 0x8000u) << 16;
-    uint32_t e = (h >> 10) & 0x1Fu, m = h & 0x3FFu;
-    if (e == 0) {
-        float v = (float)m * 5.9604644775390625e-8f; /* m · 2^-24, exact */
-        return sign ? -v : v;
-    }
-    if (e == 31) return brv_bits_f32(sign | 0x7F800000u | (m << 13));
-    return brv_bits_f32(sign | ((e + 112u) << 23) | (m << 13));
+    uint32_t em = (uint32_t)(h & 0x7FFFu) << 13;
+    if (em >= (0x7C00u << 13)) return brv_bits_f32(sign | 0x7F800000u | (em & 0x7FFFFFu));
+    float v = brv_bits_f32(em) * 5.192296858534828e33f; /* 2^112 */
+    return brv_bits_f32(brv_f32_bits(v) | sign);
 }
 
 float brv_exp2i(int e) { return ldexpf(1.0f, e); }
@@ -98,7 +99,7 @@ uint32_t brv_rgb9e5_pack(float r, float g, float b)
 
 void brv_rgb9e5_unpack(uint32_t p, float *r, float *g, float *b)
 {
-    float q = ldexpf(1.0f, (int)(p >> 27) - 24);
+    float q = brv_bits_f32(((p >> 27) + 103u) << 23); /* 2^(exp − 24), always a normal float */
     *r = (float)(p & 0x1FFu) * q;
     *g = (float)((p >> 9) & 0x1FFu) * q;
     *b = (float)((p >> 18) & 0x1FFu) * q;

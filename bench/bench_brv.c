@@ -1,0 +1,249 @@
+/* Speed and size of the .brv reader and writer (a benchmark program, not a test):
+ *   bench_brv [N]     N³ cells (default 256), 4 channels (extinction + in-scatter r, g, b)
+ * 1. decode throughput of the whole volume, f16 and f32, at one and two threads, next to
+ *    ZSTD_decompressDCtx alone on the same brick frames (the floor any reader pays);
+ * 2. size per encoding on a smooth synthetic field, against raw f16 and against plain zstd of
+ *    the raw float32 array;
+ * 3. random access: 1 million trilinear samples at random points, one thread.
+ * Invented data (smooth analytic fields), for measurement only. */
+#include <math.h>
+#include <pthread.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <time.h>
+#include <zstd.h>
+
+#include "brume/brv.h"
+#include "brume/brv_write.h"
+#include "volume/brv_internal.h"
+
+static double now(void)
+{
+    struct timespec t;
+    clock_gettime(CLOCK_MONOTONIC, &t);
+    return t.tv_sec + t.tv_nsec * 1e-9;
+}
+
+static uint32_t N = 256;
+
+/* Smooth fog: exponential height falloff, two soft light pools, channel tints. */
+static float field(uint32_t c, uint32_t x, uint32_t y, uint32_t z)
+{
+    double fx = x / (double)N, fy = y / (double)N, fz = z / (double)N;
+    double d1 = (fx - 0.3) * (fx - 0.3) + (fy - 0.2) * (fy - 0.2) + (fz - 0.4) * (fz - 0.4);
+    double d2 = (fx - 0.7) * (fx - 0.7) + (fy - 0.5) * (fy - 0.5) + (fz - 0.6) * (fz - 0.6);
+    double fog = 0.08 * exp(-fy * 3.0);
+    if (c == 0) return (float)fog;
+    double light = 40.0 * exp(-d1 * 30.0) + 25.0 * exp(-d2 * 20.0) * (c == 3 ? 1.4 : 1.0) + 0.5;
+    return (float)(fog * light * (1.0 + 0.1 * c));
+}
+
+typedef struct vol {
+    uint8_t *bytes;
+    size_t size;
+    double write_s;
+} vol;
+
+static vol write_volume(brv_encoding main_enc, brv_encoding rgb_enc, int level)
+{
+    brv_channel_desc ch[4] = {{"extinction", "1/m", main_enc},
+                              {"inscatter.r", "cd/m2/m", rgb_enc},
+                              {"inscatter.g", "cd/m2/m", rgb_enc},
+                              {"inscatter.b", "cd/m2/m", rgb_enc}};
+    brv_write_desc d;
+    memset(&d, 0, sizeof d);
+    d.kind = BRV_GRID_WORLD;
+    d.cells[0] = d.cells[1] = d.cells[2] = N;
+    for (int a = 0; a < 3; a++) d.bounds_max[a] = 64.0;
+    d.channels = ch;
+    d.channel_count = 4;
+    d.compression_level = level;
+    FILE *f = tmpfile();
+    brv_writer *w;
+    vol out = {0};
+    if (!f || brv_writer_create(f, &d, &w) != BRV_OK) exit(1);
+    uint32_t nb = N / 16;
+    float *buf = malloc(sizeof(float) * 16 * 16 * 16 * 4);
+    double t0 = now();
+    for (uint32_t b = 0; b < nb * nb * nb; b++) {
+        uint32_t o[3] = {b % nb * 16, b / nb % nb * 16, b / (nb * nb) * 16};
+        for (uint32_t c = 0; c < 4; c++)
+            for (uint32_t i = 0; i < 4096; i++)
+                buf[c * 4096 + i] = field(c, o[0] + i % 16, o[1] + i / 16 % 16, o[2] + i / 256);
+        if (brv_writer_put_brick(w, b, buf) != BRV_OK) {
+            fprintf(stderr, "%s\n", brv_writer_error(w));
+            exit(1);
+        }
+    }
+    if (brv_writer_finish(w) != BRV_OK) exit(1);
+    out.write_s = now() - t0;
+    brv_writer_free(w);
+    free(buf);
+    out.size = (size_t)ftell(f);
+    out.bytes = malloc(out.size);
+    rewind(f);
+    if (fread(out.bytes, 1, out.size, f) != out.size) exit(1);
+    fclose(f);
+    return out;
+}
+
+typedef struct job {
+    const brv_volume *v;
+    uint32_t first, step;
+    float *out;
+    int zstd_only;
+    const uint8_t *file;
+} job;
+
+static void *run_job(void *arg)
+{
+    job *j = arg;
+    const brv_grid_info *g = brv_grid(j->v);
+    size_t per = brv_brick_size(j->v);
+    if (j->zstd_only) {
+        ZSTD_DCtx *dctx = ZSTD_createDCtx();
+        uint8_t *payload = malloc(per * 4 + 64);
+        const uint8_t *bt = j->file + brv_rd64(j->file + 32) + BRV_TABLES_FIXED + 4 * BRV_CHANNEL_ENTRY;
+        for (uint32_t b = j->first; b < g->brick_count; b += j->step) {
+            size_t r = ZSTD_decompressDCtx(dctx, payload, per * 4 + 64, j->file + brv_rd64(bt + 16 * b),
+                                           brv_rd32(bt + 16 * b + 8));
+            if (ZSTD_isError(r)) exit(1);
+        }
+        free(payload);
+        ZSTD_freeDCtx(dctx);
+        return NULL;
+    }
+    brv_decoder *dec;
+    if (brv_decoder_create(j->v, &dec) != BRV_OK) exit(1);
+    for (uint32_t b = j->first; b < g->brick_count; b += j->step)
+        if (brv_decode_brick(j->v, dec, b, j->out + (size_t)b * per, per) != BRV_OK) exit(1);
+    brv_decoder_free(dec);
+    return NULL;
+}
+
+static double timed(const brv_volume *v, const uint8_t *file, float *out, int threads, int zstd_only)
+{
+    double best = 1e30;
+    for (int rep = 0; rep < 3; rep++) {
+        job j[2];
+        pthread_t t[2];
+        double t0 = now();
+        for (int k = 0; k < threads; k++) {
+            j[k] = (job){v, (uint32_t)k, (uint32_t)threads, out, zstd_only, file};
+            pthread_create(&t[k], NULL, run_job, &j[k]);
+        }
+        for (int k = 0; k < threads; k++) pthread_join(t[k], NULL);
+        double dt = now() - t0;
+        if (dt < best) best = dt;
+    }
+    return best;
+}
+
+static void decode_bench(const char *label, const vol *f)
+{
+    brv_volume *v;
+    if (brv_open_memory(f->bytes, f->size, NULL, &v) != BRV_OK) exit(1);
+    size_t floats = brv_brick_size(v) * brv_grid(v)->brick_count;
+    float *out = malloc(floats * sizeof(float));
+    memset(out, 0, floats * sizeof(float));
+    double mb = floats * 4.0 / (1 << 20);
+    for (int th = 1; th <= 2; th++) {
+        double tz = timed(v, f->bytes, out, th, 1), tr = timed(v, f->bytes, out, th, 0);
+        printf("  %-4s %d thread%s: reader %7.3f s (%6.0f MiB/s of floats)  zstd alone %7.3f s  reader at %5.1f %% "
+               "of zstd's speed\n",
+               label, th, th > 1 ? "s" : " ", tr, mb / tr, tz, 100.0 * tz / tr);
+    }
+    float *grid = malloc(brv_all_size(v) * sizeof(float));
+    double t0 = now();
+    if (brv_decode_all(v, grid, brv_all_size(v)) != BRV_OK) exit(1);
+    double ta = now() - t0;
+    printf("  %-4s brv_decode_all (grid order, 1 thread): %.3f s (%.0f MiB/s)\n", label, ta, mb / ta);
+    free(grid);
+    free(out);
+    brv_free(v);
+}
+
+static void random_access(const vol *f, uint32_t cache, const char *pattern)
+{
+    brv_volume *v;
+    brv_sampler *s;
+    if (brv_open_memory(f->bytes, f->size, NULL, &v) != BRV_OK || brv_sampler_create(v, cache, &s) != BRV_OK) exit(1);
+    srand(1);
+    enum { M = 1000000 };
+    double *pts = malloc(sizeof(double) * 3 * M);
+    for (int i = 0; i < M; i++) {
+        if (pattern[0] == 'r') {
+            for (int a = 0; a < 3; a++) pts[3 * i + a] = 64.0 * rand() / RAND_MAX;
+        } else { /* a march: 1000 rays of 1000 steps through the volume */
+            int ray = i / 1000, step = i % 1000;
+            double oy = 64.0 * (ray % 37) / 37.0, oz = 64.0 * (ray / 37) / 28.0;
+            pts[3 * i] = 64.0 * step / 1000.0;
+            pts[3 * i + 1] = oy;
+            pts[3 * i + 2] = oz;
+        }
+    }
+    float o[4];
+    double sum = 0, t0 = now();
+    for (int i = 0; i < M; i++) {
+        if (brv_sample_world(s, pts + 3 * i, o) != BRV_OK) exit(1);
+        sum += o[0];
+    }
+    double dt = now() - t0;
+    printf("  1M %-6s samples, cache %4u bricks (%6.1f MiB): %.3f s (checksum %.6g)\n", pattern, cache,
+           cache * brv_brick_size(v) * 4.0 / (1 << 20), dt, sum);
+    free(pts);
+    brv_sampler_free(s);
+    brv_free(v);
+}
+
+int main(int argc, char **argv)
+{
+    if (argc > 1) N = (uint32_t)atoi(argv[1]);
+    if (N < 16 || N % 16) {
+        fprintf(stderr, "usage: bench_brv [N], N a multiple of 16\n");
+        return 2;
+    }
+    size_t cells = (size_t)N * N * N;
+    printf("bench_brv: %u^3 cells, 4 channels, bricks of 16^3, zstd level 9, smooth synthetic fog\n", N);
+
+    /* Sizes against plain zstd of the raw float32 array (one frame, same level). */
+    float *raw = malloc(cells * 4 * sizeof(float));
+    for (uint32_t c = 0; c < 4; c++)
+        for (size_t i = 0; i < cells; i++) raw[c * cells + i] = field(c, i % N, i / N % N, i / ((size_t)N * N));
+    size_t cap = ZSTD_compressBound(cells * 16);
+    void *zb = malloc(cap);
+    double t0 = now();
+    size_t zraw = ZSTD_compress(zb, cap, raw, cells * 16, 9);
+    double tz = now() - t0;
+    free(zb);
+    free(raw);
+    double raw_f16 = cells * 4 * 2.0, raw_f32 = cells * 16.0;
+    printf("\nsize (raw f32 %.1f MiB, raw f16 %.1f MiB; plain zstd -9 of the raw floats: %.1f MiB = %.2fx, %.1f s)\n",
+           raw_f32 / (1 << 20), raw_f16 / (1 << 20), zraw / 1048576.0, raw_f32 / zraw, tz);
+    struct {
+        const char *name;
+        brv_encoding a, rgb;
+    } encs[3] = {{"f32", BRV_ENCODING_F32, BRV_ENCODING_F32},
+                 {"f16", BRV_ENCODING_F16, BRV_ENCODING_F16},
+                 {"compact (f16 + rgb9e5)", BRV_ENCODING_F16, BRV_ENCODING_RGB9E5}};
+    vol vols[3];
+    for (int e = 0; e < 3; e++) {
+        vols[e] = write_volume(encs[e].a, encs[e].rgb, 9);
+        printf("  %-24s %8.2f MiB  %6.2fx smaller than raw f16, %6.2fx than raw f32, %5.2fx than zstd of raw f32;"
+               " written in %.2f s\n",
+               encs[e].name, vols[e].size / 1048576.0, raw_f16 / vols[e].size, raw_f32 / vols[e].size,
+               (double)zraw / vols[e].size, vols[e].write_s);
+    }
+    printf("\ndecode of the whole volume (best of 3; 'zstd alone' = ZSTD_decompressDCtx on the same frames)\n");
+    decode_bench("f32", &vols[0]);
+    decode_bench("f16", &vols[1]);
+    decode_bench("cmp", &vols[2]);
+    printf("\nrandom access (trilinear, all 4 channels, f16 volume, 1 thread)\n");
+    uint32_t all = (N / 16) * (N / 16) * (N / 16);
+    random_access(&vols[1], all, "random");
+    random_access(&vols[1], 512, "random");
+    random_access(&vols[1], 64, "march");
+    for (int e = 0; e < 3; e++) free(vols[e].bytes);
+    return 0;
+}
