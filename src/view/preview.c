@@ -6,6 +6,7 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include "base/lds.h"
 #include "base/sh.h"
 #include "base/threads.h"
 #include "scene/light.h"
@@ -232,6 +233,53 @@ typedef struct job {
     uint8_t *marker;
 } job;
 
+/* ∫ max(a·ω, 0)·max(b·ω, 0) dω over the sphere for unit a, b at angle theta: the overlap of two
+ * clamped cosines, (2/3)·((π − θ)·cos θ + sin θ) (own derivation; 2π/3 at θ = 0, 2/3 at π/2,
+ * 0 at π; checked by quadrature in tests/view/test_preview.c). */
+static double cosine_overlap(double cos_theta)
+{
+    double c = brm_clamp(cos_theta, -1.0, 1.0);
+    double th = acos(c);
+    return (2.0 / 3.0) * ((BRM_PI - th) * c + sin(th));
+}
+
+/* Sky irradiance on a surface at q with normal n: the open sky's in closed form, minus what
+ * geometry blocks, estimated by SKY_RAYS cosine-distributed rays over n's hemisphere.
+ * Open sky (SPEC.md: L = H + (Z − H)·max(y, 0) + (G − H)·max(−y, 0)):
+ *   E_open(n) = π·H + (Z − H)·I(n·y) + (G − H)·I(−n·y), I the clamped-cosine overlap above.
+ * Blocked: with directions ω_k distributed as cos/π (Malley: uniform on the disk, lifted), each
+ * carries π/N of ∫ L·cos dω, so E = E_open − (π/N)·Σ_blocked L(ω_k): exact for an open surface
+ * and unbiased under occluders. The rays are a stratified set (equal-area rings in the disk,
+ * the golden angle apart), rotated per pixel by a deterministic offset. */
+#define SKY_RAYS 8u
+static brm_vec3 sky_irradiance(const job *j, brm_vec3 q, brm_vec3 n, uint32_t pixel)
+{
+    const brm_sky *sky = &j->s->sky;
+    brm_vec3 a = brm_sub(sky->zenith, sky->horizon), b = brm_sub(sky->ground, sky->horizon);
+    double iu = cosine_overlap(n.y), id = cosine_overlap(-n.y);
+    brm_vec3 E = brm_add(brm_scale(sky->horizon, BRM_PI), brm_add(brm_scale(a, iu), brm_scale(b, id)));
+    if (j->bvh) {
+        brm_vec3 t1 = brm_norm(brm_cross(fabs(n.x) < 0.9 ? brm_v3(1, 0, 0) : brm_v3(0, 1, 0), n));
+        brm_vec3 t2 = brm_cross(n, t1);
+        double shift[2];
+        brm_sample2(0x70726576ull /* "prev" */, pixel, shift);
+        const double golden = 0.61803398874989484820;
+        brm_vec3 blocked = brm_v3(0, 0, 0);
+        for (uint32_t k = 0; k < SKY_RAYS; k++) {
+            double u1 = ((double)k + shift[0]) / (double)SKY_RAYS;
+            double u2 = shift[1] + golden * (double)k;
+            u2 -= floor(u2);
+            double r = sqrt(u1), phi = 2.0 * BRM_PI * u2;
+            brm_vec3 w = brm_add(brm_add(brm_scale(t1, r * cos(phi)), brm_scale(t2, r * sin(phi))),
+                                 brm_scale(n, sqrt(fmax(0.0, 1.0 - u1))));
+            w = brm_norm(w);
+            if (brm_bvh_occluded(j->bvh, q, w, j->eps, HUGE_VAL)) blocked = brm_add(blocked, brm_sky_radiance(sky, w));
+        }
+        E = brm_madd(E, blocked, -BRM_PI / (double)SKY_RAYS);
+    }
+    return brm_v3(fmax(E.x, 0.0), fmax(E.y, 0.0), fmax(E.z, 0.0));
+}
+
 static brm_vec3 shade_surface(const job *j, brm_vec3 p, brm_vec3 n, brm_vec3 albedo, uint32_t pixel)
 {
     const brm_scene *s = j->s;
@@ -251,15 +299,8 @@ static brm_vec3 shade_surface(const job *j, brm_vec3 p, brm_vec3 n, brm_vec3 alb
         e[0] += a * lt->color.x, e[1] += a * lt->color.y, e[2] += a * lt->color.z;
     }
     if (s->sky.present) {
-        double sky[3][4];
-        brm_sky_incident(j->ss, q, pixel, sky);
-        /* Ramamoorthi & Hanrahan 2001: E(n) = Σ Â_l L_lm Y_lm(n), Â0 = π, Â1 = 2π/3, bands 0–1. */
-        double y[4];
-        brm_sh4(n, y);
-        for (int c = 0; c < 3; c++) {
-            double E = BRM_PI * sky[c][0] * y[0] + (2.0 * BRM_PI / 3.0) * (sky[c][1] * y[1] + sky[c][2] * y[2] + sky[c][3] * y[3]);
-            if (E > 0.0) e[c] += E;
-        }
+        brm_vec3 E = sky_irradiance(j, q, n, pixel);
+        e[0] += E.x, e[1] += E.y, e[2] += E.z;
     }
     return brm_v3(albedo.x / BRM_PI * e[0], albedo.y / BRM_PI * e[1], albedo.z / BRM_PI * e[2]);
 }

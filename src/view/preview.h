@@ -8,10 +8,13 @@
  * - Surfaces are Lambertian: L = albedo/π · (Σ_lights E·max(0, n·l)·V·T_light·colour + E_sky),
  *   E the light's illuminance at the point (scene/light.h), V its shadow-map visibility and
  *   T_light its transmittance through the fog toward the light (shadow/shadow.h, from a shadow
- *   set built for the preview over the scene's geometry), and E_sky the sky irradiance from
- *   bands 0–1 of brm_sky_incident (occluded by geometry, the surface itself included):
- *   E_sky = π·L00·Y00 + (2π/3)·Σ_m L1m·Y1m(n) (Ramamoorthi & Hanrahan 2001, Â0 = π, Â1 = 2π/3),
- *   clamped at 0. For a plane open to a uniform sky this is exactly π·L.
+ *   set built for the preview over the scene's geometry), and E_sky the sky irradiance:
+ *   the open sky's in closed form, E_open(n) = π·H + (Z − H)·I(n_y) + (G − H)·I(−n_y) with
+ *   I(c) = (2/3)·((π − θ)·c + sin θ), θ = acos c (the overlap of two clamped cosines), minus
+ *   what geometry blocks, (π/8)·Σ L_sky(ω_k) over the blocked ones of 8 cosine-distributed
+ *   rays (stratified, rotated per pixel). Exact for a surface open to the sky, unbiased under
+ *   occluders. (brm_sky_incident's bands 0–1 were tried first: its rays into the surface's own
+ *   half-space left about ±15 % noise per pixel on an open wall.)
  * - Fog (the "fogged" picture): L' = L·T + S along the pixel's ray up to the surface (or, for a
  *   ray that misses, to the far plane / through the whole volume):
  *   frustum targets: T and S from the baked `transmittance` and `scatter.*` channels at the
