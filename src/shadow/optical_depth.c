@@ -46,8 +46,8 @@ void brm_media_info_init(const brm_scene *s, media_info *mi)
             uint32_t oct = m->octaves ? m->octaves : 1;
             if (oct > 30) oct = 30;
             mi->feature = fmin(mi->feature, m->scale_m / (double)(1u << (oct - 1)));
-            /* Finer octaves average out along a path: the second octave sets the lateral scale. */
-            mi->feature_lateral = fmin(mi->feature_lateral, m->scale_m / (oct > 1 ? 2.0 : 1.0));
+            /* Paths through thin fog are short and do not average the finest octave out. */
+            mi->feature_lateral = fmin(mi->feature_lateral, m->scale_m / (double)(1u << (oct - 1)));
             break;
         }
         default:
@@ -56,19 +56,31 @@ void brm_media_info_init(const brm_scene *s, media_info *mi)
     }
 }
 
-/* Composite Simpson over [a, b] with panels no longer than h (at least one). */
-static double simpson(const brm_scene *s, brm_vec3 p, brm_vec3 d, double a, double b, double h)
+/* sigma~: extinction at q clamped into the fog bounds (continued outside them). */
+static inline double sigma_cont(const brm_scene *s, brm_vec3 q)
+{
+    brm_aabb b = s->fog_bounds;
+    return brm_media_extinction(s, brm_vmin(brm_vmax(q, b.min), b.max));
+}
+
+/* Composite Simpson over [a, b] with panels no longer than h (at least one); cont: integrate
+ * sigma~ instead of sigma_t. */
+static double simpson(const brm_scene *s, brm_vec3 p, brm_vec3 d, double a, double b, double h, bool cont)
 {
     double len = b - a;
     if (!(len > 0.0)) return 0.0;
     double np = ceil(len / h);
     uint32_t n = np < 1.0 ? 1u : np > 1e7 ? 10000000u : (uint32_t)np;
     double w = len / (double)n;
-    double sum = brm_media_extinction(s, brm_madd(p, d, a)) + brm_media_extinction(s, brm_madd(p, d, b));
+    double (*sig)(const brm_scene *, brm_vec3) = cont ? sigma_cont : brm_media_extinction;
+    /* The ends are where the path crosses the fog bounds or a box face: sample a hair inside,
+     * or rounding may put the sample on the wrong side of a jump in sigma_t. */
+    double in = 1e-9 * len;
+    double sum = sig(s, brm_madd(p, d, a + in)) + sig(s, brm_madd(p, d, b - in));
     for (uint32_t k = 0; k < n; k++) {
         double t0 = a + w * (double)k;
-        sum += 4.0 * brm_media_extinction(s, brm_madd(p, d, t0 + 0.5 * w));
-        if (k + 1 < n) sum += 2.0 * brm_media_extinction(s, brm_madd(p, d, t0 + w));
+        sum += 4.0 * sig(s, brm_madd(p, d, t0 + 0.5 * w));
+        if (k + 1 < n) sum += 2.0 * sig(s, brm_madd(p, d, t0 + w));
     }
     return sum * w / 6.0;
 }
@@ -79,21 +91,19 @@ static int cmp_double(const void *a, const void *b)
     return (x > y) - (x < y);
 }
 
-double brm_optical_depth_segment(const brm_scene *s, const media_info *mi, brm_vec3 p, brm_vec3 d, double t0,
-                                 double t1, double h)
+#define MAX_CUTS (4 + 4 * BRM_MAX_MEDIA + BRM_MAX_MEDIA)
+
+/* The places in (a, b), sorted, where sigma_t has a jump or a kink along p + t·d: box faces,
+ * base planes, and (cont) the fog-bounds faces, where the continuation has kinks. */
+static uint32_t line_cuts(const brm_scene *s, const media_info *mi, brm_vec3 p, brm_vec3 d, double a, double b,
+                          bool cont, double *cut)
 {
-    if (!mi->any || !(t1 > t0)) return 0.0;
     brm_vec3 inv = brm_v3(1.0 / d.x, 1.0 / d.y, 1.0 / d.z);
-    double a, b;
-    if (!brm_ray_aabb(p, inv, s->fog_bounds, t0, t1, &a, &b) || !(b > a)) return 0.0;
-    if (mi->only_uniform) h = HUGE_VAL; /* constant inside the bounds: one panel is exact */
-    double cut[2 + 4 * BRM_MAX_MEDIA + BRM_MAX_MEDIA];
     uint32_t nc = 0;
-    cut[nc++] = a;
-    cut[nc++] = b;
-    for (uint32_t k = 0; k < mi->box_count; k++) {
+    for (uint32_t k = 0; k <= mi->box_count; k++) {
+        if (k == mi->box_count && !cont) break;
         double c0, c1;
-        if (brm_ray_aabb(p, inv, mi->boxes[k], a, b, &c0, &c1)) {
+        if (brm_ray_aabb(p, inv, k < mi->box_count ? mi->boxes[k] : s->fog_bounds, a, b, &c0, &c1)) {
             if (c0 > a && c0 < b) cut[nc++] = c0;
             if (c1 > a && c1 < b) cut[nc++] = c1;
         }
@@ -104,9 +114,40 @@ double brm_optical_depth_segment(const brm_scene *s, const media_info *mi, brm_v
         if (t > a && t < b) cut[nc++] = t;
     }
     qsort(cut, nc, sizeof cut[0], cmp_double);
+    return nc;
+}
+
+/* ∫ over [a, b] split at the cuts, composite Simpson on each piece. */
+static double integrate_pieces(const brm_scene *s, const media_info *mi, brm_vec3 p, brm_vec3 d, double a, double b,
+                               double h, bool cont)
+{
+    double cut[MAX_CUTS + 2];
+    cut[0] = a;
+    uint32_t nc = 1 + line_cuts(s, mi, p, d, a, b, cont, cut + 1);
+    cut[nc++] = b;
     double tau = 0.0;
-    for (uint32_t k = 0; k + 1 < nc; k++) tau += simpson(s, p, d, cut[k], cut[k + 1], h);
+    for (uint32_t k = 0; k + 1 < nc; k++) tau += simpson(s, p, d, cut[k], cut[k + 1], h, cont);
     return tau;
+}
+
+double brm_optical_depth_segment(const brm_scene *s, const media_info *mi, brm_vec3 p, brm_vec3 d, double t0,
+                                 double t1, double h)
+{
+    if (!mi->any || !(t1 > t0)) return 0.0;
+    brm_vec3 inv = brm_v3(1.0 / d.x, 1.0 / d.y, 1.0 / d.z);
+    double a, b;
+    if (!brm_ray_aabb(p, inv, s->fog_bounds, t0, t1, &a, &b) || !(b > a)) return 0.0;
+    if (mi->only_uniform) h = HUGE_VAL; /* constant inside the bounds: one panel is exact */
+    return integrate_pieces(s, mi, p, d, a, b, h, false);
+}
+
+/* Signed ∫ of sigma~ from t0 to t1 (negative when t1 < t0). */
+static double continued_segment(const brm_scene *s, const media_info *mi, brm_vec3 p, brm_vec3 d, double t0, double t1,
+                                double h)
+{
+    if (t1 < t0) return -continued_segment(s, mi, p, d, t1, t0, h);
+    if (!(t1 > t0)) return 0.0;
+    return integrate_pieces(s, mi, p, d, t0, t1, mi->only_uniform ? HUGE_VAL : h, true);
 }
 
 /* ---- grids ------------------------------------------------------------------------- */
@@ -152,7 +193,7 @@ size_t brm_od_plan(const brm_scene *s, const brm_shadow_opts *o, const media_inf
     /* Spacing: optical depth varies across paths on the lateral feature scale and along a
      * path on the fine one; Hermite interpolation along the path (the derivative of tau is
      * sigma_t, stored too) makes half a feature per node ample. */
-    double lat = mi->feature_lateral / 6.0, along = mi->feature / 2.0;
+    double lat = mi->feature_lateral / 3.0, along = mi->feature / 4.0;
     if (l->type == BRM_LIGHT_DIRECTIONAL) {
         shadow_view *v = &ls->views[0];
         double lo[3] = {HUGE_VAL, HUGE_VAL, HUGE_VAL}, hi[3] = {-HUGE_VAL, -HUGE_VAL, -HUGE_VAL};
@@ -170,7 +211,9 @@ size_t brm_od_plan(const brm_scene *s, const brm_shadow_opts *o, const media_inf
             for (int a = 0; a < 3; a++) n[a] = (uint32_t)fmax(4.0, floor(n[a] * f));
         }
         for (int a = 0; a < 3; a++) axis_set(v, a, lo[a], hi[a], n[a], true);
-        return (size_t)n[0] * n[1] * n[2] * 2 * sizeof(float);
+        for (int a = 0; a < 3; a++) v->prefix_axis[a] = brm_vget(v->f, a) != 0.0;
+        return ((size_t)n[0] * n[1] * n[2] * 2 + (size_t)3 * n[0] * n[1]) * sizeof(float) +
+               (size_t)(n[0] - 1) * (n[1] - 1) * (n[2] - 1);
     }
     brm_vec3 pos = l->position;
     double rmax = 1e-3;
@@ -192,54 +235,157 @@ size_t brm_od_plan(const brm_scene *s, const brm_shadow_opts *o, const media_inf
         axis_set(v, 0, -tan_half, tan_half, nl, true);
         axis_set(v, 1, -tan_half, tan_half, nl, true);
         axis_set(v, 2, 0.0, rmax, nr, false);
-        bytes += (size_t)nl * nl * nr * 2 * sizeof(float);
+        bytes += (size_t)nl * nl * nr * 2 * sizeof(float) + (size_t)(nl - 1) * (nl - 1) * (nr - 1);
     }
     return bytes;
+}
+
+/* Depth where the line o + t·f crosses the plane of the fog-bounds face that light travelling
+ * along f enters through on axis a. */
+static double face_depth(const brm_scene *s, brm_vec3 o, brm_vec3 f, int a)
+{
+    double fa = brm_vget(f, a);
+    double plane = fa > 0.0 ? brm_vget(s->fog_bounds.min, a) : brm_vget(s->fog_bounds.max, a);
+    return (plane - brm_vget(o, a)) / fa;
+}
+
+/* The axis of the fog-bounds face the line o + t·f enters through (the last slab it enters),
+ * or −1 when it misses the bounds. */
+static int entry_face(const brm_scene *s, brm_vec3 o, brm_vec3 f)
+{
+    int best = -1;
+    double tin = -HUGE_VAL, tout = HUGE_VAL;
+    for (int a = 0; a < 3; a++) {
+        double fa = brm_vget(f, a), oa = brm_vget(o, a);
+        double lo = brm_vget(s->fog_bounds.min, a), hi = brm_vget(s->fog_bounds.max, a);
+        if (fa == 0.0) {
+            if (oa < lo || oa > hi) return -1;
+            continue;
+        }
+        double t0 = ((fa > 0.0 ? lo : hi) - oa) / fa, t1 = ((fa > 0.0 ? hi : lo) - oa) / fa;
+        if (t0 > tin) tin = t0, best = a;
+        if (t1 < tout) tout = t1;
+    }
+    return tin <= tout ? best : -1;
+}
+
+/* One column of the grid at lateral (x, y): G and sigma~ at every depth node into col, and
+ * for ortho views P_a for the faces marked in need (0 for the others) into pre[3]. */
+static void fill_column(const brm_scene *s, const media_info *mi, const shadow_view *v, double x, double y,
+                        const bool need[3], float *col, float pre[3])
+{
+    uint32_t nk = v->og_n[2];
+    double h = fmax(mi->feature / 2.0, 1.0001 * v->og_step[2]);
+    brm_vec3 diag = brm_sub(s->fog_bounds.max, s->fog_bounds.min);
+    double reach = 2.0 * brm_len(diag) + (double)nk * v->og_step[2];
+    brm_vec3 o, d;
+    double t = v->og_lo[2];
+    if (v->kind == BRM_VIEW_ORTHO) {
+        o = brm_add(brm_scale(v->u, x), brm_scale(v->v, y)); /* f·o = 0, so f·(o + t f) = t */
+        d = v->f;
+        for (int a = 0; a < 3; a++) {
+            pre[a] = 0.0f;
+            if (!v->prefix_axis[a] || !need[a]) continue;
+            /* A face the light meets almost edge-on crosses far away: only paths that really
+             * enter through it use the value, and those are shorter than the bounds'
+             * diagonal, so the far end is cut there. */
+            double za = brm_clamp(face_depth(s, o, d, a), t - reach, t + reach);
+            pre[a] = (float)continued_segment(s, mi, o, d, za, t, h);
+        }
+    } else {
+        o = v->origin;
+        d = brm_norm(brm_add(v->f, brm_add(brm_scale(v->u, x), brm_scale(v->v, y))));
+    }
+    /* Walk the column: a segment with no cut inside that fits one Simpson panel reuses the
+     * node values (two evaluations per node); the others take the general path. */
+    double cut[MAX_CUTS];
+    double tend = v->og_lo[2] + v->og_step[2] * (double)(nk - 1);
+    uint32_t nc = line_cuts(s, mi, o, d, t, tend, true, cut), ci = 0;
+    double g = 0.0, sig = sigma_cont(s, brm_madd(o, d, t));
+    for (uint32_t k = 0; k < nk; k++) {
+        if (k > 0) {
+            double t1 = v->og_lo[2] + v->og_step[2] * (double)k;
+            bool clean = !(ci < nc && cut[ci] < t1) && t1 - t <= h;
+            while (ci < nc && cut[ci] < t1) ci++;
+            double s1 = sigma_cont(s, brm_madd(o, d, t1));
+            if (clean && !mi->only_uniform)
+                g += (t1 - t) / 6.0 * (sig + 4.0 * sigma_cont(s, brm_madd(o, d, 0.5 * (t + t1))) + s1);
+            else
+                g += continued_segment(s, mi, o, d, t, t1, h);
+            t = t1;
+            sig = s1;
+        }
+        col[2 * k] = (float)g;
+        col[2 * k + 1] = (float)sig;
+    }
 }
 
 void brm_od_fill_row(const brm_scene *s, const media_info *mi, shadow_view *v, uint32_t j)
 {
     uint32_t nk = v->og_n[2];
-    double h = mi->feature / 2.0;
     double y = v->og_lo[1] + v->og_step[1] * (double)j;
+    size_t plane = (size_t)v->og_n[0] * v->og_n[1];
     for (uint32_t i = 0; i < v->og_n[0]; i++) {
         double x = v->og_lo[0] + v->og_step[0] * (double)i;
-        float *col = v->od + 2 * ((size_t)nk * ((size_t)i + (size_t)v->og_n[0] * j));
-        brm_vec3 o, d;
-        double tau, t = v->og_lo[2];
+        size_t cell = (size_t)i + (size_t)v->og_n[0] * j;
+        bool need[3] = {false, false, false};
+        if (v->kind == BRM_VIEW_ORTHO)
+            /* Only the faces that paths near this column enter through are ever read. */
+            for (int dj = -1; dj <= 1; dj++)
+                for (int di = -1; di <= 1; di++) {
+                    brm_vec3 on = brm_add(brm_scale(v->u, x + di * v->og_step[0]), brm_scale(v->v, y + dj * v->og_step[1]));
+                    int e = entry_face(s, on, v->f);
+                    if (e >= 0) need[e] = true;
+                }
+        float pre[3];
+        fill_column(s, mi, v, x, y, need, v->od + 2 * (size_t)nk * cell, pre);
+        if (v->kind == BRM_VIEW_ORTHO)
+            for (int a = 0; a < 3; a++) v->prefix[a * plane + cell] = pre[a];
+    }
+}
+
+/* Interpolation error of G (+ P) at the centre column of every lateral cell in row j, at each
+ * depth node. Cells where it exceeds BRM_OD_CHECK_TAU are flagged: lookups there march. */
+void brm_od_check_row(const brm_scene *s, const media_info *mi, shadow_view *v, uint32_t j, float *scratch)
+{
+    uint32_t nk = v->og_n[2], n0 = v->og_n[0];
+    double y = v->og_lo[1] + v->og_step[1] * ((double)j + 0.5);
+    size_t plane = (size_t)n0 * v->og_n[1];
+    for (uint32_t i = 0; i + 1 < n0; i++) {
+        double x = v->og_lo[0] + v->og_step[0] * ((double)i + 0.5);
+        int e = -1;
+        bool need[3] = {false, false, false};
         if (v->kind == BRM_VIEW_ORTHO) {
-            o = brm_add(brm_scale(v->u, x), brm_scale(v->v, y)); /* f·o = 0, so f·(o + t f) = t */
-            d = v->f;
-            tau = brm_optical_depth_segment(s, mi, o, d, -HUGE_VAL, t, h);
-        } else {
-            o = v->origin;
-            d = brm_norm(brm_add(v->f, brm_add(brm_scale(v->u, x), brm_scale(v->v, y))));
-            tau = 0.0; /* t starts at the light */
+            e = entry_face(s, brm_add(brm_scale(v->u, x), brm_scale(v->v, y)), v->f);
+            if (e >= 0) need[e] = true;
         }
+        float pre[3];
+        fill_column(s, mi, v, x, y, need, scratch, pre);
+        size_t c00 = (size_t)i + (size_t)n0 * j, c[4] = {c00, c00 + 1, c00 + n0, c00 + n0 + 1};
+        double p_int = 0.0, p_ex = 0.0;
+        if (e >= 0) {
+            for (int q = 0; q < 4; q++) p_int += 0.25 * v->prefix[e * plane + c[q]];
+            p_ex = pre[e];
+        }
+        uint8_t *bad = v->od_bad + ((size_t)i + (size_t)(n0 - 1) * j) * (nk - 1);
+        for (uint32_t k = 0; k + 1 < nk; k++) bad[k] = 0;
         for (uint32_t k = 0; k < nk; k++) {
-            if (k > 0) {
-                double t1 = v->og_lo[2] + v->og_step[2] * (double)k;
-                tau += brm_optical_depth_segment(s, mi, o, d, t, t1, h);
-                t = t1;
+            double g_int = 0.0;
+            for (int q = 0; q < 4; q++) g_int += 0.25 * v->od[2 * ((size_t)nk * c[q] + k)];
+            double err = fabs((g_int + p_int) - ((double)scratch[2 * k] + p_ex));
+            if (err > BRM_OD_CHECK_TAU) {
+                if (k > 0) bad[k - 1] = 1;
+                if (k + 1 < nk) bad[k] = 1;
             }
-            col[2 * k] = (float)tau;
-            col[2 * k + 1] = (float)brm_media_extinction(s, brm_madd(o, d, t));
         }
     }
 }
 
-/* Cubic Hermite in the path parameter (values tau, slopes sigma_t), bilinear across paths. */
-int brm_od_lookup(const shadow_view *v, brm_vec3 p, double *tau)
+/* G at grid coordinates (x, y, z): cubic Hermite in z (values G, slopes sigma~), bilinear
+ * across paths. Returns 0 outside the grid. */
+static int grid_eval(const shadow_view *v, double x, double y, double z, double *out, double *lat_w,
+                     uint32_t *lat_c)
 {
-    double x, y, z;
-    if (v->kind == BRM_VIEW_ORTHO) {
-        x = brm_dot(p, v->u), y = brm_dot(p, v->v), z = brm_dot(p, v->f);
-    } else {
-        brm_vec3 d = brm_sub(p, v->origin);
-        double zf = brm_dot(d, v->f);
-        if (!(zf > 0.0)) return 0;
-        x = brm_dot(d, v->u) / zf, y = brm_dot(d, v->v) / zf, z = brm_len(d);
-    }
     double f[3] = {(x - v->og_lo[0]) / v->og_step[0], (y - v->og_lo[1]) / v->og_step[1],
                    (z - v->og_lo[2]) / v->og_step[2]};
     uint32_t c[3];
@@ -262,6 +408,58 @@ int brm_od_lookup(const shadow_view *v, brm_vec3 p, double *tau)
         double wq = (q & 1 ? w[0] : 1.0 - w[0]) * (q >> 1 ? w[1] : 1.0 - w[1]);
         acc += wq * val;
     }
-    *tau = acc > 0.0 ? acc : 0.0;
+    if (v->od_bad && v->od_bad[((size_t)c[0] + (size_t)(v->og_n[0] - 1) * c[1]) * (v->og_n[2] - 1) + c[2]]) return 0;
+    *out = acc;
+    if (lat_w) {
+        lat_w[0] = w[0], lat_w[1] = w[1];
+        lat_c[0] = c[0], lat_c[1] = c[1];
+    }
+    return 1;
+}
+
+int brm_od_lookup(const brm_scene *s, const shadow_view *v, brm_vec3 p, double *tau)
+{
+    const brm_aabb fb = s->fog_bounds;
+    if (!brm_aabb_contains(fb, p)) return 0;
+    if (v->kind == BRM_VIEW_ORTHO) {
+        double x = brm_dot(p, v->u), y = brm_dot(p, v->v), z = brm_dot(p, v->f);
+        double g, w[2];
+        uint32_t c[2];
+        if (!grid_eval(v, x, y, z, &g, w, c)) return 0;
+        /* The face p's path toward the light leaves the fog through: the nearest one back
+         * along f. */
+        int best = -1;
+        double tb = HUGE_VAL;
+        for (int a = 0; a < 3; a++) {
+            double fa = brm_vget(v->f, a);
+            if (fa == 0.0) continue;
+            double plane = fa > 0.0 ? brm_vget(fb.min, a) : brm_vget(fb.max, a);
+            double ta = (brm_vget(p, a) - plane) / fa; /* distance back to the plane, ≥ 0 */
+            if (ta < tb) tb = ta, best = a;
+        }
+        if (best < 0) return 0;
+        const float *P = v->prefix + (size_t)best * v->og_n[0] * v->og_n[1];
+        size_t n0 = v->og_n[0], k = c[0] + n0 * c[1];
+        double pre = (1 - w[0]) * (1 - w[1]) * P[k] + w[0] * (1 - w[1]) * P[k + 1] + (1 - w[0]) * w[1] * P[k + n0] +
+                     w[0] * w[1] * P[k + n0 + 1];
+        double t = pre + g;
+        *tau = t > 0.0 ? t : 0.0;
+        return 1;
+    }
+    brm_vec3 d = brm_sub(p, v->origin);
+    double zf = brm_dot(d, v->f);
+    if (!(zf > 0.0)) return 0;
+    double x = brm_dot(d, v->u) / zf, y = brm_dot(d, v->v) / zf, r = brm_len(d);
+    double g;
+    if (!grid_eval(v, x, y, r, &g, NULL, NULL)) return 0;
+    if (!brm_aabb_contains(fb, v->origin)) {
+        /* The light is outside the fog: subtract what G holds before the path enters it. */
+        brm_vec3 dir = brm_scale(d, 1.0 / r), inv = brm_v3(1.0 / dir.x, 1.0 / dir.y, 1.0 / dir.z);
+        double t0, t1, g0;
+        if (!brm_ray_aabb(v->origin, inv, fb, 0.0, r, &t0, &t1)) return 0;
+        if (!grid_eval(v, x, y, t0, &g0, NULL, NULL)) return 0;
+        g -= g0;
+    }
+    *tau = g > 0.0 ? g : 0.0;
     return 1;
 }

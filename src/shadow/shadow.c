@@ -86,6 +86,23 @@ static void od_item(void *ctx, uint32_t item, int worker)
     brm_od_fill_row(c->ss->scene, &c->ss->media, &c->ss->lights[it->light].views[it->view], it->row);
 }
 
+static void od_check_item(void *ctx, uint32_t item, int worker)
+{
+    (void)worker;
+    build_ctx *c = ctx;
+    build_item *it = &c->items[item];
+    shadow_view *v = &c->ss->lights[it->light].views[it->view];
+    if (it->row + 1 >= v->og_n[1]) return;
+    float *scratch = malloc((size_t)v->og_n[2] * 2 * sizeof(float));
+    if (!scratch) { /* cannot check: flag the row so its lookups march (correct, slower) */
+        memset(v->od_bad + (size_t)(v->og_n[0] - 1) * it->row * (v->og_n[2] - 1), 1,
+               (size_t)(v->og_n[0] - 1) * (v->og_n[2] - 1));
+        return;
+    }
+    brm_od_check_row(c->ss->scene, &c->ss->media, v, it->row, scratch);
+    free(scratch);
+}
+
 brm_status brm_shadows_build(const brm_scene *s, const brm_shadow_opts *o, brm_shadow_set **out, brm_diag *d)
 {
     BRM_CHECK(d, s && o && out, BRM_E_INTERNAL, "shadows: missing scene, options or output");
@@ -123,9 +140,11 @@ brm_status brm_shadows_build(const brm_scene *s, const brm_shadow_opts *o, brm_s
             }
             if (ls->has_od) {
                 v->od = malloc((size_t)v->og_n[0] * v->og_n[1] * v->og_n[2] * 2 * sizeof(float));
+                if (v->kind == BRM_VIEW_ORTHO) v->prefix = malloc((size_t)3 * v->og_n[0] * v->og_n[1] * sizeof(float));
+                v->od_bad = calloc((size_t)(v->og_n[0] - 1) * (v->og_n[1] - 1) * (v->og_n[2] - 1), 1);
                 n_od += v->og_n[1];
             }
-            if ((ls->has_map && !v->depth) || (ls->has_od && !v->od)) {
+            if ((ls->has_map && !v->depth) || (ls->has_od && (!v->od || !v->od_bad || (v->kind == BRM_VIEW_ORTHO && !v->prefix)))) {
                 st = brm_diag_error(d, BRM_E_NOMEM, "shadows: out of memory for %s's maps (%zu bytes planned)",
                                     s->lights[l].json_path, ss->bytes);
                 goto fail;
@@ -150,7 +169,8 @@ brm_status brm_shadows_build(const brm_scene *s, const brm_shadow_opts *o, brm_s
     build_ctx ctx = {ss, items};
     int threads = o->threads > 0 ? o->threads : 1;
     if (brm_parallel_for(n_raster, threads, raster_item, &ctx, &brm_interrupted) != n_raster ||
-        brm_parallel_for(n_od, threads, od_item, &(build_ctx){ss, items + n_raster}, &brm_interrupted) != n_od) {
+        brm_parallel_for(n_od, threads, od_item, &(build_ctx){ss, items + n_raster}, &brm_interrupted) != n_od ||
+        brm_parallel_for(n_od, threads, od_check_item, &(build_ctx){ss, items + n_raster}, &brm_interrupted) != n_od) {
         st = brm_diag_error(d, BRM_E_INTERRUPTED, "shadows: interrupted while building the light maps");
         goto fail;
     }
@@ -187,6 +207,8 @@ void brm_shadows_free(brm_shadow_set *ss)
         for (uint32_t k = 0; k < 6; k++) {
             free(ss->lights[l].views[k].depth);
             free(ss->lights[l].views[k].od);
+            free(ss->lights[l].views[k].prefix);
+            free(ss->lights[l].views[k].od_bad);
         }
     free(ss->lights);
     brm_bvh_free(ss->own_bvh);
@@ -237,7 +259,7 @@ double brm_shadow_transmittance(const brm_shadow_set *ss, uint32_t l, brm_vec3 p
     if (!ss->media.any) return 1.0;
     const light_shadow *ls = &ss->lights[l];
     double tau;
-    if (ls->has_od && brm_od_lookup(brm_shadow_pick_view(ls, p), p, &tau)) return exp(-tau);
+    if (ls->has_od && brm_od_lookup(ss->scene, brm_shadow_pick_view(ls, p), p, &tau)) return exp(-tau);
     return brm_shadow_transmittance_march(ss, l, p);
 }
 

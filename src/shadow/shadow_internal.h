@@ -14,8 +14,12 @@
 #define BRM_SHADOW_AUTO_MAX 4096u
 #define BRM_SHADOW_MIN_RES 16u
 #define BRM_SHADOW_MAX_RES 16384u
-/* Nodes per optical-depth grid (all faces of one light together): 2 floats each, 16 MiB. */
-#define BRM_OD_MAX_NODES (1u << 21)
+/* Nodes per optical-depth grid (all faces of one light together): 2 floats each, 8 MiB. */
+#define BRM_OD_MAX_NODES (1u << 20)
+/* Optical-depth error the grid may make before a cell falls back to the exact march: 0.003
+ * checked at cell centres keeps the worst case (a kink anywhere in the cell, at most about
+ * twice the centre error) under 1 % in transmittance. */
+#define BRM_OD_CHECK_TAU 0.003
 /* Spots wider than this (outer half-angle, degrees) use six cube faces instead of one
  * perspective map, whose texels would stretch too much toward the rim. */
 #define BRM_SPOT_CUBE_DEG 60.0
@@ -46,8 +50,23 @@ typedef struct shadow_view {
      * og_lo[2] + k·og_step[2] (ortho: f·p; persp: distance from the light) */
     uint32_t og_n[3];           /* nodes per axis, 0 = no grid */
     double og_lo[3], og_step[3];
-    float *od;                  /* 2 floats per node (tau, sigma_t), k fastest, then i, then j */
+    float *od;                  /* 2 floats per node (G, sigma), k fastest, then i, then j */
+    /* ortho only: P_a(i, j) per axis a whose fog-bounds face the light can enter through */
+    float *prefix;              /* 3 · og_n[0] · og_n[1], axis-major; NULL for persp */
+    bool prefix_axis[3];
+    /* per lateral cell and depth interval: 1 where the build found interpolation off by more
+     * than BRM_OD_CHECK_TAU (paths grazing a fade or an edge): lookups there march instead */
+    uint8_t *od_bad;            /* (og_n[0] − 1) · (og_n[1] − 1) · (og_n[2] − 1) */
 } shadow_view;
+/* The grids store G = ∫ sigma~ along the path from the first depth node (ortho) or from the
+ * light (persp), where sigma~(q) = sigma_t(q clamped into the fog bounds): sigma_t continued
+ * outside the bounds so G stays smooth across the place a path leaves them (a kink there
+ * would spoil the interpolation right where targets often touch the bounds). The true
+ * optical depth of p is then a difference of smooth terms taken at p's exact entry into the
+ * fog (a ray–box test at lookup):
+ *   ortho: tau = P_a(x, y) + G(x, y, z), P_a = ∫ sigma~ from face a's plane to the first node,
+ *          a the axis of the face p's path enters through;
+ *   persp: tau = G(a, b, r) − G(a, b, r_entry). */
 
 typedef struct light_shadow {
     bool active;                /* the light reaches the target */
@@ -103,8 +122,11 @@ size_t brm_od_plan(const brm_scene *s, const brm_shadow_opts *o, const media_inf
                    const brm_light *l);
 /* Fills row j of view v's grid. */
 void brm_od_fill_row(const brm_scene *s, const media_info *mi, shadow_view *v, uint32_t j);
+/* Flags the cells of row j (between node rows j and j + 1) whose interpolation is off;
+ * scratch holds 2·og_n[2] floats. Needs rows j and j + 1 filled. */
+void brm_od_check_row(const brm_scene *s, const media_info *mi, shadow_view *v, uint32_t j, float *scratch);
 /* Optical depth at p from the grid; returns 0 and leaves *tau when p is outside it. */
-int brm_od_lookup(const shadow_view *v, brm_vec3 p, double *tau);
+int brm_od_lookup(const brm_scene *s, const shadow_view *v, brm_vec3 p, double *tau);
 
 /* ---- depth maps (shadowmap.c) ---- */
 /* Plans the views and the map resolution of light l for the target (no allocation). */
