@@ -4,6 +4,9 @@
  * Each input is read twice: as it is, and "resealed" — a copy whose brick, table and header
  * CRC-32s are recomputed — because almost every mutation breaks a CRC, and without resealing
  * the fuzzer would never get past the header's checksum to the parsing behind it.
+ * A third pass reaches the brick payload parser behind zstd's own content checksum: the input
+ * itself becomes the payload of the single brick of a small template volume (5 x 3 x 2 cells,
+ * channels f16, f32 and an rgb9e5 triplet), compressed as a proper frame and sealed.
  *
  * Recipe (clang, from the repository root):
  *   CC=clang meson setup build-fuzz -Dfuzz=true -Db_sanitize=address,undefined -Db_lundef=false
@@ -18,6 +21,10 @@
 
 #include "brume/brv.h"
 #include "volume/brv_internal.h"
+#include "brume/brv_write.h"
+
+#include <stdio.h>
+#include <zstd.h>
 
 int LLVMFuzzerTestOneInput(const uint8_t *data, size_t size);
 
@@ -41,6 +48,74 @@ static void reseal(uint8_t *d, size_t size)
 
 static void read_volume(const uint8_t *data, size_t size);
 
+static uint8_t *template_file;
+static size_t template_size;
+
+/* A valid one-brick volume whose brick is replaced by each input. */
+static void make_template(void)
+{
+    static const brv_channel_desc ch[5] = {{"extinction", "1/m", BRV_ENCODING_F16},
+                                           {"occupancy", "", BRV_ENCODING_F32},
+                                           {"inscatter.r", "", BRV_ENCODING_RGB9E5},
+                                           {"inscatter.g", "", BRV_ENCODING_RGB9E5},
+                                           {"inscatter.b", "", BRV_ENCODING_RGB9E5}};
+    brv_write_desc d;
+    memset(&d, 0, sizeof d);
+    d.kind = BRV_GRID_WORLD;
+    d.cells[0] = 5, d.cells[1] = 3, d.cells[2] = 2;
+    d.bounds_max[0] = d.bounds_max[1] = d.bounds_max[2] = 1.0;
+    d.channels = ch;
+    d.channel_count = 5;
+    float data[5 * 30];
+    for (int i = 0; i < 150; i++) data[i] = (float)(i % 7) * 0.25f;
+    FILE *f = tmpfile();
+    brv_writer *w;
+    if (!f || brv_writer_create(f, &d, &w) != BRV_OK) abort();
+    if (brv_writer_put_brick(w, 0, data) != BRV_OK || brv_writer_finish(w) != BRV_OK) abort();
+    brv_writer_free(w);
+    template_size = (size_t)ftell(f);
+    template_file = malloc(template_size);
+    rewind(f);
+    if (!template_file || fread(template_file, 1, template_size, f) != template_size) abort();
+    fclose(f);
+}
+
+static void read_as_payload(const uint8_t *data, size_t size)
+{
+    if (!template_file) make_template();
+    uint64_t toff = brv_rd64(template_file + 32), tsize = brv_rd64(template_file + 40);
+    size_t cap = ZSTD_compressBound(size);
+    size_t total_cap = BRV_HEADER_SIZE + cap + (size_t)tsize;
+    uint8_t *f = malloc(total_cap);
+    if (!f) return;
+    /* A frame with the content checksum, as the reader requires. */
+    ZSTD_CCtx *cc = ZSTD_createCCtx();
+    ZSTD_CCtx_setParameter(cc, ZSTD_c_checksumFlag, 1);
+    ZSTD_CCtx_setParameter(cc, ZSTD_c_compressionLevel, 1);
+    size_t cs = ZSTD_compress2(cc, f + BRV_HEADER_SIZE, cap, data, size);
+    ZSTD_freeCCtx(cc);
+    if (ZSTD_isError(cs)) {
+        free(f);
+        return;
+    }
+    memcpy(f, template_file, BRV_HEADER_SIZE);
+    uint64_t nt = BRV_HEADER_SIZE + cs;
+    memcpy(f + nt, template_file + toff, (size_t)tsize);
+    brv_wr64(f + 32, nt);
+    uint8_t *entry = f + nt + BRV_TABLES_FIXED + 5 * BRV_CHANNEL_ENTRY;
+    brv_wr64(entry, BRV_HEADER_SIZE);
+    brv_wr32(entry + 8, (uint32_t)cs);
+    size_t n = (size_t)nt + (size_t)tsize;
+    reseal(f, n);
+    uint8_t *exact = malloc(n); /* exact size for overread detection */
+    if (exact) {
+        memcpy(exact, f, n);
+        read_volume(exact, n);
+        free(exact);
+    }
+    free(f);
+}
+
 int LLVMFuzzerTestOneInput(const uint8_t *data, size_t size)
 {
     read_volume(data, size);
@@ -50,6 +125,7 @@ int LLVMFuzzerTestOneInput(const uint8_t *data, size_t size)
     reseal(copy, size);
     read_volume(copy, size);
     free(copy);
+    if (size <= (1u << 16)) read_as_payload(data, size);
     return 0;
 }
 
