@@ -108,6 +108,8 @@ typedef struct job {
     int state;                      /* enum job_state, under the run lock */
     pthread_t tid;
     double t_start;
+    double t_first;                 /* main thread: when bricks were first seen done */
+    uint64_t done_first;
     atomic_uint_least64_t done, total;
     struct run *run;
 } job;
@@ -295,29 +297,46 @@ static void progress_draw(run *r)
         double el = now - j->t_start;
         char rate[16], left[16], name[160];
         snprintf(name, sizeof name, "%.63s/%.63s", j->scene_name, j->name);
-        enum { BAR = 24 };
-        int filled = (int)(f * BAR + 0.5);
-        char bar[BAR + 1];
-        for (int k = 0; k < BAR; k++) bar[k] = k < filled ? '#' : '.';
-        bar[BAR] = '\0';
         char tail[96];
         if (done == 0) {
             /* Before the first bricks: voxelizing, shadow maps. */
             snprintf(tail, sizeof tail, "  0%%  preparing, %d thread%s", j->width, j->width > 1 ? "s" : "");
         } else {
-            double rt = el > 0.0 ? (double)done / el : 0.0;
+            /* The rate over the bricks seen so far (the first sighting starts the clock), or
+             * over the whole run until there are two sightings. */
+            if (j->t_first == 0.0) {
+                j->t_first = now;
+                j->done_first = done;
+            }
+            double rt = now - j->t_first > 0.1 && done > j->done_first
+                            ? (double)(done - j->done_first) / (now - j->t_first)
+                            : el > 0.0 ? (double)done / el : 0.0;
             fmt_rate(rate, sizeof rate, rt);
             fmt_time(left, sizeof left, rt > 0.0 ? (double)(total - done) / rt : -1.0);
             snprintf(tail, sizeof tail, "%3.0f%%  %s cells/s  %s left", f * 100.0, rate, left);
         }
-        char plain[256];
-        int n = snprintf(plain, sizeof plain, "  %-24.24s [%s] %s", name, bar, tail);
-        if (n >= width || !r->color_err) {
-            if (n > width) plain[width > 0 ? width : 0] = '\0';
+        /* Fit the terminal: shrink the bar, then the name, then drop the bar, then cut. */
+        int namew = (int)strlen(name), barw = 20;
+        if (namew > 24) namew = 24;
+        if (namew < 12) namew = 12;
+        const int tl = (int)strlen(tail);
+        while (2 + namew + 3 + barw + 2 + tl > width && barw > 8) barw--;
+        while (2 + namew + 3 + barw + 2 + tl > width && namew > 8) namew--;
+        if (2 + namew + 3 + barw + 2 + tl > width) barw = 0;
+        int filled = (int)(f * barw + 0.5);
+        char bar[24];
+        for (int k = 0; k < barw; k++) bar[k] = k < filled ? '#' : '.';
+        bar[barw] = '\0';
+        if (barw == 0) {
+            char plain[256];
+            snprintf(plain, sizeof plain, "  %-*.*s  %s", namew, namew, name, tail);
+            if ((int)strlen(plain) > width) plain[width > 0 ? width : 0] = '\0';
             fprintf(stderr, "%s\n", plain);
-        } else {
-            fprintf(stderr, "  %-24.24s [" C_GREEN "%.*s" C_DIM "%s" C_RESET "] %s\n", name, filled, bar,
+        } else if (r->color_err) {
+            fprintf(stderr, "  %-*.*s [" C_GREEN "%.*s" C_DIM "%s" C_RESET "]  %s\n", namew, namew, name, filled, bar,
                     bar + filled, tail);
+        } else {
+            fprintf(stderr, "  %-*.*s [%s]  %s\n", namew, namew, name, bar, tail);
         }
         r->drawn++;
     }
@@ -340,8 +359,10 @@ static void show_result(run *r, const job *j)
         if (strcmp(j->status, "baked") == 0)
             printf("%sbaked%s       %s/%s  %llu cells in %.2f s, %.1f KiB  %s\n", c0, c1, j->scene_name, j->name,
                    (unsigned long long)j->cells, j->seconds, (double)j->bytes / 1024.0, j->output);
-        else
+        else if (strcmp(j->status, "up-to-date") == 0)
             printf("%s%-11s%s %s/%s  %s\n", c0, j->status, c1, j->scene_name, j->name, j->output);
+        else
+            printf("%s%-11s%s %s/%s\n", c0, j->status, c1, j->scene_name, j->name);
         fflush(stdout);
     }
 }
@@ -386,10 +407,11 @@ static bool wanted(const run *r, const char *name)
 
 /* ---- planning --------------------------------------------------------------------------- */
 
-/* A thread's worth of work: about a quarter of a second of lighting on one core (measured:
- * tens of millions of sample-light evaluations per second and core). Smaller targets run
- * one thread each, several at once; bigger ones get up to every thread. */
-#define WORK_PER_THREAD ((uint64_t)1 << 22)
+/* A thread's worth of work: about a quarter of a second of lighting on one core (measured on
+ * the demo scene's world target: about a million sample-light evaluations per second and
+ * core, voxelizing and shadow maps included). Smaller targets run one thread each, several at
+ * once; bigger ones get up to every thread. */
+#define WORK_PER_THREAD ((uint64_t)1 << 18)
 
 static int job_width(const run *r, const job *j)
 {
