@@ -39,21 +39,21 @@ static inline double grad(unsigned h, double x, double y, double z)
 
 static inline double lerp(double t, double a, double b) { return a + t * (b - a); }
 
-/* The lattice cell index modulo 256, defined for every finite coordinate (large values lose
- * meaning but never overflow an integer conversion). */
-static inline unsigned cell_index(double f)
-{
-    if (!(fabs(f) < 1e15)) return 0u;
-    return (unsigned)((int64_t)f & 255);
-}
+/* Gradient noise has period 256 in each axis (the permutation's size); coordinates far out
+ * are folded back into one period so the integer conversions below stay in range. fmod by
+ * 256 is exact in binary floating point. */
+static inline double fold(double x) { return fabs(x) < 1e9 ? x : fmod(x, 256.0); }
 
 static double gradient_noise(const uint8_t *perm, double x, double y, double z)
 {
-    double fx = floor(x), fy = floor(y), fz = floor(z);
-    unsigned X = cell_index(fx), Y = cell_index(fy), Z = cell_index(fz);
-    x -= fx;
-    y -= fy;
-    z -= fz;
+    int ix = (int)x, iy = (int)y, iz = (int)z;
+    ix -= x < ix;   /* floor */
+    iy -= y < iy;
+    iz -= z < iz;
+    unsigned X = (unsigned)ix & 255u, Y = (unsigned)iy & 255u, Z = (unsigned)iz & 255u;
+    x -= ix;
+    y -= iy;
+    z -= iz;
     double u = fade(x), v = fade(y), w = fade(z);
     unsigned A = perm[X] + Y, AA = perm[A] + Z, AB = perm[A + 1] + Z;
     unsigned B = perm[X + 1] + Y, BA = perm[B] + Z, BB = perm[B + 1] + Z;
@@ -90,9 +90,10 @@ static double fbm(const brm_noise_table *t, uint32_t mi, uint32_t octaves, brm_v
     const uint8_t *perm = t->perm[mi];
     double sum = 0.0, amp = 1.0, freq = 1.0;
     if (octaves > 12) octaves = 12;
+    p = brm_v3(fold(p.x), fold(p.y), fold(p.z));
     for (uint32_t o = 0; o < octaves; o++) {
-        sum += amp * gradient_noise(perm, p.x * freq + octave_offset[o][0], p.y * freq + octave_offset[o][1],
-                                    p.z * freq + octave_offset[o][2]);
+        sum += amp * gradient_noise(perm, fold(p.x * freq + octave_offset[o][0]), fold(p.y * freq + octave_offset[o][1]),
+                                    fold(p.z * freq + octave_offset[o][2]));
         amp *= 0.5;
         freq *= 2.0;
     }

@@ -39,13 +39,22 @@ typedef struct loader {
 
 /* ---- messages ------------------------------------------------------------------------- */
 
-/* The path as printed: "(top level)" for the root, long paths (deep nesting) shortened. */
+/* The path as printed: "(top level)" for the root, control bytes of odd keys shown as '?',
+ * long paths (deep nesting) shortened. */
 static const char *shown_buf(const char *path, char buf[136])
 {
     if (!path[0]) return "(top level)";
-    size_t l = strlen(path);
-    if (l <= 120) return path;
-    snprintf(buf, 136, "%.60s...%s", path, path + l - 40);
+    size_t l = strlen(path), k = 0;
+    for (size_t i = 0; i < l && k < 128; i++) {
+        if (l > 120 && i == 60) {
+            memcpy(buf + k, "...", 3);
+            k += 3;
+            i = l - 40;
+        }
+        unsigned char c = (unsigned char)path[i];
+        buf[k++] = (c < 0x20 || c == 0x7f) ? '?' : (char)c;
+    }
+    buf[k] = '\0';
     return buf;
 }
 #define shown(path) shown_buf((path), (char[136]){0})
@@ -583,6 +592,9 @@ static bool load_mesh(loader *L, const cJSON *g, const char *path, brm_object *o
     if (!cJSON_IsString(pv)) return FAIL(L, pp, "expected a string (an OBJ file path), found %s", type_name(pv));
     const char *rel = pv->valuestring;
     if (rel[0] == '\0') return FAIL(L, pp, "empty path; expected an OBJ file path relative to the scene file");
+    for (const char *c = rel; *c; c++)
+        if ((unsigned char)*c < 0x20 || *c == 0x7f)
+            return FAIL(L, pp, "path contains a control character; expected a plain file path relative to the scene file");
     brm_vec3 tr, rot;
     double scale = 1.0;
     if (!vec3(L, g, path, "translate", false, brm_v3(0, 0, 0), ANY, &tr, NULL)) return false;
