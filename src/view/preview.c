@@ -231,6 +231,7 @@ typedef struct job {
     double far;             /* frustum: where misses take their fog */
     float *fog, *plain;
     uint8_t *marker;
+    struct gpix *g;         /* first pass, one per pixel */
 } job;
 
 /* ∫ max(a·ω, 0)·max(b·ω, 0) dω over the sphere for unit a, b at angle theta: the overlap of two
@@ -250,8 +251,9 @@ static double cosine_overlap(double cos_theta)
  * Blocked: with directions ω_k distributed as cos/π (Malley: uniform on the disk, lifted), each
  * carries π/N of ∫ L·cos dω, so E = E_open − (π/N)·Σ_blocked L(ω_k): exact for an open surface
  * and unbiased under occluders. The rays are a stratified set (equal-area rings in the disk,
- * the golden angle apart), rotated per pixel by a deterministic offset. */
-#define SKY_RAYS 8u
+ * the golden angle apart), rotated per pixel by a hashed offset (16 rays: enough that the
+ * noise of a room lit through its windows stays fine-grained). */
+#define SKY_RAYS 16u
 static brm_vec3 sky_irradiance(const job *j, brm_vec3 q, brm_vec3 n, uint32_t pixel)
 {
     const brm_sky *sky = &j->s->sky;
@@ -261,8 +263,9 @@ static brm_vec3 sky_irradiance(const job *j, brm_vec3 q, brm_vec3 n, uint32_t pi
     if (j->bvh) {
         brm_vec3 t1 = brm_norm(brm_cross(fabs(n.x) < 0.9 ? brm_v3(1, 0, 0) : brm_v3(0, 1, 0), n));
         brm_vec3 t2 = brm_cross(n, t1);
-        double shift[2];
-        brm_sample2(0x70726576ull /* "prev" */, pixel, shift);
+        /* A hashed offset per pixel: neighbouring pixels decorrelate (white noise, no pattern). */
+        uint64_t key = brm_hash64(0x70726576ull /* "prev" */ ^ (uint64_t)pixel * 0x9e3779b97f4a7c15ull);
+        double shift[2] = {brm_hash_unit(key), brm_hash_unit(key ^ 0x5851f42d4c957f2dull)};
         const double golden = 0.61803398874989484820;
         brm_vec3 blocked = brm_v3(0, 0, 0);
         for (uint32_t k = 0; k < SKY_RAYS; k++) {
@@ -280,11 +283,23 @@ static brm_vec3 sky_irradiance(const job *j, brm_vec3 q, brm_vec3 n, uint32_t pi
     return brm_v3(fmax(E.x, 0.0), fmax(E.y, 0.0), fmax(E.z, 0.0));
 }
 
-static brm_vec3 shade_surface(const job *j, brm_vec3 p, brm_vec3 n, brm_vec3 albedo, uint32_t pixel)
+/* What the first pass keeps per pixel; the second filters the sky term and composes. */
+typedef struct gpix {
+    float base[3];      /* radiance without the sky term (direct light; or sky, probe) */
+    float esky[3];      /* surfaces: the noisy sky irradiance estimate */
+    float alb[3];       /* surfaces: albedo/π */
+    float n[3];         /* surfaces: normal */
+    float t;            /* surfaces: distance along the ray */
+    uint32_t obj;       /* surfaces: object; UINT32_MAX otherwise */
+    float S[3], T;      /* fog along the ray */
+} gpix;
+
+/* Direct light at a surface point (irradiance from every light), and the sky irradiance. */
+static void light_surface(const job *j, brm_vec3 p, brm_vec3 n, uint32_t pixel, double e[3], brm_vec3 *sky)
 {
     const brm_scene *s = j->s;
     brm_vec3 q = brm_madd(p, n, j->eps);
-    double e[3] = {0, 0, 0};
+    e[0] = e[1] = e[2] = 0.0;
     for (uint32_t l = 0; l < s->light_count; l++) {
         const brm_light *lt = &s->lights[l];
         brm_vec3 to;
@@ -298,26 +313,25 @@ static brm_vec3 shade_surface(const job *j, brm_vec3 p, brm_vec3 n, brm_vec3 alb
         double a = E * cs * v * brm_shadow_transmittance(j->ss, l, q);
         e[0] += a * lt->color.x, e[1] += a * lt->color.y, e[2] += a * lt->color.z;
     }
-    if (s->sky.present) {
-        brm_vec3 E = sky_irradiance(j, q, n, pixel);
-        e[0] += E.x, e[1] += E.y, e[2] += E.z;
-    }
-    return brm_v3(albedo.x / BRM_PI * e[0], albedo.y / BRM_PI * e[1], albedo.z / BRM_PI * e[2]);
+    *sky = s->sky.present ? sky_irradiance(j, q, n, pixel) : brm_v3(0, 0, 0);
 }
 
-static void render_row(void *ctx, uint32_t y, int worker)
+static void trace_row(void *ctx, uint32_t y, int worker)
 {
     (void)worker;
     job *j = ctx;
     const cam *c = &j->c;
     for (uint32_t x = 0; x < c->w; x++) {
         size_t px = (size_t)y * c->w + x;
+        gpix *g = j->g + px;
+        memset(g, 0, sizeof *g);
+        g->obj = UINT32_MAX;
         double u, v;
         brm_vec3 dir = cam_ray(c, x, y, &u, &v);
         brm_hit hit;
         bool hit_any = j->bvh && brm_bvh_intersect(j->bvh, c->pos, dir, 0.0, HUGE_VAL, &hit);
         double t_hit = hit_any ? hit.t : HUGE_VAL;
-        brm_vec3 L;
+        brm_vec3 L = brm_v3(0, 0, 0);
         bool marker = false;
         brm_hit ph;
         if (j->ps.bvh && brm_bvh_intersect(j->ps.bvh, c->pos, dir, 0.0, t_hit, &ph)) {
@@ -329,24 +343,28 @@ static void render_row(void *ctx, uint32_t y, int worker)
                 for (int ch = 0; ch < 3; ch++) rgb[ch] = fmax(0.0, brm_sh9_irradiance(j->ps.sh[k][ch], n)) / BRM_PI;
                 L = brm_v3(rgb[0], rgb[1], rgb[2]);
             } else {
-                L = brm_v3(0, 0, 0);
-                /* The cross: where the normal is near the sphere's vertical or horizontal great
-                 * circle as seen from the camera. */
+                /* Black, with a cross where the normal is near the sphere's vertical or
+                 * horizontal great circle as seen from the camera. */
                 marker = fabs(brm_dot(n, c->right)) < 0.2 || fabs(brm_dot(n, c->up)) < 0.2;
             }
         } else if (hit_any) {
-            brm_vec3 p = brm_madd(c->pos, dir, hit.t);
-            L = shade_surface(j, p, hit.normal, j->s->objects[hit.object].albedo, (uint32_t)px);
+            brm_vec3 p = brm_madd(c->pos, dir, hit.t), n = hit.normal, sky;
+            brm_vec3 al = j->s->objects[hit.object].albedo;
+            double e[3];
+            light_surface(j, p, n, (uint32_t)px, e, &sky);
+            g->alb[0] = (float)(al.x / BRM_PI), g->alb[1] = (float)(al.y / BRM_PI), g->alb[2] = (float)(al.z / BRM_PI);
+            L = brm_v3(al.x / BRM_PI * e[0], al.y / BRM_PI * e[1], al.z / BRM_PI * e[2]);
+            g->esky[0] = (float)sky.x, g->esky[1] = (float)sky.y, g->esky[2] = (float)sky.z;
+            g->n[0] = (float)n.x, g->n[1] = (float)n.y, g->n[2] = (float)n.z;
+            g->t = (float)hit.t;
+            g->obj = hit.object;
         } else {
             L = brm_sky_radiance(&j->s->sky, dir);
         }
-        float *pl = j->plain + 3 * px, *fg = j->fog + 3 * px;
-        pl[0] = (float)L.x, pl[1] = (float)L.y, pl[2] = (float)L.z;
+        g->base[0] = (float)L.x, g->base[1] = (float)L.y, g->base[2] = (float)L.z;
         j->marker[px] = marker;
-        if (!j->has_fog) {
-            fg[0] = pl[0], fg[1] = pl[1], fg[2] = pl[2];
-            continue;
-        }
+        g->T = 1.0f;
+        if (!j->has_fog) continue;
         double S[3], T;
         if (j->kind == BRM_GRID_FRUSTUM) {
             double z = hit_any ? hit.t * brm_dot(dir, c->fwd) : j->far;
@@ -354,9 +372,46 @@ static void render_row(void *ctx, uint32_t y, int worker)
         } else {
             world_march(&j->wf, c->pos, dir, 0.0, t_hit, S, &T);
         }
-        fg[0] = (float)(L.x * T + S[0]);
-        fg[1] = (float)(L.y * T + S[1]);
-        fg[2] = (float)(L.z * T + S[2]);
+        g->S[0] = (float)S[0], g->S[1] = (float)S[1], g->S[2] = (float)S[2], g->T = (float)T;
+    }
+}
+
+/* The sky estimate is averaged over the pixels within SKY_FILTER of this one that show the same
+ * object with nearly the same normal (cos > 0.95) and distance (within 3 %): a cross-bilateral
+ * box filter, common practice, no source. It keeps shadow-free detail such as corners, since a
+ * neighbour across an edge fails the normal or distance test, and changes nothing where the
+ * estimate is exact (an open surface: equal values average to themselves). */
+#define SKY_FILTER 3
+static void compose_row(void *ctx, uint32_t y, int worker)
+{
+    (void)worker;
+    job *j = ctx;
+    const uint32_t w = j->c.w, h = j->c.h;
+    for (uint32_t x = 0; x < w; x++) {
+        size_t px = (size_t)y * w + x;
+        const gpix *g = j->g + px;
+        double L[3] = {g->base[0], g->base[1], g->base[2]};
+        if (g->obj != UINT32_MAX && j->s->sky.present) {
+            double acc[3] = {0, 0, 0};
+            uint32_t cnt = 0;
+            uint32_t y0 = y > SKY_FILTER ? y - SKY_FILTER : 0, y1 = y + SKY_FILTER < h ? y + SKY_FILTER : h - 1;
+            uint32_t x0 = x > SKY_FILTER ? x - SKY_FILTER : 0, x1 = x + SKY_FILTER < w ? x + SKY_FILTER : w - 1;
+            for (uint32_t yy = y0; yy <= y1; yy++)
+                for (uint32_t xx = x0; xx <= x1; xx++) {
+                    const gpix *q = j->g + (size_t)yy * w + xx;
+                    if (q->obj != g->obj) continue;
+                    if (q->n[0] * g->n[0] + q->n[1] * g->n[1] + q->n[2] * g->n[2] < 0.95f) continue;
+                    if (fabsf(q->t - g->t) > 0.03f * g->t) continue;
+                    acc[0] += q->esky[0], acc[1] += q->esky[1], acc[2] += q->esky[2];
+                    cnt++;
+                }
+            for (int c = 0; c < 3; c++) L[c] += g->alb[c] * acc[c] / cnt;
+        }
+        float *pl = j->plain + 3 * px, *fg = j->fog + 3 * px;
+        for (int c = 0; c < 3; c++) {
+            pl[c] = (float)L[c];
+            fg[c] = j->has_fog ? (float)(L[c] * g->T + g->S[c]) : pl[c];
+        }
     }
 }
 
@@ -748,7 +803,13 @@ brm_status brm_preview_render(const brm_scene *s, uint32_t t, const brv_volume *
     }
     j.fog = p.fog, j.plain = p.plain, j.marker = p.marker;
     p.setup_seconds = brm_now() - t_start;
-    if (brm_parallel_for(p.h, threads, render_row, &j, &brm_interrupted) != p.h) {
+    j.g = malloc(sizeof *j.g * npx);
+    if (!j.g) {
+        st = brm_diag_error(d, BRM_E_NOMEM, "preview: out of memory for a %u x %u picture", p.w, p.h);
+        goto fail;
+    }
+    if (brm_parallel_for(p.h, threads, trace_row, &j, &brm_interrupted) != p.h ||
+        brm_parallel_for(p.h, threads, compose_row, &j, &brm_interrupted) != p.h) {
         st = brm_diag_error(d, BRM_E_INTERRUPTED, "preview: interrupted");
         goto fail;
     }
@@ -762,6 +823,7 @@ brm_status brm_preview_render(const brm_scene *s, uint32_t t, const brv_volume *
     memset(&p, 0, sizeof p);
 fail:
     brm_preview_free(&p);
+    free(j.g);
     free(j.ff.bound);
     free(j.ff.st);
     free(j.wf.f);

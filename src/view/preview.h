@@ -11,10 +11,12 @@
  *   set built for the preview over the scene's geometry), and E_sky the sky irradiance:
  *   the open sky's in closed form, E_open(n) = π·H + (Z − H)·I(n_y) + (G − H)·I(−n_y) with
  *   I(c) = (2/3)·((π − θ)·c + sin θ), θ = acos c (the overlap of two clamped cosines), minus
- *   what geometry blocks, (π/8)·Σ L_sky(ω_k) over the blocked ones of 8 cosine-distributed
- *   rays (stratified, rotated per pixel). Exact for a surface open to the sky, unbiased under
+ *   what geometry blocks, (π/16)·Σ L_sky(ω_k) over the blocked ones of 16 cosine-distributed
+ *   rays (stratified, rotated per pixel by a hashed offset). Exact for a surface open to the sky, unbiased under
  *   occluders. (brm_sky_incident's bands 0–1 were tried first: its rays into the surface's own
- *   half-space left about ±15 % noise per pixel on an open wall.)
+ *   half-space left errors of 15 % per pixel on an open wall.) The sky estimate is then
+ *   averaged over a 7 × 7 window of pixels on the same object with nearly the same normal and
+ *   distance (a cross-bilateral box filter); open surfaces keep their exact value.
  * - Fog (the "fogged" picture): L' = L·T + S along the pixel's ray up to the surface (or, for a
  *   ray that misses, to the far plane / through the whole volume):
  *   frustum targets: T and S from the baked `transmittance` and `scatter.*` channels at the
