@@ -15,6 +15,7 @@
 #include <cJSON.h>
 #include <errno.h>
 #include <fcntl.h>
+#include <math.h>
 #include <pthread.h>
 #include <signal.h>
 #include <stdio.h>
@@ -426,6 +427,73 @@ static int job_width(const run *r, const job *j)
     if (w < 1) w = 1;
     if (w > (uint64_t)r->threads) w = (uint64_t)r->threads;
     return (int)w;
+}
+
+/* The refusal of a target over the budget, with the size that would fit: the target scaled
+ * down evenly (cells on every axis, or for probes the spacing up) until the estimate fits,
+ * found by bisection on the scale since the estimate is not proportional to the cells (shadow
+ * maps and the fixed part are not). Returns a malloc'd message. */
+static char *budget_message(const brm_scene *s, uint32_t t, const brm_bake_opts *o, uint64_t budget, uint64_t est)
+{
+    const brm_target *tg = &s->targets[t];
+    brm_scene copy = *s;
+    brm_target *targets = malloc(s->target_count * sizeof *targets);
+    char *msg = malloc(1024);
+    if (!targets || !msg) {
+        free(targets);
+        free(msg);
+        return NULL;
+    }
+    memcpy(targets, s->targets, s->target_count * sizeof *targets);
+    copy.targets = targets;
+    brm_target *mt = &targets[t];
+    const bool probes = tg->grid == BRM_GRID_PROBES;
+    double lo = 0.0, hi = 1.0;
+    bool any = false;
+    brm_target best = *tg;
+    for (int it = 0; it < 40; it++) {
+        double k = 0.5 * (lo + hi);
+        *mt = *tg;
+        if (probes) {
+            mt->spacing_m = tg->spacing_m / k;
+        } else {
+            for (int a = 0; a < 3; a++) {
+                double c = floor((double)tg->cells[a] * k);
+                mt->cells[a] = c < 1.0 ? 1u : (uint32_t)c;
+            }
+        }
+        if (brm_bake_estimate_memory(&copy, t, o) <= budget) {
+            lo = k;
+            any = true;
+            best = *mt;
+        } else {
+            hi = k;
+        }
+    }
+    copy.targets = targets;
+    targets[t] = best;
+    const uint64_t have = probes ? brm_cli_target_work(s, t) / ((uint64_t)tg->rays * (s->light_count + 1u + (s->sky.present ? 1u : 0u)))
+                                 : (uint64_t)tg->cells[0] * tg->cells[1] * tg->cells[2];
+    const uint64_t fit = probes ? (any ? brm_cli_target_work(&copy, t) / ((uint64_t)tg->rays * (s->light_count + 1u + (s->sky.present ? 1u : 0u))) : 0)
+                                : (any ? (uint64_t)best.cells[0] * best.cells[1] * best.cells[2] : 0);
+    int n = snprintf(msg, 1024, "%s: %s (\"%s\"): estimated peak memory %.1f MiB is over the budget of %.1f MiB; ",
+                     s->path, tg->json_path, tg->name, (double)est / 1048576.0, (double)budget / 1048576.0);
+    if (n < 0) n = 0;
+    if (!any)
+        snprintf(msg + n, 1024 - (size_t)n, "even the smallest %s is over it: raise --max-memory",
+                 probes ? "probe lattice" : "grid");
+    else if (probes)
+        snprintf(msg + n, 1024 - (size_t)n,
+                 "about %llu probes would fit (this target has %llu), e.g. \"spacing_m\": %.3g: raise "
+                 "\"spacing_m\" or --max-memory",
+                 (unsigned long long)fit, (unsigned long long)have, best.spacing_m);
+    else
+        snprintf(msg + n, 1024 - (size_t)n,
+                 "about %llu cells would fit (this target has %llu), e.g. \"cells\": [%u, %u, %u]: lower "
+                 "\"cells\" or raise --max-memory",
+                 (unsigned long long)fit, (unsigned long long)have, best.cells[0], best.cells[1], best.cells[2]);
+    free(targets);
+    return msg;
 }
 
 /* ---- running ---------------------------------------------------------------------------- */
@@ -869,6 +937,24 @@ int brm_cmd_bake(int argc, char **argv)
         brm_bake_opts eo = r.opts;
         eo.threads = j->width;
         j->est_memory = brm_bake_estimate_memory(j->scene, j->target, &eo);
+        if (j->est_memory > r.budget && j->width > 1) {
+            /* The brick buffers grow with the threads: one thread may fit where several do not. */
+            eo.threads = 1;
+            uint64_t one = brm_bake_estimate_memory(j->scene, j->target, &eo);
+            if (one <= r.budget) {
+                j->width = 1;
+                j->est_memory = one;
+            }
+        }
+        if (j->est_memory > r.budget) {
+            char *msg = budget_message(j->scene, j->target, &eo, r.budget, j->est_memory);
+            job_fail(j, BRM_E_BUDGET, msg ? msg : "over the memory budget");
+            free(msg);
+            j->state = JOB_SHOWN;
+            show_result(&r, j);
+            if (r.fail_fast) stop = true;
+            continue;
+        }
         queue[nq++] = j;
     }
     if (stop || interrupted()) {
