@@ -46,8 +46,9 @@ void brm_media_info_init(const brm_scene *s, media_info *mi)
             uint32_t oct = m->octaves ? m->octaves : 1;
             if (oct > 30) oct = 30;
             mi->feature = fmin(mi->feature, m->scale_m / (double)(1u << (oct - 1)));
-            /* Paths through thin fog are short and do not average the finest octave out. */
-            mi->feature_lateral = fmin(mi->feature_lateral, m->scale_m / (double)(1u << (oct - 1)));
+            /* Across paths the grid resolves the second-finest octave; what the finest one
+             * adds is found by the build's check and refined there. */
+            mi->feature_lateral = fmin(mi->feature_lateral, m->scale_m / (double)(1u << (oct > 1 ? oct - 2 : 0)));
             break;
         }
         default:
@@ -183,6 +184,16 @@ static void box_corners(brm_aabb b, brm_vec3 c[8])
         c[i] = brm_v3(i & 1 ? b.max.x : b.min.x, i & 2 ? b.max.y : b.min.y, i & 4 ? b.max.z : b.min.z);
 }
 
+/* Sets blk_cap from the grid size and returns what the blocks and their index take. */
+static size_t block_bytes(shadow_view *v)
+{
+    size_t lat = (size_t)(v->og_n[0] - 1) * (v->og_n[1] - 1), r1 = BRM_OD_REFINE + 1;
+    v->blk_cap = (uint32_t)((lat + BRM_OD_BLOCK_SHARE - 1) / BRM_OD_BLOCK_SHARE);
+    size_t per = r1 * r1 * v->og_n[2] * 2 * sizeof(float) + (size_t)BRM_OD_REFINE * BRM_OD_REFINE * (v->og_n[2] - 1) +
+                 sizeof(uint32_t) + (v->kind == BRM_VIEW_ORTHO ? 3 * r1 * r1 * sizeof(float) : 0);
+    return lat * sizeof(int32_t) + v->blk_cap * per;
+}
+
 size_t brm_od_plan(const brm_scene *s, const brm_shadow_opts *o, const media_info *mi, light_shadow *ls,
                    const brm_light *l)
 {
@@ -193,7 +204,7 @@ size_t brm_od_plan(const brm_scene *s, const brm_shadow_opts *o, const media_inf
     /* Spacing: optical depth varies across paths on the lateral feature scale and along a
      * path on the fine one; Hermite interpolation along the path (the derivative of tau is
      * sigma_t, stored too) makes half a feature per node ample. */
-    double lat = mi->feature_lateral / 3.0, along = mi->feature / 4.0;
+    double lat = mi->feature_lateral / 3.0, along = mi->feature / 2.0;
     if (l->type == BRM_LIGHT_DIRECTIONAL) {
         shadow_view *v = &ls->views[0];
         double lo[3] = {HUGE_VAL, HUGE_VAL, HUGE_VAL}, hi[3] = {-HUGE_VAL, -HUGE_VAL, -HUGE_VAL};
@@ -205,15 +216,18 @@ size_t brm_od_plan(const brm_scene *s, const brm_shadow_opts *o, const media_inf
         double sl = fmin(lat, ext / 32.0), sz = fmin(along, fmax(hi[2] - lo[2], 1e-6) / 16.0);
         uint32_t n[3];
         for (int a = 0; a < 3; a++) n[a] = axis_nodes(lo[a], hi[a], a < 2 ? sl : sz, 4, 512);
+        /* Over budget: coarsen across paths only. Along a path the Hermite steps must resolve
+         * the finest feature (nothing checks them); across, the build's check and the blocks
+         * take care of what a coarse spacing misses. */
         double tot = (double)n[0] * n[1] * n[2];
         if (tot > BRM_OD_MAX_NODES) {
-            double f = cbrt(BRM_OD_MAX_NODES / tot);
-            for (int a = 0; a < 3; a++) n[a] = (uint32_t)fmax(4.0, floor(n[a] * f));
+            double f = sqrt(BRM_OD_MAX_NODES / tot);
+            for (int a = 0; a < 2; a++) n[a] = (uint32_t)fmax(8.0, floor(n[a] * f));
         }
         for (int a = 0; a < 3; a++) axis_set(v, a, lo[a], hi[a], n[a], true);
         for (int a = 0; a < 3; a++) v->prefix_axis[a] = brm_vget(v->f, a) != 0.0;
         return ((size_t)n[0] * n[1] * n[2] * 2 + (size_t)3 * n[0] * n[1]) * sizeof(float) +
-               (size_t)(n[0] - 1) * (n[1] - 1) * (n[2] - 1);
+               (size_t)(n[0] - 1) * (n[1] - 1) * (n[2] - 1) + block_bytes(v);
     }
     brm_vec3 pos = l->position;
     double rmax = 1e-3;
@@ -223,19 +237,15 @@ size_t brm_od_plan(const brm_scene *s, const brm_shadow_opts *o, const media_inf
     /* Lateral spacing measured at the far end of the grid, where rays are furthest apart. */
     double sl = fmin(lat / rmax, 2.0 * tan_half / 32.0), sr = fmin(along, rmax / 16.0);
     uint32_t nl = axis_nodes(-tan_half, tan_half, sl, 4, 512), nr = axis_nodes(0.0, rmax, sr, 4, 1024);
-    double tot = (double)nl * nl * nr * ls->view_count;
-    if (tot > BRM_OD_MAX_NODES) {
-        double f = cbrt(BRM_OD_MAX_NODES / tot);
-        nl = (uint32_t)fmax(4.0, floor(nl * f));
-        nr = (uint32_t)fmax(4.0, floor(nr * f));
-    }
+    double tot = (double)nl * nl * nr; /* the budget is per view: a cube's faces each get it */
+    if (tot > BRM_OD_MAX_NODES) nl = (uint32_t)fmax(8.0, floor(nl * sqrt(BRM_OD_MAX_NODES / tot)));
     size_t bytes = 0;
     for (uint32_t k = 0; k < ls->view_count; k++) {
         shadow_view *v = &ls->views[k];
         axis_set(v, 0, -tan_half, tan_half, nl, true);
         axis_set(v, 1, -tan_half, tan_half, nl, true);
         axis_set(v, 2, 0.0, rmax, nr, false);
-        bytes += (size_t)nl * nl * nr * 2 * sizeof(float) + (size_t)(nl - 1) * (nl - 1) * (nr - 1);
+        bytes += (size_t)nl * nl * nr * 2 * sizeof(float) + (size_t)(nl - 1) * (nl - 1) * (nr - 1) + block_bytes(v);
     }
     return bytes;
 }
@@ -381,10 +391,82 @@ void brm_od_check_row(const brm_scene *s, const media_info *mi, shadow_view *v, 
     }
 }
 
-/* G at grid coordinates (x, y, z): cubic Hermite in z (values G, slopes sigma~), bilinear
- * across paths. Returns 0 outside the grid. */
-static int grid_eval(const shadow_view *v, double x, double y, double z, double *out, double *lat_w,
-                     uint32_t *lat_c)
+void brm_od_assign_blocks(shadow_view *v)
+{
+    uint32_t nk = v->og_n[2];
+    size_t lat = (size_t)(v->og_n[0] - 1) * (v->og_n[1] - 1);
+    v->blk_count = 0;
+    for (size_t c = 0; c < lat; c++) {
+        v->refine[c] = -1;
+        if (v->blk_count == v->blk_cap) continue;
+        const uint8_t *bad = v->od_bad + c * (nk - 1);
+        for (uint32_t k = 0; k + 1 < nk; k++)
+            if (bad[k]) {
+                v->blk_cell[v->blk_count] = (uint32_t)c;
+                v->refine[c] = (int32_t)v->blk_count++;
+                break;
+            }
+    }
+}
+
+void brm_od_fill_block(const brm_scene *s, const media_info *mi, shadow_view *v, uint32_t b, float *scratch)
+{
+    const uint32_t R = BRM_OD_REFINE, R1 = R + 1, nk = v->og_n[2];
+    uint32_t cell = v->blk_cell[b], ci = cell % (v->og_n[0] - 1), cj = cell / (v->og_n[0] - 1);
+    bool need[3] = {false, false, false};
+    if (v->kind == BRM_VIEW_ORTHO)
+        for (int dj = -1; dj <= 2; dj++)
+            for (int di = -1; di <= 2; di++) {
+                double x = v->og_lo[0] + v->og_step[0] * ((double)ci + di), y = v->og_lo[1] + v->og_step[1] * ((double)cj + dj);
+                int e = entry_face(s, brm_add(brm_scale(v->u, x), brm_scale(v->v, y)), v->f);
+                if (e >= 0) need[e] = true;
+            }
+    float *od = v->blk_od + 2 * (size_t)nk * R1 * R1 * b;
+    for (uint32_t bj = 0; bj <= R; bj++)
+        for (uint32_t bi = 0; bi <= R; bi++) {
+            double x = v->og_lo[0] + v->og_step[0] * ((double)ci + (double)bi / R);
+            double y = v->og_lo[1] + v->og_step[1] * ((double)cj + (double)bj / R);
+            float pre[3];
+            fill_column(s, mi, v, x, y, need, od + 2 * (size_t)nk * (bi + R1 * bj), pre);
+            if (v->kind == BRM_VIEW_ORTHO)
+                for (int a = 0; a < 3; a++) v->blk_pre[((size_t)b * 3 + a) * R1 * R1 + bi + R1 * bj] = pre[a];
+        }
+    /* The same check as for the base cells, at each sub-cell's centre. */
+    for (uint32_t sj = 0; sj < R; sj++)
+        for (uint32_t si = 0; si < R; si++) {
+            double x = v->og_lo[0] + v->og_step[0] * ((double)ci + ((double)si + 0.5) / R);
+            double y = v->og_lo[1] + v->og_step[1] * ((double)cj + ((double)sj + 0.5) / R);
+            int e = -1;
+            bool nd[3] = {false, false, false};
+            if (v->kind == BRM_VIEW_ORTHO) {
+                e = entry_face(s, brm_add(brm_scale(v->u, x), brm_scale(v->v, y)), v->f);
+                if (e >= 0) nd[e] = true;
+            }
+            float pre[3];
+            fill_column(s, mi, v, x, y, nd, scratch, pre);
+            size_t q0 = si + R1 * sj, q[4] = {q0, q0 + 1, q0 + R1, q0 + R1 + 1};
+            double p_int = 0.0, p_ex = 0.0;
+            if (e >= 0) {
+                for (int k = 0; k < 4; k++) p_int += 0.25 * v->blk_pre[((size_t)b * 3 + e) * R1 * R1 + q[k]];
+                p_ex = pre[e];
+            }
+            uint8_t *bad = v->blk_bad + ((size_t)b * R * R + si + R * sj) * (nk - 1);
+            memset(bad, 0, nk - 1);
+            for (uint32_t k = 0; k < nk; k++) {
+                double g_int = 0.0;
+                for (int m = 0; m < 4; m++) g_int += 0.25 * od[2 * ((size_t)nk * q[m] + k)];
+                if (fabs((g_int + p_int) - ((double)scratch[2 * k] + p_ex)) > BRM_OD_CHECK_TAU) {
+                    if (k > 0) bad[k - 1] = 1;
+                    if (k + 1 < nk) bad[k] = 1;
+                }
+            }
+        }
+}
+
+/* G (and for face ≥ 0 the prefix P_face) at grid coordinates (x, y, z): cubic Hermite in z
+ * (values G, slopes sigma~), bilinear across paths, in the cell's block when it has one.
+ * Returns 0 outside the grid or in a flagged cell. */
+static int grid_eval(const shadow_view *v, double x, double y, double z, int face, double *g_out, double *p_out)
 {
     double f[3] = {(x - v->og_lo[0]) / v->og_step[0], (y - v->og_lo[1]) / v->og_step[1],
                    (z - v->og_lo[2]) / v->og_step[2]};
@@ -398,22 +480,43 @@ static int grid_eval(const shadow_view *v, double x, double y, double z, double 
         c[a] = (uint32_t)fl;
         w[a] = f[a] - fl;
     }
+    const uint32_t nk = v->og_n[2], n0 = v->og_n[0];
+    size_t lat = c[0] + (size_t)(n0 - 1) * c[1];
+    const float *col[4], *pre[4] = {NULL, NULL, NULL, NULL};
+    const uint8_t *bad;
+    int32_t b = v->refine ? v->refine[lat] : -1;
+    double wx = w[0], wy = w[1];
+    if (b < 0) {
+        bad = v->od_bad + lat * (nk - 1);
+        for (int q = 0; q < 4; q++) {
+            size_t cc = (c[0] + (uint32_t)(q & 1)) + (size_t)n0 * (c[1] + (uint32_t)(q >> 1));
+            col[q] = v->od + 2 * (size_t)nk * cc;
+            if (face >= 0) pre[q] = v->prefix + (size_t)face * n0 * v->og_n[1] + cc;
+        }
+    } else {
+        const uint32_t R = BRM_OD_REFINE, R1 = R + 1;
+        double sx = wx * R, sy = wy * R;
+        uint32_t si = (uint32_t)fmin(floor(sx), R - 1.0), sj = (uint32_t)fmin(floor(sy), R - 1.0);
+        wx = sx - si, wy = sy - sj;
+        bad = v->blk_bad + ((size_t)b * R * R + si + R * sj) * (nk - 1);
+        for (int q = 0; q < 4; q++) {
+            size_t cc = (size_t)b * R1 * R1 + (si + (uint32_t)(q & 1)) + R1 * (sj + (uint32_t)(q >> 1));
+            col[q] = v->blk_od + 2 * (size_t)nk * cc;
+            if (face >= 0) pre[q] = v->blk_pre + ((size_t)b * 3 + (size_t)face) * R1 * R1 + (cc - (size_t)b * R1 * R1);
+        }
+    }
+    if (bad[c[2]]) return 0;
     double t = w[2], t2 = t * t, t3 = t2 * t, hz = v->og_step[2];
     double h00 = 2 * t3 - 3 * t2 + 1, h10 = (t3 - 2 * t2 + t) * hz, h01 = -2 * t3 + 3 * t2, h11 = (t3 - t2) * hz;
-    double acc = 0.0;
+    double g = 0.0, pp = 0.0;
     for (int q = 0; q < 4; q++) {
-        uint32_t i = c[0] + (uint32_t)(q & 1), j = c[1] + (uint32_t)(q >> 1);
-        const float *n = v->od + 2 * ((size_t)v->og_n[2] * ((size_t)i + (size_t)v->og_n[0] * j) + c[2]);
-        double val = h00 * n[0] + h10 * n[1] + h01 * n[2] + h11 * n[3];
-        double wq = (q & 1 ? w[0] : 1.0 - w[0]) * (q >> 1 ? w[1] : 1.0 - w[1]);
-        acc += wq * val;
+        const float *n = col[q] + 2 * (size_t)c[2];
+        double wq = (q & 1 ? wx : 1.0 - wx) * (q >> 1 ? wy : 1.0 - wy);
+        g += wq * (h00 * n[0] + h10 * n[1] + h01 * n[2] + h11 * n[3]);
+        if (face >= 0) pp += wq * *pre[q];
     }
-    if (v->od_bad && v->od_bad[((size_t)c[0] + (size_t)(v->og_n[0] - 1) * c[1]) * (v->og_n[2] - 1) + c[2]]) return 0;
-    *out = acc;
-    if (lat_w) {
-        lat_w[0] = w[0], lat_w[1] = w[1];
-        lat_c[0] = c[0], lat_c[1] = c[1];
-    }
+    *g_out = g;
+    if (p_out) *p_out = pp;
     return 1;
 }
 
@@ -422,10 +525,6 @@ int brm_od_lookup(const brm_scene *s, const shadow_view *v, brm_vec3 p, double *
     const brm_aabb fb = s->fog_bounds;
     if (!brm_aabb_contains(fb, p)) return 0;
     if (v->kind == BRM_VIEW_ORTHO) {
-        double x = brm_dot(p, v->u), y = brm_dot(p, v->v), z = brm_dot(p, v->f);
-        double g, w[2];
-        uint32_t c[2];
-        if (!grid_eval(v, x, y, z, &g, w, c)) return 0;
         /* The face p's path toward the light leaves the fog through: the nearest one back
          * along f. */
         int best = -1;
@@ -438,10 +537,8 @@ int brm_od_lookup(const brm_scene *s, const shadow_view *v, brm_vec3 p, double *
             if (ta < tb) tb = ta, best = a;
         }
         if (best < 0) return 0;
-        const float *P = v->prefix + (size_t)best * v->og_n[0] * v->og_n[1];
-        size_t n0 = v->og_n[0], k = c[0] + n0 * c[1];
-        double pre = (1 - w[0]) * (1 - w[1]) * P[k] + w[0] * (1 - w[1]) * P[k + 1] + (1 - w[0]) * w[1] * P[k + n0] +
-                     w[0] * w[1] * P[k + n0 + 1];
+        double g, pre;
+        if (!grid_eval(v, brm_dot(p, v->u), brm_dot(p, v->v), brm_dot(p, v->f), best, &g, &pre)) return 0;
         double t = pre + g;
         *tau = t > 0.0 ? t : 0.0;
         return 1;
@@ -451,13 +548,13 @@ int brm_od_lookup(const brm_scene *s, const shadow_view *v, brm_vec3 p, double *
     if (!(zf > 0.0)) return 0;
     double x = brm_dot(d, v->u) / zf, y = brm_dot(d, v->v) / zf, r = brm_len(d);
     double g;
-    if (!grid_eval(v, x, y, r, &g, NULL, NULL)) return 0;
+    if (!grid_eval(v, x, y, r, -1, &g, NULL)) return 0;
     if (!brm_aabb_contains(fb, v->origin)) {
         /* The light is outside the fog: subtract what G holds before the path enters it. */
         brm_vec3 dir = brm_scale(d, 1.0 / r), inv = brm_v3(1.0 / dir.x, 1.0 / dir.y, 1.0 / dir.z);
         double t0, t1, g0;
         if (!brm_ray_aabb(v->origin, inv, fb, 0.0, r, &t0, &t1)) return 0;
-        if (!grid_eval(v, x, y, t0, &g0, NULL, NULL)) return 0;
+        if (!grid_eval(v, x, y, t0, -1, &g0, NULL)) return 0;
         g -= g0;
     }
     *tau = g > 0.0 ? g : 0.0;

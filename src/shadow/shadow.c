@@ -86,6 +86,21 @@ static void od_item(void *ctx, uint32_t item, int worker)
     brm_od_fill_row(c->ss->scene, &c->ss->media, &c->ss->lights[it->light].views[it->view], it->row);
 }
 
+static void block_item(void *ctx, uint32_t item, int worker)
+{
+    (void)worker;
+    build_ctx *c = ctx;
+    build_item *it = &c->items[item];
+    shadow_view *v = &c->ss->lights[it->light].views[it->view];
+    float *scratch = malloc((size_t)v->og_n[2] * 2 * sizeof(float));
+    if (!scratch) { /* no block after all: the cell keeps its flags and marches */
+        v->refine[v->blk_cell[it->row]] = -1;
+        return;
+    }
+    brm_od_fill_block(c->ss->scene, &c->ss->media, v, it->row, scratch);
+    free(scratch);
+}
+
 static void od_check_item(void *ctx, uint32_t item, int worker)
 {
     (void)worker;
@@ -116,6 +131,7 @@ brm_status brm_shadows_build(const brm_scene *s, const brm_shadow_opts *o, brm_s
     ss->eps = 1e-7 * scale;
     double step = fmin(o->cell_size > 0.0 ? o->cell_size : HUGE_VAL, ss->media.feature);
     ss->ref_step = (isfinite(step) ? step : scale / 64.0) / 4.0;
+    ss->fast_step = isfinite(ss->media.feature) ? ss->media.feature / 2.0 : HUGE_VAL;
     ss->light_count = s->light_count;
     brm_status st = BRM_OK;
     build_item *items = NULL;
@@ -141,7 +157,16 @@ brm_status brm_shadows_build(const brm_scene *s, const brm_shadow_opts *o, brm_s
             if (ls->has_od) {
                 v->od = malloc((size_t)v->og_n[0] * v->og_n[1] * v->og_n[2] * 2 * sizeof(float));
                 if (v->kind == BRM_VIEW_ORTHO) v->prefix = malloc((size_t)3 * v->og_n[0] * v->og_n[1] * sizeof(float));
-                v->od_bad = calloc((size_t)(v->og_n[0] - 1) * (v->og_n[1] - 1) * (v->og_n[2] - 1), 1);
+                size_t lat = (size_t)(v->og_n[0] - 1) * (v->og_n[1] - 1), r1 = BRM_OD_REFINE + 1;
+                v->od_bad = calloc(lat * (v->og_n[2] - 1), 1);
+                v->refine = malloc(lat * sizeof *v->refine);
+                v->blk_cell = malloc((size_t)v->blk_cap * sizeof *v->blk_cell);
+                (void)r1;
+                if (!v->refine || !v->blk_cell) {
+                    st = brm_diag_error(d, BRM_E_NOMEM, "shadows: out of memory for %s's optical-depth grid",
+                                        s->lights[l].json_path);
+                    goto fail;
+                }
                 n_od += v->og_n[1];
             }
             if ((ls->has_map && !v->depth) || (ls->has_od && (!v->od || !v->od_bad || (v->kind == BRM_VIEW_ORTHO && !v->prefix)))) {
@@ -171,6 +196,46 @@ brm_status brm_shadows_build(const brm_scene *s, const brm_shadow_opts *o, brm_s
     if (brm_parallel_for(n_raster, threads, raster_item, &ctx, &brm_interrupted) != n_raster ||
         brm_parallel_for(n_od, threads, od_item, &(build_ctx){ss, items + n_raster}, &brm_interrupted) != n_od ||
         brm_parallel_for(n_od, threads, od_check_item, &(build_ctx){ss, items + n_raster}, &brm_interrupted) != n_od) {
+        st = brm_diag_error(d, BRM_E_INTERRUPTED, "shadows: interrupted while building the light maps");
+        goto fail;
+    }
+    free(items);
+    items = NULL;
+
+    /* Blocks for the flagged cells, then fill them (one item per block). */
+    uint32_t n_blk = 0;
+    for (uint32_t l = 0; l < s->light_count; l++)
+        for (uint32_t k = 0; k < ss->lights[l].view_count; k++)
+            if (ss->lights[l].has_od) {
+                shadow_view *v = &ss->lights[l].views[k];
+                brm_od_assign_blocks(v);
+                n_blk += v->blk_count;
+                size_t nb = v->blk_count ? v->blk_count : 1, r1 = BRM_OD_REFINE + 1;
+                v->blk_od = malloc(nb * r1 * r1 * v->og_n[2] * 2 * sizeof(float));
+                v->blk_bad = malloc(nb * BRM_OD_REFINE * BRM_OD_REFINE * (v->og_n[2] - 1));
+                if (v->kind == BRM_VIEW_ORTHO) v->blk_pre = malloc(nb * 3 * r1 * r1 * sizeof(float));
+                if (!v->blk_od || !v->blk_bad || (v->kind == BRM_VIEW_ORTHO && !v->blk_pre)) {
+                    st = brm_diag_error(d, BRM_E_NOMEM, "shadows: out of memory for %s's optical-depth grid",
+                                        s->lights[l].json_path);
+                    goto fail;
+                }
+                /* The estimate reserved every block the cap allows: count the unused ones out. */
+                size_t per = r1 * r1 * v->og_n[2] * 2 * sizeof(float) +
+                             (size_t)BRM_OD_REFINE * BRM_OD_REFINE * (v->og_n[2] - 1) +
+                             (v->kind == BRM_VIEW_ORTHO ? 3 * r1 * r1 * sizeof(float) : 0);
+                ss->bytes -= (size_t)(v->blk_cap - v->blk_count) * per;
+            }
+    items = calloc((size_t)n_blk + 1, sizeof *items);
+    if (!items) {
+        st = brm_diag_error(d, BRM_E_NOMEM, "shadows: out of memory");
+        goto fail;
+    }
+    ni = 0;
+    for (uint32_t l = 0; l < s->light_count; l++)
+        for (uint32_t k = 0; k < ss->lights[l].view_count; k++)
+            if (ss->lights[l].has_od)
+                for (uint32_t b = 0; b < ss->lights[l].views[k].blk_count; b++) items[ni++] = (build_item){l, k, b};
+    if (brm_parallel_for(n_blk, threads, block_item, &(build_ctx){ss, items}, &brm_interrupted) != n_blk) {
         st = brm_diag_error(d, BRM_E_INTERRUPTED, "shadows: interrupted while building the light maps");
         goto fail;
     }
@@ -209,6 +274,11 @@ void brm_shadows_free(brm_shadow_set *ss)
             free(ss->lights[l].views[k].od);
             free(ss->lights[l].views[k].prefix);
             free(ss->lights[l].views[k].od_bad);
+            free(ss->lights[l].views[k].refine);
+            free(ss->lights[l].views[k].blk_cell);
+            free(ss->lights[l].views[k].blk_od);
+            free(ss->lights[l].views[k].blk_pre);
+            free(ss->lights[l].views[k].blk_bad);
         }
     free(ss->lights);
     brm_bvh_free(ss->own_bvh);
@@ -260,7 +330,12 @@ double brm_shadow_transmittance(const brm_shadow_set *ss, uint32_t l, brm_vec3 p
     const light_shadow *ls = &ss->lights[l];
     double tau;
     if (ls->has_od && brm_od_lookup(ss->scene, brm_shadow_pick_view(ls, p), p, &tau)) return exp(-tau);
-    return brm_shadow_transmittance_march(ss, l, p);
+    if (ss->opts.reference) return brm_shadow_transmittance_march(ss, l, p);
+    /* Outside the grid or in a cell the build flagged: march, at the step the grids were
+     * built with (Simpson at half the finest feature is well inside 1 %). */
+    double dist;
+    brm_vec3 dir = toward(&ss->scene->lights[l], p, &dist);
+    return exp(-brm_optical_depth_segment(ss->scene, &ss->media, p, dir, 0.0, dist, ss->fast_step));
 }
 
 double brm_shadow_texel_size(const brm_shadow_set *ss, uint32_t l)

@@ -14,12 +14,15 @@
 #define BRM_SHADOW_AUTO_MAX 4096u
 #define BRM_SHADOW_MIN_RES 16u
 #define BRM_SHADOW_MAX_RES 16384u
-/* Nodes per optical-depth grid (all faces of one light together): 2 floats each, 8 MiB. */
-#define BRM_OD_MAX_NODES (1u << 20)
+/* Nodes per optical-depth grid (per view: a point light's six faces get it each): 2 floats
+ * each, 4 MiB. */
+#define BRM_OD_MAX_NODES (1u << 19)
 /* Optical-depth error the grid may make before a cell falls back to the exact march: 0.003
  * checked at cell centres keeps the worst case (a kink anywhere in the cell, at most about
  * twice the centre error) under 1 % in transmittance. */
 #define BRM_OD_CHECK_TAU 0.003
+#define BRM_OD_REFINE 4u
+#define BRM_OD_BLOCK_SHARE 8u   /* at most one lateral cell in 8 gets a block */
 /* Spots wider than this (outer half-angle, degrees) use six cube faces instead of one
  * perspective map, whose texels would stretch too much toward the rim. */
 #define BRM_SPOT_CUBE_DEG 60.0
@@ -57,6 +60,16 @@ typedef struct shadow_view {
     /* per lateral cell and depth interval: 1 where the build found interpolation off by more
      * than BRM_OD_CHECK_TAU (paths grazing a fade or an edge): lookups there march instead */
     uint8_t *od_bad;            /* (og_n[0] − 1) · (og_n[1] − 1) · (og_n[2] − 1) */
+    /* Flagged lateral cells get a block of (R+1)² columns, R = BRM_OD_REFINE per side, checked
+     * again at their sub-cell centres; up to blk_cap blocks (a fixed share of the cells: the
+     * memory estimate counts them all, the build allocates the ones used); what stays
+     * flagged marches. */
+    int32_t *refine;            /* per lateral cell: its block, or −1 */
+    uint32_t blk_cap, blk_count;
+    uint32_t *blk_cell;         /* per block: its lateral cell */
+    float *blk_od;              /* blk_cap · (R+1)² columns · og_n[2] · 2 */
+    float *blk_pre;             /* ortho: blk_cap · 3 · (R+1)² */
+    uint8_t *blk_bad;           /* blk_cap · R² · (og_n[2] − 1) */
 } shadow_view;
 /* The grids store G = ∫ sigma~ along the path from the first depth node (ortho) or from the
  * light (persp), where sigma~(q) = sigma_t(q clamped into the fog bounds): sigma_t continued
@@ -101,6 +114,7 @@ struct brm_shadow_set {
     const brm_bvh *bvh;
     media_info media;
     double ref_step;            /* reference march step (m) */
+    double fast_step;           /* fast path's fallback march step (m) */
     double eps;                 /* ray offset (m) */
     light_shadow *lights;
     uint32_t light_count;
@@ -125,6 +139,10 @@ void brm_od_fill_row(const brm_scene *s, const media_info *mi, shadow_view *v, u
 /* Flags the cells of row j (between node rows j and j + 1) whose interpolation is off;
  * scratch holds 2·og_n[2] floats. Needs rows j and j + 1 filled. */
 void brm_od_check_row(const brm_scene *s, const media_info *mi, shadow_view *v, uint32_t j, float *scratch);
+/* After every row is checked: hands blocks to flagged cells, in row order (deterministic). */
+void brm_od_assign_blocks(shadow_view *v);
+/* Fills and checks block b. scratch holds 2·og_n[2] floats. */
+void brm_od_fill_block(const brm_scene *s, const media_info *mi, shadow_view *v, uint32_t b, float *scratch);
 /* Optical depth at p from the grid; returns 0 and leaves *tau when p is outside it. */
 int brm_od_lookup(const brm_scene *s, const shadow_view *v, brm_vec3 p, double *tau);
 

@@ -171,7 +171,7 @@ static void fast_path_should_match_reference_march_within_one_percent(void **sta
     brm_light *pt = sf_point(s, brm_v3(-3, 4, 2));
     pt->range_m = 30.0;
     sf_ready(s);
-    brm_aabb target = {{-10, 0, -10}, {10, 8, 10}};
+    brm_aabb target = {{-6, 0, -6}, {6, 6, 6}};
     brm_shadow_set *ss = sf_build(s, target, 0.25, false, NULL, 2);
     printf("optical-depth grids built in %.3f s, %.1f MiB\n", brm_shadows_build_seconds(ss),
            (double)brm_shadows_bytes(ss) / 1048576.0);
