@@ -7,15 +7,20 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <fcntl.h>
+#include <stdarg.h>
+#include <sys/stat.h>
 #include <unistd.h>
 
 #include "bake/bake.h"
 #include "base/sh.h"
 #include "brume/brv.h"
 #include "brume/brv_write.h"
+#include "cli/cli.h"
 #include "scene/media.h"
 #include "scene/scene.h"
 #include "view/preview.h"
+#include "base/atomic_file.h"
 #include "view/tone.h"
 #include "voxel/grid.h"
 
@@ -703,6 +708,139 @@ static void preview_beside_path_should_put_the_suffix_before_ppm(void **state)
     brm_scene_free(s);
 }
 
+/* ---- the command ------------------------------------------------------------------------------ */
+
+static const char *SCENE_JSON =
+    "{\n"
+    "  \"brume\": 1,\n"
+    "  \"name\": \"lane\",\n"
+    "  \"fog_bounds\": { \"min\": [-10, 0, -20], \"max\": [10, 6, 4] },\n"
+    "  \"geometry\": [\n"
+    "    { \"shape\": \"box\", \"min\": [-10, -0.5, -20], \"max\": [10, 0, 4] },\n"
+    "    { \"shape\": \"sphere\", \"center\": [0, 1, -8], \"radius\": 1 }\n"
+    "  ],\n"
+    "  \"lights\": [ { \"type\": \"directional\", \"direction\": [0.3, -1, -0.2], \"illuminance_lux\": 2000 } ],\n"
+    "  \"media\": [ { \"type\": \"uniform\", \"visibility_m\": 40 } ],\n"
+    "  \"sky\": { \"zenith\": [200, 300, 500], \"horizon\": [400, 400, 450], \"ground\": [50, 50, 50] },\n"
+    "  \"targets\": [\n"
+    "    { \"name\": \"intro\", \"grid\": \"frustum\", \"camera\": { \"position\": [0, 1.6, 2], \"look_at\": [0, 1, -8],\n"
+    "      \"up\": [0, 1, 0], \"fov_y_deg\": 50, \"aspect\": 1.7778, \"near\": 0.3, \"far\": 24 }, \"cells\": [16, 9, 16] },\n"
+    "    { \"name\": \"yard\", \"grid\": \"world\", \"min\": [-4, 0, -12], \"max\": [4, 4, 2], \"cells\": [8, 4, 14] }\n"
+    "  ]\n"
+    "}\n";
+
+static char err_text[8192];
+
+/* Runs brume preview with the NULL-terminated arguments; stderr goes to err_text. */
+static int run_cmd(const char *first, ...)
+{
+    char *argv[32];
+    int argc = 0;
+    argv[argc++] = (char *)"preview";
+    va_list ap;
+    va_start(ap, first);
+    for (const char *a = first; a != NULL && argc < 31; a = va_arg(ap, const char *)) argv[argc++] = (char *)a;
+    va_end(ap);
+    argv[argc] = NULL;
+    fflush(stdout);
+    fflush(stderr);
+    int saved = dup(2);
+    int fd = open("stderr.txt", O_CREAT | O_TRUNC | O_WRONLY, 0644);
+    dup2(fd, 2);
+    close(fd);
+    int rc = brm_cmd_preview(argc, argv);
+    fflush(stderr);
+    dup2(saved, 2);
+    close(saved);
+    FILE *f = fopen("stderr.txt", "rb");
+    size_t n = f ? fread(err_text, 1, sizeof err_text - 1, f) : 0;
+    err_text[n] = '\0';
+    if (f) fclose(f);
+    return rc;
+}
+
+static bool exists(const char *p)
+{
+    struct stat st;
+    return stat(p, &st) == 0;
+}
+
+static void preview_command_should_write_both_pictures_and_report_errors(void **state)
+{
+    (void)state;
+    char dir[256], cwd[4096];
+    path_in_tmp(dir, sizeof dir, "cmd");
+    assert_int_equal(mkdir(dir, 0755), 0);
+    assert_non_null(getcwd(cwd, sizeof cwd));
+    assert_int_equal(chdir(dir), 0);
+    FILE *f = fopen("lane.json", "wb");
+    assert_non_null(f);
+    fputs(SCENE_JSON, f);
+    assert_int_equal(fclose(f), 0);
+    brm_scene *s = NULL;
+    brm_diag d;
+    brm_diag_init(&d);
+    assert_int_equal(brm_scene_load("lane.json", &s, &d), BRM_OK);
+    /* Bake where brume bake puts a single scene's volumes: out/<scene name>/. */
+    assert_int_equal(brm_mkdirs("out/lane", &d), BRM_OK);
+    brm_bake_opts bo;
+    memset(&bo, 0, sizeof bo);
+    bo.threads = 2;
+    assert_int_equal(brm_bake_target(s, 0, &bo, "out/lane/intro.brv", NULL, &d), BRM_OK);
+    assert_int_equal(brm_bake_target(s, 1, &bo, "out/lane/yard.brv", NULL, &d), BRM_OK);
+    brm_scene_free(s);
+
+    /* A frustum target from its own camera, the default volume, both pictures. */
+    assert_int_equal(run_cmd("lane.json", "--target", "intro", "-o", "intro.ppm", "--width", "64", "-j", "2", NULL), 0);
+    f = fopen("intro.ppm", "rb");
+    assert_non_null(f);
+    char head[16];
+    /* 64 / 1.7778 = 36 rows. Source: Netpbm ppm(5) header. */
+    assert_int_equal(fread(head, 1, 13, f), 13);
+    head[13] = '\0';
+    assert_string_equal(head, "P6\n64 36\n255\n");
+    fclose(f);
+    assert_true(exists("intro-nofog.ppm"));
+    assert_int_equal(run_cmd("lane.json", "--target", "yard", "-o", "yard.ppm", "--width", "32", "--from", "0,1.6,2",
+                             "--look-at", "0,1,-8", "--fov", "45", "--exposure", "-8", "--no-fog-beside", NULL),
+                     0);
+    assert_true(exists("yard.ppm"));
+    assert_false(exists("yard-nofog.ppm"));
+
+    /* Unknown target: exit 2, the targets listed. */
+    assert_int_equal(run_cmd("lane.json", "--target", "nope", "-o", "x.ppm", NULL), 2);
+    assert_non_null(strstr(err_text, "the targets are: intro, yard"));
+    /* A volume that is not there: exit 3 and what to do. */
+    assert_int_equal(run_cmd("lane.json", "--target", "intro", "-o", "x.ppm", "--volume", "none.brv", NULL), 3);
+    assert_non_null(strstr(err_text, "none.brv"));
+    assert_non_null(strstr(err_text, "bake it first: brume bake lane.json"));
+    /* Another target's volume: exit 1, the mismatch named, nothing written. */
+    assert_int_equal(run_cmd("lane.json", "--target", "intro", "-o", "x.ppm", "--volume", "out/lane/yard.brv", NULL), 1);
+    assert_non_null(strstr(err_text, "does not match"));
+    assert_false(exists("x.ppm"));
+    /* Cameras: world targets need one, frustum targets refuse one. */
+    assert_int_equal(run_cmd("lane.json", "--target", "yard", "-o", "x.ppm", NULL), 2);
+    assert_non_null(strstr(err_text, "--from"));
+    assert_int_equal(run_cmd("lane.json", "--target", "intro", "-o", "x.ppm", "--from", "0,1,2", "--look-at", "0,1,0", NULL), 2);
+    /* Bad flags. */
+    assert_int_equal(run_cmd("lane.json", "--target", "intro", "-o", "x.ppm", "--width", "0", NULL), 2);
+    assert_int_equal(run_cmd("lane.json", "--target", "intro", "-o", "x.ppm", "--exposure", "bright", NULL), 2);
+    assert_int_equal(run_cmd("lane.json", "--target", "intro", "-o", "x.png", NULL), 2);
+    assert_int_equal(run_cmd("lane.json", "--target", "yard", "-o", "x.ppm", "--from", "1,2", "--look-at", "0,0,0", NULL), 2);
+    assert_non_null(strstr(err_text, "--from '1,2'"));
+    assert_int_equal(run_cmd("lane.json", "--target", "intro", "-o", "x.ppm", "-j", "0", NULL), 2);
+    assert_int_equal(run_cmd("lane.json", "-o", "x.ppm", NULL), 2);
+    assert_int_equal(run_cmd("lane.json", "--target", "intro", "-o", "x.ppm", "--bogus", NULL), 2);
+    assert_false(exists("x.ppm"));
+    /* A scene that does not load: exit 1, the file named. */
+    f = fopen("bad.json", "wb");
+    fputs("{ \"brume\": 1, ", f);
+    fclose(f);
+    assert_int_equal(run_cmd("bad.json", "--target", "intro", "-o", "x.ppm", NULL), 1);
+    assert_non_null(strstr(err_text, "bad.json"));
+    assert_int_equal(chdir(cwd), 0);
+}
+
 static int cleanup(void **state)
 {
     (void)state;
@@ -728,6 +866,7 @@ int main(void)
         cmocka_unit_test(preview_should_refuse_a_volume_that_does_not_match_the_target),
         cmocka_unit_test(preview_should_ask_for_a_camera_only_where_one_is_needed),
         cmocka_unit_test(preview_beside_path_should_put_the_suffix_before_ppm),
+        cmocka_unit_test(preview_command_should_write_both_pictures_and_report_errors),
     };
     return cmocka_run_group_tests_name("view_preview", tests, NULL, cleanup);
 }
