@@ -153,14 +153,15 @@ typedef enum brm_encoding {
 } brm_encoding;
 
 typedef struct brm_camera {
-    brm_vec3 position, look_at, up;
+    brm_vec3 position, look_at, up;     /* up defaults to [0, 1, 0] when the file omits it */
     double fov_y_deg, aspect, near, far;
 } brm_camera;
 
 typedef struct brm_target {
     char name[BRM_NAME_MAX];
     brm_grid_kind grid;
-    brm_aabb box;               /* world, probes: min and max */
+    brm_aabb box;               /* world, probes: min and max; frustum: bounds of the whole view
+                                   pyramid (camera position to the far plane's corners) */
     uint32_t cells[3];          /* world, frustum */
     uint32_t samples;           /* world, frustum: default 4 */
     brm_camera camera;          /* frustum */

@@ -296,6 +296,49 @@ static void obj_parser_should_handle_forms_and_polygons(void **state)
     assert_string_equal(d.message, "m.obj:9: face index 9 out of range: 8 vertices defined so far; expected 1..8 or -8..-1");
 }
 
+static void loader_visibility_should_give_ln20_over_v(void **state)
+{
+    (void)state;
+    /* Source: REFERENCES §4 table (MOR, 5 % contrast: sigma = ln(20)/V), through the loader:
+     * 50 m → 0.0599146455, 200 m → 0.0149786614, 1000 m → 0.00299573227 per metre. */
+    const double vis[] = {50.0, 200.0, 1000.0}, sigma[] = {0.0599146455, 0.0149786614, 0.00299573227};
+    for (int i = 0; i < 3; i++) {
+        char json[1024];
+        snprintf(json, sizeof json, "{\"brume\": 1, \"name\": \"v\", \"media\": [{\"type\": \"uniform\", \"visibility_m\": %g}], %s}",
+                 vis[i], minimal_target);
+        brm_diag d;
+        brm_scene *s = load_text(json, NULL, &d);
+        assert_non_null(s);
+        assert_near(s->media[0].sigma_t, sigma[i], 0, 5e-9);
+        /* and it is what the density function returns inside the fog (bounds = the target box) */
+        assert_near(brm_media_extinction(s, brm_v3(0.5, 0.5, 0.5)), sigma[i], 0, 5e-9);
+        brm_scene_free(s);
+    }
+}
+
+static void collinear_mesh_faces_should_be_dropped_and_counted(void **state)
+{
+    (void)state;
+    /* A closed tetrahedron plus two zero-area faces: one collinear after a rotation (rounding
+     * leaves a tiny cross product), one with coincident corners at different indices. */
+    mem_file files[] = {{"scenes/t.obj", "v 0 0 0\nv 1 0 0\nv 0 1 0\nv 0 0 1\nv 2 0 0\nv 1 0 0\n"
+                                         "f 1 3 2\nf 1 2 4\nf 1 4 3\nf 2 3 4\nf 1 2 5\nf 2 6 3\n"},
+                        {NULL, NULL}};
+    char json[1024];
+    snprintf(json, sizeof json,
+             "{\"brume\": 1, \"name\": \"m\", \"geometry\": [{\"shape\": \"mesh\", \"path\": \"t.obj\", \"rotate_deg\": [33, 12, 71]}], %s}",
+             minimal_target);
+    brm_diag d;
+    brm_scene *s = load_text(json, files, &d);
+    assert_non_null(s);
+    assert_int_equal(s->tri_count, 4);
+    assert_int_equal(s->degenerate_dropped, 2);
+    assert_true(s->objects[0].closed);   /* vertices 2 and 6 weld: still watertight */
+    assert_int_equal(d.warning_count, 1);
+    assert_non_null(strstr(d.warnings[0], "dropped 2 degenerate (zero-area) triangles"));
+    brm_scene_free(s);
+}
+
 int main(int argc, char **argv)
 {
     data_dir = argc > 1 ? argv[1] : "tests/scene/data";
@@ -308,6 +351,8 @@ int main(int argc, char **argv)
         cmocka_unit_test(missing_scene_file_should_be_an_io_error),
         cmocka_unit_test(given_fog_bounds_and_media_should_drive_extinction),
         cmocka_unit_test(obj_parser_should_handle_forms_and_polygons),
+        cmocka_unit_test(loader_visibility_should_give_ln20_over_v),
+        cmocka_unit_test(collinear_mesh_faces_should_be_dropped_and_counted),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }
