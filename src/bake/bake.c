@@ -107,7 +107,13 @@ void brm_bake_input_hash(const brm_scene *s, uint32_t t, const brm_bake_opts *o,
     brm_sha256_init(&c);
     hash_str(&c, "tool", BRUME_VERSION_STRING);
     hash_str(&c, "scene", s->name);
+    /* cJSON's parser records errors in a global: several targets bake at once, so parses of
+     * the shared text take turns (the hash is computed once per bake, the wait is short). */
+    static atomic_flag parsing = ATOMIC_FLAG_INIT;
+    while (atomic_flag_test_and_set(&parsing)) {
+    }
     cJSON *shared = s->shared_json_text ? cJSON_Parse(s->shared_json_text) : NULL;
+    atomic_flag_clear(&parsing);
     cJSON *lights = cJSON_IsObject(shared) ? cJSON_DetachItemFromObjectCaseSensitive(shared, "lights") : NULL;
     bool split = cJSON_IsObject(shared) && (lights ? cJSON_IsArray(lights) && cJSON_GetArraySize(lights) == (int)s->light_count
                                                    : s->light_count == 0);
