@@ -217,6 +217,8 @@ typedef struct probe_set {
 
 /* ---- the job ------------------------------------------------------------------------------ */
 
+#define SKY_RAYS 8u     /* sky rays per pixel, before the filter (sky_irradiance) */
+
 typedef struct job {
     const brm_scene *s;
     const brm_bvh *bvh;
@@ -232,6 +234,7 @@ typedef struct job {
     float *fog, *plain;
     uint8_t *marker;
     struct gpix *g;         /* first pass, one per pixel */
+    double sky_dir[SKY_RAYS][2]; /* cos, sin of the sky rays' base azimuths */
 } job;
 
 /* ∫ max(a·ω, 0)·max(b·ω, 0) dω over the sphere for unit a, b at angle theta: the overlap of two
@@ -251,9 +254,8 @@ static double cosine_overlap(double cos_theta)
  * Blocked: with directions ω_k distributed as cos/π (Malley: uniform on the disk, lifted), each
  * carries π/N of ∫ L·cos dω, so E = E_open − (π/N)·Σ_blocked L(ω_k): exact for an open surface
  * and unbiased under occluders. The rays are a stratified set (equal-area rings in the disk,
- * the golden angle apart), rotated per pixel by a hashed offset (16 rays: enough that the
- * noise of a room lit through its windows stays fine-grained). */
-#define SKY_RAYS 16u
+ * the golden angle apart), rotated per pixel by a hashed offset; the noise left (a room lit
+ * through its windows) is averaged away across pixels by compose_row's filter. */
 static brm_vec3 sky_irradiance(const job *j, brm_vec3 q, brm_vec3 n, uint32_t pixel)
 {
     const brm_sky *sky = &j->s->sky;
@@ -266,14 +268,15 @@ static brm_vec3 sky_irradiance(const job *j, brm_vec3 q, brm_vec3 n, uint32_t pi
         /* A hashed offset per pixel: neighbouring pixels decorrelate (white noise, no pattern). */
         uint64_t key = brm_hash64(0x70726576ull /* "prev" */ ^ (uint64_t)pixel * 0x9e3779b97f4a7c15ull);
         double shift[2] = {brm_hash_unit(key), brm_hash_unit(key ^ 0x5851f42d4c957f2dull)};
-        const double golden = 0.61803398874989484820;
+        /* Azimuths 2π·frac(k·golden) (j->sky_dir) turned by the pixel's offset. */
+        double cd = cos(2.0 * BRM_PI * shift[1]), sd = sin(2.0 * BRM_PI * shift[1]);
         brm_vec3 blocked = brm_v3(0, 0, 0);
         for (uint32_t k = 0; k < SKY_RAYS; k++) {
             double u1 = ((double)k + shift[0]) / (double)SKY_RAYS;
-            double u2 = shift[1] + golden * (double)k;
-            u2 -= floor(u2);
-            double r = sqrt(u1), phi = 2.0 * BRM_PI * u2;
-            brm_vec3 w = brm_add(brm_add(brm_scale(t1, r * cos(phi)), brm_scale(t2, r * sin(phi))),
+            double ca = j->sky_dir[k][0], sa = j->sky_dir[k][1];
+            double cp = ca * cd - sa * sd, sp = sa * cd + ca * sd;
+            double r = sqrt(u1);
+            brm_vec3 w = brm_add(brm_add(brm_scale(t1, r * cp), brm_scale(t2, r * sp)),
                                  brm_scale(n, sqrt(fmax(0.0, 1.0 - u1))));
             w = brm_norm(w);
             if (brm_bvh_occluded(j->bvh, q, w, j->eps, HUGE_VAL)) blocked = brm_add(blocked, brm_sky_radiance(sky, w));
@@ -803,6 +806,11 @@ brm_status brm_preview_render(const brm_scene *s, uint32_t t, const brv_volume *
     }
     j.fog = p.fog, j.plain = p.plain, j.marker = p.marker;
     p.setup_seconds = brm_now() - t_start;
+    for (uint32_t k = 0; k < SKY_RAYS; k++) {
+        double a = 0.61803398874989484820 * (double)k; /* the golden ratio's fraction */
+        a = 2.0 * BRM_PI * (a - floor(a));
+        j.sky_dir[k][0] = cos(a), j.sky_dir[k][1] = sin(a);
+    }
     j.g = malloc(sizeof *j.g * npx);
     if (!j.g) {
         st = brm_diag_error(d, BRM_E_NOMEM, "preview: out of memory for a %u x %u picture", p.w, p.h);

@@ -11,7 +11,7 @@
  *   set built for the preview over the scene's geometry), and E_sky the sky irradiance:
  *   the open sky's in closed form, E_open(n) = π·H + (Z − H)·I(n_y) + (G − H)·I(−n_y) with
  *   I(c) = (2/3)·((π − θ)·c + sin θ), θ = acos c (the overlap of two clamped cosines), minus
- *   what geometry blocks, (π/16)·Σ L_sky(ω_k) over the blocked ones of 16 cosine-distributed
+ *   what geometry blocks, (π/8)·Σ L_sky(ω_k) over the blocked ones of 8 cosine-distributed
  *   rays (stratified, rotated per pixel by a hashed offset). Exact for a surface open to the sky, unbiased under
  *   occluders. (brm_sky_incident's bands 0–1 were tried first: its rays into the surface's own
  *   half-space left errors of 15 % per pixel on an open wall.) The sky estimate is then
