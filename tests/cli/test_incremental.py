@@ -157,6 +157,33 @@ def body(tmp):
           "two scenes of one name: exit 1 naming both", se)
     os.remove(tp)
 
+    # Probes gather bounce light from anywhere: a light that reaches fog or geometry anywhere
+    # counts for them, even when it misses their box.
+    ps = tiny_scene(name="lattice", extra_targets=[
+        {"name": "probes", "grid": "probes", "min": [0.5, 0.5, 0.5], "max": [5.5, 5.5, 5.5],
+         "spacing_m": 2.5, "rays": 32}])
+    pp = os.path.join(tmp, "lattice.json")
+    pout = os.path.join(tmp, "out-lattice")
+    write_scene(pp, ps)
+    rc, _, se = run(["bake", pp, "-o", pout, "--report", rep])
+    check_eq(statuses(rep), {"west": "baked", "east": "baked", "probes": "baked"}, "probe scene: first bake", se)
+    ps["lights"][2]["intensity_cd"] = 150
+    write_scene(pp, ps)
+    run(["bake", pp, "-o", pout, "--report", rep])
+    check_eq(statuses(rep), {"west": "up-to-date", "east": "baked", "probes": "baked"},
+             "a light far from the probes but inside the fog re-bakes them")
+    ps["lights"].append({"type": "point", "position": [14, 3, 3], "intensity_cd": 50, "range_m": 0.5})
+    ps["fog_bounds"] = {"min": [0, 0, 0], "max": [12, 6, 6]}
+    ps["geometry"] = [{"shape": "box", "min": [2, 0, 2], "max": [3, 2, 3]}]
+    write_scene(pp, ps)
+    run(["bake", pp, "-o", pout, "--report", rep])
+    st1 = statuses(rep)
+    ps["lights"][3]["intensity_cd"] = 70
+    write_scene(pp, ps)
+    run(["bake", pp, "-o", pout, "--report", rep])
+    check_eq(statuses(rep), {"west": "up-to-date", "east": "up-to-date", "probes": "up-to-date"},
+             "a light outside the fog, far from all geometry, re-bakes nothing", str(st1))
+
     empty = os.path.join(tmp, "empty")
     os.makedirs(empty)
     rc, _, se = run(["bake", empty, "-o", os.path.join(tmp, "out4")])
