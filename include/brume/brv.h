@@ -245,8 +245,9 @@ typedef struct brv_sampler brv_sampler;
 BRV_API const char *brv_result_text(brv_result r);
 
 /* Opens a volume file: reads it whole and checks its structure (header, tables, brick ranges,
- * header and table CRCs). Brick checksums are checked when bricks are decoded, or all at once
- * by brv_verify.
+ * header and table CRCs). Each brick's zstd content checksum is checked whenever the brick is
+ * decoded, so changed data is never returned; brv_verify checks every brick and also the
+ * CRC-32 of its stored bytes (which catches changes that leave the decoded data intact).
  * Returns BRV_OK and *out, or a fault code with *out untouched.
  * Notes: safe on untrusted files; allocates at most the file size plus O(channels + bricks).
  * path: a file name. alloc: NULL for malloc/free; the volume keeps a copy. */
@@ -309,8 +310,9 @@ BRV_API brv_result brv_decode_channel_f16(const brv_volume *v, uint32_t channel,
  * out_count ≥ brv_all_size(v). */
 BRV_API brv_result brv_decode_all(const brv_volume *v, float *out, size_t out_count);
 
-/* Checks structure and every brick's checksum and payload; on a fault, *brick (if not NULL)
- * names the first bad brick (UINT32_MAX when the fault is not in a brick). */
+/* Checks structure and every brick: the CRC-32 of its stored bytes, its zstd frame and content
+ * checksum, and its payload. On a fault, *brick (if not NULL) names the first bad brick
+ * (UINT32_MAX when the fault is not in a brick). */
 BRV_API brv_result brv_verify(const brv_volume *v, uint32_t *brick);
 
 /* Random access with a cache of cache_bricks decoded bricks (direct-mapped by brick index;

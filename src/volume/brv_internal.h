@@ -91,12 +91,32 @@ uint32_t brv_crc32(uint32_t crc, const void *data, size_t len);
 
 /* IEEE 754 binary16, round to nearest, ties to even; NaN stays NaN, overflow gives ±inf. */
 uint16_t brv_f32_to_f16(float f);
-float brv_f16_to_f32(uint16_t h);
+
+/* The half's exponent and fraction, shifted into a float's fraction field, times 2^112
+ * rebias the exponent from 15 to 127 exactly — subnormal halves included (they land on float
+ * subnormals, which the multiplication makes normal). Infinity and NaN keep the all-ones
+ * exponent. Inline and branch-free so the decoding loops vectorise. */
+static inline float brv_f16_to_f32(uint16_t h)
+{
+    uint32_t sign = (uint32_t)(h & 0x8000u) << 16;
+    uint32_t em = (uint32_t)(h & 0x7FFFu) << 13;
+    uint32_t special = sign | 0x7F800000u | (em & 0x7FFFFFu);
+    uint32_t normal = brv_f32_bits(brv_bits_f32(em) * 5.192296858534828e33f) | sign; /* × 2^112 */
+    return brv_bits_f32(em >= (0x7C00u << 13) ? special : normal);
+}
 
 /* Shared-exponent RGB9E5 per EXT_texture_shared_exponent (inputs clamped as that text says;
  * the writer checks ranges before calling). */
 uint32_t brv_rgb9e5_pack(float r, float g, float b);
-void brv_rgb9e5_unpack(uint32_t p, float *r, float *g, float *b);
+
+/* x = mantissa · 2^(exp − 24); 2^(exp − 24) is always a normal float, built from its bits. */
+static inline void brv_rgb9e5_unpack(uint32_t p, float *r, float *g, float *b)
+{
+    float q = brv_bits_f32(((p >> 27) + 103u) << 23);
+    *r = (float)(p & 0x1FFu) * q;
+    *g = (float)((p >> 9) & 0x1FFu) * q;
+    *b = (float)((p >> 18) & 0x1FFu) * q;
+}
 
 /* 2^e as a float for e in −150..127 (exact). */
 float brv_exp2i(int e);

@@ -49,19 +49,6 @@ uint16_t brv_f32_to_f16(float f)
     return (uint16_t)(sign | q);
 }
 
-float brv_f16_to_f32(uint16_t h)
-{
-    /* The half's exponent and fraction, shifted into a float's fraction field, times 2^112
-     * rebias the exponent from 15 to 127 exactly — subnormal halves included (they land on
-     * float subnormals, which the multiplication makes normal). Infinity and NaN keep the
-     * all-ones exponent. */
-    uint32_t sign = (uint32_t)(h & 0x8000u) << 16;
-    uint32_t em = (uint32_t)(h & 0x7FFFu) << 13;
-    if (em >= (0x7C00u << 13)) return brv_bits_f32(sign | 0x7F800000u | (em & 0x7FFFFFu));
-    float v = brv_bits_f32(em) * 5.192296858534828e33f; /* 2^112 */
-    return brv_bits_f32(brv_f32_bits(v) | sign);
-}
-
 float brv_exp2i(int e) { return ldexpf(1.0f, e); }
 
 /* EXT_texture_shared_exponent, "RGB to shared exponent conversion": N = 9 mantissa bits,
@@ -95,14 +82,6 @@ uint32_t brv_rgb9e5_pack(float r, float g, float b)
     uint32_t rs = (uint32_t)floor(rc / denom + 0.5), gs = (uint32_t)floor(gc / denom + 0.5),
              bs = (uint32_t)floor(bc / denom + 0.5);
     return ((uint32_t)exp << 27) | (bs << 18) | (gs << 9) | rs;
-}
-
-void brv_rgb9e5_unpack(uint32_t p, float *r, float *g, float *b)
-{
-    float q = brv_bits_f32(((p >> 27) + 103u) << 23); /* 2^(exp − 24), always a normal float */
-    *r = (float)(p & 0x1FFu) * q;
-    *g = (float)((p >> 9) & 0x1FFu) * q;
-    *b = (float)((p >> 18) & 0x1FFu) * q;
 }
 
 void brv_delta_encode(uint8_t *w, size_t n, unsigned wb, uint32_t nx)

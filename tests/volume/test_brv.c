@@ -107,6 +107,43 @@ static void roundtrip_should_return_same_halves_for_f16(void **state)
     free(buf);
 }
 
+/* Every finite binary16 value, subnormals and both zeros included, through the writer and the
+ * reader's vectorised (rows of 16) and scalar (clipped rows) paths: the same bits come back. */
+static float every_half(uint32_t c, uint32_t x, uint32_t y, uint32_t z, void *user)
+{
+    (void)c, (void)user;
+    uint32_t i = x + 70 * (y + 30 * z), h = i;
+    if (h >= 0x7C00u) h += 0x400u; /* skip infinities and NaNs: 0x7C00–0x7FFF */
+    if (h >= 0x10000u || (h & 0x7C00u) == 0x7C00u) h = 0x3C00u;
+    return brv_f16_to_f32((uint16_t)h);
+}
+
+static void every_finite_half_should_come_back_bit_exact(void **state)
+{
+    (void)state;
+    brv_channel_desc ch[1] = {{"h", "", BRV_ENCODING_F16}};
+    brv_write_desc d = fixture_world(70, 30, 32, ch, 1); /* 67200 cells ≥ 63488 finite halves */
+    size_t size;
+    uint8_t *buf = write_or_fail(&d, every_half, NULL, &size);
+    brv_volume *v = open_or_fail(buf, size);
+    size_t n = brv_channel_size(v);
+    uint16_t *h = malloc(n * sizeof *h);
+    float *f = malloc(n * sizeof *f);
+    assert_int_equal(brv_decode_channel_f16(v, 0, h, n), BRV_OK);
+    assert_int_equal(brv_decode_channel(v, 0, f, n), BRV_OK);
+    for (uint32_t z = 0, i = 0; z < 32; z++)
+        for (uint32_t y = 0; y < 30; y++)
+            for (uint32_t x = 0; x < 70; x++, i++) {
+                float want = every_half(0, x, y, z, NULL);
+                assert_int_equal(h[i], brv_f32_to_f16(want));
+                assert_memory_equal(&f[i], &want, sizeof want); /* bits, so −0 is told from +0 */
+            }
+    free(h);
+    free(f);
+    brv_free(v);
+    free(buf);
+}
+
 /* A sun seen through fog: radiance far over binary16's 65504 and rgb9e5's 65408. */
 static float bright_field(uint32_t c, uint32_t x, uint32_t y, uint32_t z, void *user)
 {
@@ -343,7 +380,11 @@ static uint8_t *small_file(size_t *size)
     return write_or_fail(&d, fixture_smooth, NULL, size);
 }
 
-/* A fault is any named code but BRV_OK; a truncated or flipped file must never give data. */
+/* A fault is any named code but BRV_OK. verify must report every damaged file; decoding must
+ * fail or give back exactly the original data (a change zstd's content checksum lets through
+ * is one that leaves the payload intact), never different data. */
+static const float *original_values; /* every channel of the undamaged file */
+
 static brv_result open_and_read(const uint8_t *src, size_t size, counting *cnt)
 {
     uint8_t *copy = malloc(size ? size : 1); /* fresh, exact size: overreads are caught */
@@ -355,7 +396,9 @@ static brv_result open_and_read(const uint8_t *src, size_t size, counting *cnt)
         r = brv_verify(v, NULL);
         float *all = malloc(brv_all_size(v) * sizeof(float));
         brv_result r2 = brv_decode_all(v, all, brv_all_size(v));
-        assert_true((r == BRV_OK) == (r2 == BRV_OK));
+        if (r2 == BRV_OK && original_values)
+            assert_memory_equal(all, original_values, brv_all_size(v) * sizeof(float));
+        if (r == BRV_OK) assert_int_equal(r2, BRV_OK);
         free(all);
         brv_free(v);
     }
@@ -364,11 +407,22 @@ static brv_result open_and_read(const uint8_t *src, size_t size, counting *cnt)
     return r;
 }
 
+static float *decode_small(const uint8_t *buf, size_t size)
+{
+    brv_volume *v = open_or_fail(buf, size);
+    float *all = malloc(brv_all_size(v) * sizeof(float));
+    assert_int_equal(brv_decode_all(v, all, brv_all_size(v)), BRV_OK);
+    brv_free(v);
+    return all;
+}
+
 static void open_should_reject_every_truncation(void **state)
 {
     (void)state;
     size_t size;
     uint8_t *buf = small_file(&size);
+    float *orig = decode_small(buf, size);
+    original_values = orig;
     counting cnt = {0};
     assert_int_equal(open_and_read(buf, size, &cnt), BRV_OK);
     int counts[BRV_RESULT_MAX_ENUM] = {0};
@@ -380,6 +434,8 @@ static void open_should_reject_every_truncation(void **state)
     assert_int_equal(cnt.live, 0);
     print_message("%zu truncations: %d magic, %d truncated, %d layout\n", size, counts[BRV_E_MAGIC],
                   counts[BRV_E_TRUNCATED], counts[BRV_E_LAYOUT]);
+    original_values = NULL;
+    free(orig);
     free(buf);
 }
 
@@ -389,6 +445,8 @@ static void open_should_reject_random_byte_flips(void **state)
     size_t size;
     uint8_t *buf = small_file(&size);
     uint8_t *mod = malloc(size);
+    float *orig = decode_small(buf, size);
+    original_values = orig;
     counting cnt = {0};
     srand(12345);
     int counts[BRV_RESULT_MAX_ENUM] = {0};
@@ -406,6 +464,8 @@ static void open_should_reject_random_byte_flips(void **state)
                   counts[BRV_E_HEADER_CRC], counts[BRV_E_BRICK_CORRUPT], counts[BRV_E_MAGIC], counts[BRV_E_VERSION],
                   4000 - counts[BRV_E_HEADER_CRC] - counts[BRV_E_BRICK_CORRUPT] - counts[BRV_E_MAGIC] -
                       counts[BRV_E_VERSION]);
+    original_values = NULL;
+    free(orig);
     free(mod);
     free(buf);
 }
@@ -780,6 +840,7 @@ int main(int argc, char **argv)
     const struct CMUnitTest tests[] = {
         cmocka_unit_test(roundtrip_should_return_same_floats_for_f32),
         cmocka_unit_test(roundtrip_should_return_same_halves_for_f16),
+        cmocka_unit_test(every_finite_half_should_come_back_bit_exact),
         cmocka_unit_test(f16_and_rgb9e5_should_scale_bright_values_within_bound),
         cmocka_unit_test(writer_should_refuse_unrepresentable_values),
         cmocka_unit_test(writer_should_refuse_bad_descriptions_with_a_reason),
