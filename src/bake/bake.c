@@ -88,6 +88,15 @@ uint64_t brm_bake_estimate_work(const brm_scene *s, uint32_t t)
 
 /* ---- input hash and metadata ------------------------------------------------------------ */
 
+/* A referenced file's path relative to the scene's folder, so the same scene baked from another
+ * working folder gives the same hash and the same bytes. */
+static const char *scene_relative(const brm_scene *s, const char *fp)
+{
+    const size_t dl = strlen(s->dir);
+    if (dl && strncmp(fp, s->dir, dl) == 0 && fp[dl] == '/') return fp + dl + 1;
+    return fp;
+}
+
 static void hash_str(brm_sha256 *c, const char *tag, const char *v)
 {
     brm_sha256_update(c, tag, strlen(tag) + 1);
@@ -141,11 +150,8 @@ void brm_bake_input_hash(const brm_scene *s, uint32_t t, const brm_bake_opts *o,
     hash_str(&c, "target", s->targets[t].json_text);
     /* Files by content, named relative to the scene's folder so that the same scene baked from
      * another working folder stays up to date. */
-    const size_t dl = strlen(s->dir);
     for (uint32_t i = 0; i < s->file_count; i++) {
-        const char *fp = s->files[i].path;
-        if (dl && strncmp(fp, s->dir, dl) == 0 && fp[dl] == '/') fp += dl + 1;
-        hash_str(&c, "file", fp);
+        hash_str(&c, "file", scene_relative(s, s->files[i].path));
         brm_sha256_update(&c, s->files[i].sha256, 32);
     }
     hash_str(&c, "reference", o->reference ? "1" : "0");
@@ -180,7 +186,7 @@ static char *build_metadata(const brm_scene *s, uint32_t t, const brm_bake_opts 
         cJSON *f = cJSON_CreateObject();
         char fh[65];
         brm_sha256_hex(s->files[i].sha256, fh);
-        cJSON_AddStringToObject(f, "path", s->files[i].path);
+        cJSON_AddStringToObject(f, "path", scene_relative(s, s->files[i].path));
         cJSON_AddStringToObject(f, "sha256", fh);
         cJSON_AddItemToArray(files, f);
     }

@@ -2,33 +2,42 @@
 
 #include <errno.h>
 #include <fcntl.h>
+#include <pthread.h>
 #include <signal.h>
+#include <stdatomic.h>
 #include <stdlib.h>
 #include <string.h>
 #include <sys/stat.h>
 #include <unistd.h>
 
 /* Registry of open temporaries so an interrupted bake can remove them from a signal handler.
- * Fixed slots, set and cleared with plain stores of a sig_atomic_t flag. */
+ * Fixed slots: threads claim and release them under a mutex; the path is written before the
+ * slot's flag is set, so the handler (which takes no lock) only ever reads complete paths. */
 #define MAX_LIVE 64
 static char live_paths[MAX_LIVE][BRM_PATH_MAX];
 static volatile sig_atomic_t live_used[MAX_LIVE];
+static pthread_mutex_t live_lock = PTHREAD_MUTEX_INITIALIZER;
 
 static void live_add(const char *p)
 {
+    pthread_mutex_lock(&live_lock);
     for (int i = 0; i < MAX_LIVE; i++) {
         if (!live_used[i]) {
             snprintf(live_paths[i], BRM_PATH_MAX, "%s", p);
+            atomic_signal_fence(memory_order_seq_cst);
             live_used[i] = 1;
-            return;
+            break;
         }
     }
+    pthread_mutex_unlock(&live_lock);
 }
 
 static void live_remove(const char *p)
 {
+    pthread_mutex_lock(&live_lock);
     for (int i = 0; i < MAX_LIVE; i++)
         if (live_used[i] && strcmp(live_paths[i], p) == 0) live_used[i] = 0;
+    pthread_mutex_unlock(&live_lock);
 }
 
 void brm_atomic_cleanup_all(void)
