@@ -78,6 +78,8 @@ typedef struct brm_preview_opts {   /* zero = defaults */
     int threads;                    /* 0 = all cores */
     bool exposure_set;              /* else automatic */
     double exposure_ev;
+    bool reference;                 /* surfaces lit through the exact shadow path (visibility by
+                                       rays, transmittance marched): slow, for checks and benches */
 } brm_preview_opts;
 
 typedef struct brm_preview {
