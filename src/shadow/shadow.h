@@ -18,14 +18,21 @@ typedef struct brm_shadow_opts {
     double cell_size;       /* the target's smallest cell edge, for default map resolution */
     int threads;
     bool reference;
-    const brm_bvh *bvh;     /* the scene's ray caster (required for the reference path) */
+    const brm_bvh *bvh;     /* the scene's ray caster (required for the reference path; when
+                               NULL and needed — reference, sky over geometry — the set
+                               builds its own) */
 } brm_shadow_opts;
 
 typedef struct brm_shadow_set brm_shadow_set;
 
 brm_status brm_shadows_build(const brm_scene *s, const brm_shadow_opts *o, brm_shadow_set **out, brm_diag *d);
 void brm_shadows_free(brm_shadow_set *ss);
-/* Bytes brm_shadows_build will allocate (for the memory estimate). */
+/* Bytes brm_shadows_build will allocate (for the memory estimate): exact for the maps and
+ * grids; refinement blocks for optical-depth cells that interpolate poorly are counted up to
+ * their cap (one grid cell in 8), of which a build typically uses a few per cent, so this is
+ * an upper bound. Default map resolution: a texel of opts.cell_size / 8 at the far side of
+ * the target, capped at 4096 texels per side (2048 per cube face); a light's
+ * shadow.resolution overrides it (16..16384). */
 size_t brm_shadows_memory(const brm_scene *s, const brm_shadow_opts *o);
 
 /* Geometric visibility of light l from p, in [0, 1] (filtered). 1 when the light casts no shadow. */
@@ -34,6 +41,12 @@ double brm_shadow_visibility(const brm_shadow_set *ss, uint32_t l, brm_vec3 p);
 /* Transmittance exp(−∫sigma_t) from p toward light l, up to the light or to where the path
  * leaves the fog bounds. Within 1 % of the reference march. */
 double brm_shadow_transmittance(const brm_shadow_set *ss, uint32_t l, brm_vec3 p);
+/* (Fast path: per light, a light-space grid of optical depth along the light's paths — an
+ * orthographic column per lateral node for directional lights, rays in (cube-face or spot)
+ * projection × distance for point and spot lights — with Hermite steps along paths, the
+ * fog-bounds entry solved exactly per query, cells checked at build time, refined 4 × 4
+ * where interpolation is off by more than 0.003 and marched where even that is not enough.
+ * Lookups: tens to a few hundred nanoseconds; see bench/bench_shadow.c.) */
 
 /* Texel size (m) of light l's map near p; 0 for lights without a map (for warnings). */
 double brm_shadow_texel_size(const brm_shadow_set *ss, uint32_t l);

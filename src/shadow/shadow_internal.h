@@ -12,6 +12,13 @@
  * 4096² float map is 64 MiB. A target whose cells are finer than its extent / 4096 gets texels
  * larger than a cell (common practice, no source: the cap keeps memory bounded). */
 #define BRM_SHADOW_AUTO_MAX 4096u
+#define BRM_SHADOW_AUTO_MAX_CUBE 2048u  /* per face: six 2048² faces are 96 MiB */
+/* Default texels per cell edge. A texel as large as a cell would do for smooth shadows, but
+ * light shafts through openings a few cells wide (windows, skylights) lose their edges to the
+ * filter (1.5 texels each side by default): eight texels per cell keep the demo scene's fast
+ * bake close to its BVH reference (common practice, no source; measured there). Maps are
+ * cheap next to everything else. */
+#define BRM_SHADOW_TEXELS_PER_CELL 8.0
 #define BRM_SHADOW_MIN_RES 16u
 #define BRM_SHADOW_MAX_RES 16384u
 /* Nodes per optical-depth grid (per view: a point light's six faces get it each): 2 floats

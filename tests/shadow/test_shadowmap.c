@@ -72,7 +72,7 @@ static void shadow_edge_should_be_filtered_not_stair_stepped(void **state)
     int partial = 0;
     double first0 = HUGE_VAL, last1 = -HUGE_VAL;
     for (int k = 0; k <= 400; k++) {
-        double x = 2.0 - 4.0 * k / 400.0; /* from lit (x > 0) into shadow (x < 0) */
+        double x = 0.5 - 1.0 * k / 400.0; /* from lit (x > 0.03) into shadow */
         double v = brm_shadow_visibility(ss, 0, brm_v3(x, 2.0, 0.37));
         if (prev >= 0.0) assert_true(v <= prev + 1e-12);
         prev = v;
@@ -80,12 +80,15 @@ static void shadow_edge_should_be_filtered_not_stair_stepped(void **state)
         if (v >= 1.0) last1 = x;
         if (v <= 0.0 && x > -HUGE_VAL && first0 == HUGE_VAL) first0 = x;
     }
-    printf("edge: %d partial values, width %.3f m, texel %.3f m\n", partial, last1 - fmax(first0, -2.0), texel);
+    printf("edge: %d partial values, width %.3f m, texel %.3f m, middle at %.3f m\n", partial,
+           last1 - fmax(first0, -0.5), texel, 0.5 * (last1 + first0));
     assert_true(partial >= 10);
-    double width = last1 - fmax(first0, -2.0);
-    /* Source (common practice, no source): a box filter of half-width 1.5 texels over
-     * nearest-texel tests, plus up to one texel of conservative coverage, spans ≤ 4 texels. */
-    assert_true(width > 2.0 * texel && width < 5.0 * texel);
+    double width = last1 - fmax(first0, -0.5);
+    /* Common practice, no source: a box filter of half-width 1.5 texels over nearest-texel
+     * tests spans 3 texels (plus one for where the edge falls in its texel), centred on the
+     * edge within a texel: coverage by texel centres does not push shadows out. */
+    assert_true(width > 2.0 * texel && width < 4.5 * texel);
+    assert_near(0.5 * (last1 + first0), 0.03, 1.0 * texel, 0.0);
     brm_shadows_free(ss);
     brm_scene_free(s);
 }
@@ -227,11 +230,12 @@ static void resolution_should_follow_cells_overrides_and_cap(void **state)
     sf_ready(s);
     brm_shadow_set *ss = sf_build(s, slab, 0.5, false, NULL, 1);
     const shadow_view *v = &ss->lights[0].views[0];
-    /* 20 m across at 0.5 m cells: 40 texels plus the filter margin of 2·(⌈1.5⌉ + 2). */
-    assert_int_equal(v->res, 40 + 8);
-    assert_near(v->texel, 0.5, 0.0, 1e-12);
+    /* 20 m across at 0.5 m cells, eight texels per cell: 320 texels plus the filter margin of
+     * 2·(⌈1.5⌉ + 2). */
+    assert_int_equal(v->res, 320 + 8);
+    assert_near(v->texel, 0.0625, 0.0, 1e-12);
     brm_shadows_free(ss);
-    /* A 1 mm cell would ask for 20 000 texels: the automatic resolution stops at 4096. */
+    /* A 1 mm cell would ask for 160 000 texels: the automatic resolution stops at 4096. */
     ss = sf_build(s, slab, 0.001, false, NULL, 1);
     assert_int_equal(ss->lights[0].views[0].res, BRM_SHADOW_AUTO_MAX);
     brm_shadows_free(ss);
@@ -244,6 +248,11 @@ static void resolution_should_follow_cells_overrides_and_cap(void **state)
     ss = sf_build(s, slab, 0.5, false, NULL, 1);
     assert_int_equal(ss->lights[1].view_count, 6);
     for (int k = 0; k < 6; k++) assert_int_equal(ss->lights[1].views[k].res, 64);
+    brm_shadows_free(ss);
+    /* Automatic per-face resolution stops at 2048 (six faces). */
+    s->lights[1].shadow_resolution = 0;
+    ss = sf_build(s, slab, 0.001, false, NULL, 1);
+    assert_int_equal(ss->lights[1].views[0].res, BRM_SHADOW_AUTO_MAX_CUBE);
     brm_shadows_free(ss);
     brm_scene_free(s);
 }
