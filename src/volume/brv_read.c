@@ -455,15 +455,19 @@ static void decode_w32(const uint8_t *restrict src, size_t n, uint32_t nx, float
     const uint8_t *b0 = src, *b1 = src + n, *b2 = src + 2 * n, *b3 = src + 3 * n;
     for (size_t row = 0; row < n; row += nx) {
         uint32_t prev = 0;
-        for (size_t i = row; i < row + nx; i++) {
-            prev += (uint32_t)b0[i] | ((uint32_t)b1[i] << 8) | ((uint32_t)b2[i] << 16) | ((uint32_t)b3[i] << 24);
-            w[i] = prev;
+        if (code == BRV_ENCODING_F32) { /* the words are the float bits: straight to out */
+            for (size_t i = row; i < row + nx; i++) {
+                prev += (uint32_t)b0[i] | ((uint32_t)b1[i] << 8) | ((uint32_t)b2[i] << 16) | ((uint32_t)b3[i] << 24);
+                out[i] = brv_bits_f32(prev);
+            }
+        } else {
+            for (size_t i = row; i < row + nx; i++) {
+                prev += (uint32_t)b0[i] | ((uint32_t)b1[i] << 8) | ((uint32_t)b2[i] << 16) | ((uint32_t)b3[i] << 24);
+                w[i] = prev;
+            }
         }
     }
-    if (code == BRV_ENCODING_F32) {
-        memcpy(out, w, n * sizeof(float)); /* the words are the float bits */
-        return;
-    }
+    if (code == BRV_ENCODING_F32) return;
     for (size_t i = 0; i < n; i++) {
         uint32_t p = w[i];
         float r, g, b;

@@ -7,6 +7,7 @@
 
 typedef struct slot {
     uint32_t brick; /* UINT32_MAX: empty */
+    uint64_t used;  /* last use, for replacement within a set */
     uint32_t ext[3];
     size_t n;
     float *data; /* interleaved: data[cell·channels + c], so a sample's corners share cache lines */
@@ -14,12 +15,15 @@ typedef struct slot {
 
 struct brv_sampler {
     const brv_volume *v;
+    const brv_grid_info *g;
+    bool direct; /* one slot per brick */
     brv_decoder *dec;
     uint32_t count;
     slot *slots;
     float *pool;
     float *scratch; /* one decoded brick, channel-major */
-    uint32_t mask;  /* count − 1 when count is a power of two, else 0 */
+    uint32_t sets;  /* count / 2 sets of two slots (one set of one when count is 1) */
+    uint64_t clock;
 };
 
 brv_result brv_sampler_create(const brv_volume *v, uint32_t cache_bricks, brv_sampler **out)
@@ -35,11 +39,13 @@ brv_result brv_sampler_create(const brv_volume *v, uint32_t cache_bricks, brv_sa
     if (!s) return BRV_E_NOMEM;
     memset(s, 0, sizeof *s);
     s->v = v;
+    s->g = g;
     s->count = cache_bricks;
+    s->direct = cache_bricks == g->brick_count;
     s->slots = brv_alloc(NULL, cache_bricks * sizeof *s->slots);
     s->pool = brv_alloc(NULL, total * sizeof(float));
     s->scratch = brv_alloc(NULL, per * sizeof(float));
-    s->mask = (cache_bricks & (cache_bricks - 1)) == 0 ? cache_bricks - 1 : 0;
+    s->sets = cache_bricks >= 2 ? cache_bricks / 2 : 1;
     brv_result r = brv_decoder_create(v, &s->dec);
     if (r == BRV_OK && (!s->slots || !s->pool || !s->scratch)) r = BRV_E_NOMEM;
     if (r != BRV_OK) {
@@ -66,7 +72,22 @@ void brv_sampler_free(brv_sampler *s)
 
 static brv_result fetch(brv_sampler *s, uint32_t b, const slot **out)
 {
-    slot *sl = &s->slots[s->mask || s->count == 1 ? b & s->mask : b % s->count];
+    /* Two-way set-associative, least recently used out. The set comes from a multiplicative
+     * (Fibonacci) hash of the brick index, so neighbours along y and z — indices a power of
+     * two apart — do not all fall into one set as they would with index mod count. */
+    slot *a, *sl;
+    s->clock++;
+    if (s->direct) {
+        sl = a = &s->slots[b]; /* room for every brick: one slot each */
+    } else {
+        uint32_t set = (uint32_t)(((uint64_t)(b * 2654435769u) * s->sets) >> 32);
+        sl = a = &s->slots[set * (s->count >= 2 ? 2u : 1u)];
+    }
+    if (s->count >= 2 && !s->direct && a->brick != b) {
+        slot *o = a + 1;
+        sl = o->brick == b ? o : (a->used <= o->used ? a : o);
+    }
+    sl->used = s->clock;
     if (sl->brick != b) {
         uint32_t o[3];
         sl->brick = UINT32_MAX;
@@ -74,7 +95,7 @@ static brv_result fetch(brv_sampler *s, uint32_t b, const slot **out)
         sl->n = (size_t)sl->ext[0] * sl->ext[1] * sl->ext[2];
         brv_result r = brv_decode_brick(s->v, s->dec, b, s->scratch, brv_brick_size(s->v));
         if (r != BRV_OK) return r;
-        uint32_t nc = brv_grid(s->v)->channel_count;
+        uint32_t nc = s->g->channel_count;
         for (uint32_t c = 0; c < nc; c++)
             for (size_t i = 0; i < sl->n; i++) sl->data[i * nc + c] = s->scratch[c * sl->n + i];
         sl->brick = b;
@@ -96,7 +117,7 @@ static void axis(double u, uint32_t n, uint32_t *i0, uint32_t *i1, double *t)
 
 static brv_result trilinear(brv_sampler *s, const double u[3], float *out)
 {
-    const brv_grid_info *g = brv_grid(s->v);
+    const brv_grid_info *g = s->g;
     uint32_t i[3][2], bc[3][2], lc[3][2];
     double t[3];
     uint32_t bs = g->brick_size;
@@ -110,16 +131,35 @@ static brv_result trilinear(brv_sampler *s, const double u[3], float *out)
     uint32_t nc = g->channel_count;
     double acc[BRV_MAX_CHANNELS];
     for (uint32_t c = 0; c < nc; c++) acc[c] = 0.0;
-    for (int corner = 0; corner < 8; corner++) {
-        int kx = corner & 1, ky = (corner >> 1) & 1, kz = corner >> 2;
-        double wgt = (kx ? t[0] : 1.0 - t[0]) * (ky ? t[1] : 1.0 - t[1]) * (kz ? t[2] : 1.0 - t[2]);
-        if (wgt == 0.0) continue;
-        uint32_t b = bc[0][kx] + g->bricks[0] * (bc[1][ky] + g->bricks[1] * bc[2][kz]);
+    if (bc[0][0] == bc[0][1] && bc[1][0] == bc[1][1] && bc[2][0] == bc[2][1]) {
+        /* All eight corners in one brick (most samples): one lookup. */
         const slot *sl;
-        brv_result r = fetch(s, b, &sl);
+        brv_result r = fetch(s, bc[0][0] + g->bricks[0] * (bc[1][0] + g->bricks[1] * bc[2][0]), &sl);
         if (r != BRV_OK) return r;
-        const float *p = sl->data + nc * (lc[0][kx] + (size_t)sl->ext[0] * (lc[1][ky] + (size_t)sl->ext[1] * lc[2][kz]));
-        for (uint32_t c = 0; c < nc; c++) acc[c] += wgt * p[c];
+        size_t sx = nc, sy = (size_t)nc * sl->ext[0], sz = sy * sl->ext[1];
+        const float *base = sl->data + lc[0][0] * sx + lc[1][0] * sy + lc[2][0] * sz;
+        size_t dx = (lc[0][1] - lc[0][0]) * sx, dy = (lc[1][1] - lc[1][0]) * sy, dz = (lc[2][1] - lc[2][0]) * sz;
+        double w00 = (1 - t[1]) * (1 - t[2]), w10 = t[1] * (1 - t[2]), w01 = (1 - t[1]) * t[2], w11 = t[1] * t[2];
+        for (uint32_t c = 0; c < nc; c++) {
+            const float *p = base + c;
+            double x00 = p[0] + t[0] * (p[dx] - p[0]);
+            double x10 = p[dy] + t[0] * (p[dy + dx] - p[dy]);
+            double x01 = p[dz] + t[0] * (p[dz + dx] - p[dz]);
+            double x11 = p[dz + dy] + t[0] * (p[dz + dy + dx] - p[dz + dy]);
+            acc[c] = w00 * x00 + w10 * x10 + w01 * x01 + w11 * x11;
+        }
+    } else {
+        for (int corner = 0; corner < 8; corner++) {
+            int kx = corner & 1, ky = (corner >> 1) & 1, kz = corner >> 2;
+            double wgt = (kx ? t[0] : 1.0 - t[0]) * (ky ? t[1] : 1.0 - t[1]) * (kz ? t[2] : 1.0 - t[2]);
+            if (wgt == 0.0) continue;
+            uint32_t b = bc[0][kx] + g->bricks[0] * (bc[1][ky] + g->bricks[1] * bc[2][kz]);
+            const slot *sl;
+            brv_result r = fetch(s, b, &sl);
+            if (r != BRV_OK) return r;
+            const float *p = sl->data + nc * (lc[0][kx] + (size_t)sl->ext[0] * (lc[1][ky] + (size_t)sl->ext[1] * lc[2][kz]));
+            for (uint32_t c = 0; c < nc; c++) acc[c] += wgt * p[c];
+        }
     }
     for (uint32_t c = 0; c < nc; c++) out[c] = (float)acc[c];
     return BRV_OK;
@@ -128,7 +168,7 @@ static brv_result trilinear(brv_sampler *s, const double u[3], float *out)
 brv_result brv_sample_world(brv_sampler *s, const double pos[3], float *out)
 {
     if (!s || !pos || !out) return BRV_E_ARGUMENT;
-    const brv_grid_info *g = brv_grid(s->v);
+    const brv_grid_info *g = s->g;
     if (g->kind == BRV_GRID_FRUSTUM) return BRV_E_ARGUMENT;
     double u[3];
     for (int a = 0; a < 3; a++) {
@@ -143,7 +183,7 @@ brv_result brv_sample_world(brv_sampler *s, const double pos[3], float *out)
 brv_result brv_sample_frustum(brv_sampler *s, double px, double py, double depth, float *out)
 {
     if (!s || !out) return BRV_E_ARGUMENT;
-    const brv_grid_info *g = brv_grid(s->v);
+    const brv_grid_info *g = s->g;
     if (g->kind != BRV_GRID_FRUSTUM || !g->slice_depths) return BRV_E_ARGUMENT;
     if (!isfinite(px) || !isfinite(py) || !isfinite(depth)) return BRV_E_ARGUMENT;
     const double *d = g->slice_depths;

@@ -88,12 +88,15 @@ static void read_as_payload(const uint8_t *data, size_t size)
     size_t total_cap = BRV_HEADER_SIZE + cap + (size_t)tsize;
     uint8_t *f = malloc(total_cap);
     if (!f) return;
-    /* A frame with the content checksum, as the reader requires. */
-    ZSTD_CCtx *cc = ZSTD_createCCtx();
-    ZSTD_CCtx_setParameter(cc, ZSTD_c_checksumFlag, 1);
-    ZSTD_CCtx_setParameter(cc, ZSTD_c_compressionLevel, 1);
+    /* A frame with the content checksum, as the reader requires (one context, kept). */
+    static ZSTD_CCtx *cc;
+    if (!cc) {
+        cc = ZSTD_createCCtx();
+        if (!cc) abort();
+        ZSTD_CCtx_setParameter(cc, ZSTD_c_checksumFlag, 1);
+        ZSTD_CCtx_setParameter(cc, ZSTD_c_compressionLevel, 1);
+    }
     size_t cs = ZSTD_compress2(cc, f + BRV_HEADER_SIZE, cap, data, size);
-    ZSTD_freeCCtx(cc);
     if (ZSTD_isError(cs)) {
         free(f);
         return;
