@@ -286,6 +286,11 @@ void brm_shadows_free(brm_shadow_set *ss)
 }
 
 double brm_shadows_build_seconds(const brm_shadow_set *ss) { return ss->build_seconds; }
+
+void brm_shadows_set_sky_rays(brm_shadow_set *ss, uint32_t rays)
+{
+    ss->sky_rays = rays < 1 ? 1 : rays > 4096 ? 4096 : rays;
+}
 size_t brm_shadows_bytes(const brm_shadow_set *ss) { return ss->bytes; }
 
 /* Unit direction from p toward light l and the distance to it (HUGE_VAL for directional). */

@@ -223,6 +223,18 @@ static void wide_roof_outside_target_should_block_its_solid_angle(void **state)
     }
     assert_true(differs);
     brm_shadows_free(ss);
+    /* More rays per call: the same mean, with less spread between calls. */
+    ss = sf_build(s, (brm_aabb){{-1, -1, -1}, {1, 1, 1}}, 0.25, false, NULL, 1);
+    brm_shadows_set_sky_rays(ss, 32);
+    assert_int_equal(ss->sky_rays, 32);
+    double m32 = 0.0;
+    for (uint32_t i = 0; i < K / 4; i++) {
+        double out[3][4];
+        brm_sky_incident(ss, brm_v3(0, 0, 0), i, out);
+        m32 += out[1][0] / (K / 4);
+    }
+    assert_near(m32, BRM_SH_C0 * (4.0 * BRM_PI - omega), 0.0, 0.01);
+    brm_shadows_free(ss);
     brm_scene_free(s);
 }
 
