@@ -19,6 +19,7 @@
  *     brv_free(vol);                                   // accepts NULL
  *
  * Random access: brv_sampler_create(vol, 64, &s); brv_sample_world(s, pos, values); ...
+ * (README.md, "Reading a volume in your engine", has a complete program.)
  *
  * ---- Threads ---------------------------------------------------------------------------
  * A brv_volume is never modified after open: any number of threads may call the decode and
@@ -315,9 +316,12 @@ BRV_API brv_result brv_decode_all(const brv_volume *v, float *out, size_t out_co
  * (UINT32_MAX when the fault is not in a brick). */
 BRV_API brv_result brv_verify(const brv_volume *v, uint32_t *brick);
 
-/* Random access with a cache of cache_bricks decoded bricks (direct-mapped by brick index;
- * 0 = 64). Memory: cache_bricks·brv_brick_size(v)·4 bytes (16³ cells, 4 channels, 64 bricks:
- * 4 MiB). One thread at a time per sampler. */
+/* Random access with a cache of cache_bricks decoded bricks (0 = 64; at most brick_count).
+ * With room for every brick each has its slot; otherwise the cache is two-way set-associative
+ * (least recently used out) over a multiplicative hash of the brick index.
+ * Memory: cache_bricks·brv_brick_size(v)·4 bytes (16³ cells and 4 channels: 64 KiB a brick,
+ * so 64 bricks take 4 MiB and a whole 256³ volume 256 MiB). One thread at a time per sampler;
+ * make one per thread. Allocates with malloc. */
 BRV_API brv_result brv_sampler_create(const brv_volume *v, uint32_t cache_bricks, brv_sampler **out);
 /* Frees a sampler; accepts NULL. */
 BRV_API void brv_sampler_free(brv_sampler *s);
