@@ -295,7 +295,8 @@ brv_result brv_open_file(const char *path, const brv_allocator *alloc, brv_volum
     uint8_t *buf = NULL;
     long n = -1;
     if (fseek(f, 0, SEEK_END) == 0) n = ftell(f);
-    if (n >= 0 && fseek(f, 0, SEEK_SET) == 0) {
+    /* One byte first: a folder opens and seeks "fine" on some systems, but cannot be read. */
+    if (n >= 0 && fseek(f, 0, SEEK_SET) == 0 && (n == 0 || fgetc(f) != EOF) && fseek(f, 0, SEEK_SET) == 0) {
         buf = brv_alloc(alloc, (size_t)n);
         if (!buf) r = BRV_E_NOMEM;
         else if (n == 0 || fread(buf, 1, (size_t)n, f) == (size_t)n) r = BRV_OK;

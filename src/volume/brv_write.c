@@ -348,9 +348,15 @@ brv_result brv_writer_finish(brv_writer *w)
     uint32_t sd = w->kind == BRV_GRID_FRUSTUM ? w->cells[2] + 1 : 0;
     size_t tsize = BRV_TABLES_FIXED + 8 * (size_t)sd + BRV_CHANNEL_ENTRY * (size_t)w->channel_count +
                    BRV_BRICK_ENTRY * (size_t)w->brick_count + w->metadata_len;
-    uint8_t *t = brv_alloc(wr_allocator(w), tsize);
-    if (!t) return fail(w, BRV_E_NOMEM, "out of memory for the tables");
-    memset(t, 0, tsize);
+    /* The tables are written piece by piece with a running CRC, never held whole in memory. */
+    uint32_t tcrc = 0;
+    bool ok = true;
+#define PUT(p, n)                                       \
+    do {                                                \
+        tcrc = brv_crc32(tcrc, (p), (n));               \
+        ok = ok && write_at_end(w, (p), (n));           \
+    } while (0)
+    uint8_t t[BRV_TABLES_FIXED] = {0};
     for (int a = 0; a < 3; a++) {
         brv_wrf64(t + 8 * a, w->bounds_min[a]);
         brv_wrf64(t + 24 + 8 * a, w->bounds_max[a]);
@@ -364,22 +370,31 @@ brv_result brv_writer_finish(brv_writer *w)
     }
     brv_wr32(t + 152, sd);
     brv_wr32(t + 156, (uint32_t)w->metadata_len);
-    uint8_t *p = t + BRV_TABLES_FIXED;
-    for (uint32_t k = 0; k < sd; k++, p += 8) brv_wrf64(p, w->slice_depths[k]);
-    for (uint32_t c = 0; c < w->channel_count; c++, p += BRV_CHANNEL_ENTRY) {
-        memcpy(p, w->names[c], 32);
-        memcpy(p + 32, w->units[c], 16);
-        p[48] = (uint8_t)w->enc[c];
-        p[49] = (uint8_t)(int8_t)w->exp_max[c];
-        brv_wrf32(p + 52, w->ch_min[c]);
-        brv_wrf32(p + 56, w->ch_max[c]);
+    PUT(t, sizeof t);
+    for (uint32_t k = 0; k < sd; k++) {
+        uint8_t e[8];
+        brv_wrf64(e, w->slice_depths[k]);
+        PUT(e, 8);
     }
-    for (uint32_t b = 0; b < w->brick_count; b++, p += BRV_BRICK_ENTRY) {
-        brv_wr64(p, w->off[b]);
-        brv_wr32(p + 8, w->csize[b]);
-        brv_wr32(p + 12, w->crc[b]);
+    for (uint32_t c = 0; c < w->channel_count; c++) {
+        uint8_t e[BRV_CHANNEL_ENTRY] = {0};
+        memcpy(e, w->names[c], 32);
+        memcpy(e + 32, w->units[c], 16);
+        e[48] = (uint8_t)w->enc[c];
+        e[49] = (uint8_t)(int8_t)w->exp_max[c];
+        brv_wrf32(e + 52, w->ch_min[c]);
+        brv_wrf32(e + 56, w->ch_max[c]);
+        PUT(e, sizeof e);
     }
-    if (w->metadata_len) memcpy(p, w->metadata, w->metadata_len);
+    for (uint32_t b = 0; b < w->brick_count; b++) {
+        uint8_t e[BRV_BRICK_ENTRY];
+        brv_wr64(e, w->off[b]);
+        brv_wr32(e + 8, w->csize[b]);
+        brv_wr32(e + 12, w->crc[b]);
+        PUT(e, sizeof e);
+    }
+    if (w->metadata_len) PUT(w->metadata, w->metadata_len);
+#undef PUT
 
     uint8_t h[BRV_HEADER_SIZE] = {0};
     memcpy(h, BRV_MAGIC, 8);
@@ -392,13 +407,11 @@ brv_result brv_writer_finish(brv_writer *w)
     for (int a = 0; a < 3; a++) brv_wr32(h + 20 + 4 * a, w->cells[a]);
     brv_wr64(h + 32, w->pos);
     brv_wr64(h + 40, tsize);
-    brv_wr32(h + 48, brv_crc32(0, t, tsize));
+    brv_wr32(h + 48, tcrc);
     brv_wr16(h + 52, BRV_CHANNEL_ENTRY);
     brv_wr16(h + 54, BRV_BRICK_ENTRY);
     brv_wr32(h + 60, brv_crc32(0, h, BRV_HEADER_SIZE - 4));
 
-    bool ok = write_at_end(w, t, tsize);
-    brv_dealloc(wr_allocator(w), t);
     ok = ok && fseek(w->f, w->base, SEEK_SET) == 0 && fwrite(h, 1, sizeof h, w->f) == sizeof h &&
          fseek(w->f, 0, SEEK_END) == 0 && fflush(w->f) == 0 && !ferror(w->f);
     if (!ok) {

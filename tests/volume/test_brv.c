@@ -416,6 +416,33 @@ static float *decode_small(const uint8_t *buf, size_t size)
     return all;
 }
 
+static size_t writer_peak(uint32_t n, counting *cnt)
+{
+    brv_channel_desc ch[2] = {{"a", "", BRV_ENCODING_F16}, {"b", "", BRV_ENCODING_F32}};
+    brv_write_desc d = fixture_world(n, n, n, ch, 2);
+    brv_allocator a = {count_alloc, count_free, cnt};
+    d.alloc = &a;
+    size_t size;
+    uint8_t *buf = write_or_fail(&d, fixture_smooth, NULL, &size);
+    free(buf);
+    return cnt->peak;
+}
+
+/* Streaming: the writer's memory is one brick's buffers plus 17 bytes of table per brick,
+ * whatever the volume's size (the bytes go to the FILE as each brick is put). */
+static void writer_memory_should_not_grow_with_the_volume(void **state)
+{
+    (void)state;
+    counting small = {0}, big = {0};
+    size_t p32 = writer_peak(32, &small), p128 = writer_peak(128, &big);
+    size_t table_growth = (size_t)(512 - 8) * 17; /* 512 against 8 bricks */
+    print_message("writer peak: %zu bytes for 32^3, %zu bytes for 128^3 (raw 128^3 f32: %u bytes)\n", p32, p128,
+                  128u * 128 * 128 * 4 * 2);
+    assert_true(p128 <= p32 + table_growth + 64);
+    assert_int_equal(small.live, 0);
+    assert_int_equal(big.live, 0);
+}
+
 static void open_should_reject_every_truncation(void **state)
 {
     (void)state;
@@ -847,6 +874,7 @@ int main(int argc, char **argv)
         cmocka_unit_test(writer_should_insist_on_every_brick_once),
         cmocka_unit_test(uniform_bricks_should_cost_bytes_not_kilobytes),
         cmocka_unit_test(smooth_f16_should_compress_over_4x_against_raw_halves),
+        cmocka_unit_test(writer_memory_should_not_grow_with_the_volume),
         cmocka_unit_test(writer_should_give_the_same_bytes_for_the_same_input),
         cmocka_unit_test(open_should_reject_every_truncation),
         cmocka_unit_test(open_should_reject_random_byte_flips),
