@@ -85,7 +85,7 @@
  * per stored channel, in channel order. A group is one f32 or f16 channel, or an rgb9e5
  * triplet: three consecutive channels with encoding 3 (red, green, blue), which the channel
  * table must hold in runs of a multiple of three. Each group is
- *     u8 mode · i8 scale_exp · u8 word_bytes · u8 reserved (0)    then
+ *     u8 mode · i8 scale_exp (0..127; 0 for f32) · u8 word_bytes (1..8) · u8 reserved (0), then
  *     mode 1 (constant): one word — every cell holds it (empty air costs a few bytes)
  *     mode 0 (filtered): nx·ny·nz words, transformed losslessly for zstd: first each word
  *            (an unsigned integer of word_bytes bytes) is replaced by its difference, modulo
