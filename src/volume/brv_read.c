@@ -430,7 +430,7 @@ static void decode_f16(const uint8_t *restrict src, size_t n, uint32_t nx, float
                 __m128i l = _mm_loadl_epi64((const __m128i *)(const void *)(lo + row + x));
                 __m128i h = _mm_loadl_epi64((const __m128i *)(const void *)(hi + row + x));
                 __m128i v = prefix8(_mm_unpacklo_epi8(l, h), carry);
-                carry = _mm_set1_epi16((short)_mm_extract_epi16(v, 7));
+                carry = _mm_shuffle_epi32(_mm_shufflehi_epi16(v, 0xFF), 0xFF); /* lane 7 everywhere */
                 __m128 f0 = half4(_mm_unpacklo_epi16(v, zero)), f1 = half4(_mm_unpackhi_epi16(v, zero));
                 __m128 s4 = _mm_set1_ps(sc);
                 _mm_storeu_ps(out + row + x, _mm_mul_ps(f0, s4));
@@ -450,10 +450,50 @@ static void decode_f16(const uint8_t *restrict src, size_t n, uint32_t nx, float
     for (i = 0; i < n; i++) out[i] = brv_f16_to_f32(w[i]) * sc;
 }
 
+#if defined(__SSE2__)
+/* 4 words from 4 byte planes at index i, little-endian. */
+static inline __m128i words4(const uint8_t *b0, const uint8_t *b1, const uint8_t *b2, const uint8_t *b3, size_t i)
+{
+    int32_t x0, x1, x2, x3;
+    memcpy(&x0, b0 + i, 4);
+    memcpy(&x1, b1 + i, 4);
+    memcpy(&x2, b2 + i, 4);
+    memcpy(&x3, b3 + i, 4);
+    __m128i lo = _mm_unpacklo_epi8(_mm_cvtsi32_si128(x0), _mm_cvtsi32_si128(x1));
+    __m128i hi = _mm_unpacklo_epi8(_mm_cvtsi32_si128(x2), _mm_cvtsi32_si128(x3));
+    return _mm_unpacklo_epi16(lo, hi);
+}
+#endif
+
 static void decode_w32(const uint8_t *restrict src, size_t n, uint32_t nx, float sc, uint32_t code,
                        uint32_t *restrict w, float *restrict out)
 {
     const uint8_t *b0 = src, *b1 = src + n, *b2 = src + 2 * n, *b3 = src + 3 * n;
+#if defined(__SSE2__)
+    if (nx % 4 == 0) {
+        const __m128 s4 = _mm_set1_ps(sc);
+        const __m128i m9 = _mm_set1_epi32(0x1FF), bias = _mm_set1_epi32(103);
+        for (size_t row = 0; row < n; row += nx) {
+            __m128i carry = _mm_setzero_si128();
+            for (size_t i = row; i < row + nx; i += 4) {
+                __m128i v = words4(b0, b1, b2, b3, i);
+                v = _mm_add_epi32(v, _mm_slli_si128(v, 4));
+                v = _mm_add_epi32(v, _mm_slli_si128(v, 8));
+                v = _mm_add_epi32(v, carry);
+                carry = _mm_shuffle_epi32(v, 0xFF);
+                if (code == BRV_ENCODING_F32) {
+                    _mm_storeu_ps(out + i, _mm_castsi128_ps(v));
+                } else {
+                    __m128 q = _mm_mul_ps(_mm_castsi128_ps(_mm_slli_epi32(_mm_add_epi32(_mm_srli_epi32(v, 27), bias), 23)), s4);
+                    _mm_storeu_ps(out + i, _mm_mul_ps(_mm_cvtepi32_ps(_mm_and_si128(v, m9)), q));
+                    _mm_storeu_ps(out + n + i, _mm_mul_ps(_mm_cvtepi32_ps(_mm_and_si128(_mm_srli_epi32(v, 9), m9)), q));
+                    _mm_storeu_ps(out + 2 * n + i, _mm_mul_ps(_mm_cvtepi32_ps(_mm_and_si128(_mm_srli_epi32(v, 18), m9)), q));
+                }
+            }
+        }
+        return;
+    }
+#endif
     for (size_t row = 0; row < n; row += nx) {
         uint32_t prev = 0;
         if (code == BRV_ENCODING_F32) { /* the words are the float bits: straight to out */
