@@ -5,6 +5,8 @@
  * first. The formulas are those of SPEC.md ("Media"). */
 #include "scene/media.h"
 
+#include "base/threads.h"
+
 #include <assert.h>
 #include <math.h>
 #include <stdlib.h>
@@ -257,4 +259,127 @@ double brm_media_extinction_from_visibility(double visibility_m)
     /* Meteorological optical range: the path that leaves 5 % of a collimated beam (CIE
      * e-ILV 17-31-018; WMO), so exp(−sigma_t·V) = 0.05 and sigma_t = ln(20)/V. */
     return log(20.0) / visibility_m;
+}
+
+/* ---- the tabulated noise factor ------------------------------------------------------------ */
+
+double brm_media_density_sum(const brm_scene *s, brm_vec3 p)
+{
+    assert(s->media_ready);
+    if (!brm_aabb_contains(s->fog_bounds, p)) return 0.0;
+    const brm_noise_table *t = s->noise;
+    double sum = 0.0;
+    for (uint32_t k = 0; k < t->density_count; k++) sum += density(&s->media[t->density_idx[k]], p);
+    return sum;
+}
+
+static double noise_grid_spacing(const brm_scene *s, uint32_t n[3])
+{
+    const brm_noise_table *t = s->noise;
+    double lambda = HUGE_VAL;
+    for (uint32_t k = 0; k < t->noise_count; k++) {
+        const brm_medium *m = &s->media[t->noise_idx[k]];
+        uint32_t oct = m->octaves ? m->octaves : 1;
+        if (oct > 30) oct = 30;
+        double l = m->scale_m / (double)(1u << (oct - 1));
+        if (l < lambda) lambda = l;
+    }
+    brm_vec3 ext = brm_sub(s->fog_bounds.max, s->fog_bounds.min);
+    /* A third of the finest wavelength: gradient noise has one lattice cell per wavelength
+     * and trilinear interpolation of it at h = λ/3 stays within a few percent of the finest
+     * octave, whose weight in the fBm is small; optical depths average it further. */
+    double h = lambda / 3.0;
+    for (;;) {
+        uint64_t total = 1;
+        for (int a = 0; a < 3; a++) {
+            double e = brm_vget(ext, a);
+            uint64_t k = (uint64_t)ceil(e / h - 1e-9) + 1;
+            if (k < 2) k = 2;
+            n[a] = (uint32_t)(k > 0xffffffu ? 0xffffffu : k);
+            total *= n[a];
+        }
+        if (total <= BRM_NOISE_GRID_MAX_NODES) break;
+        h *= 1.25;
+    }
+    return h;
+}
+
+size_t brm_noise_grid_memory(const brm_scene *s)
+{
+    if (!s->media_ready || s->noise->noise_count == 0) return 0;
+    uint32_t n[3];
+    noise_grid_spacing(s, n);
+    return (size_t)n[0] * n[1] * n[2] * sizeof(float);
+}
+
+typedef struct grid_job {
+    const brm_scene *s;
+    brm_noise_grid *g;
+    brm_vec3 step;
+} grid_job;
+
+static void grid_slice(void *ctx, uint32_t k, int worker)
+{
+    (void)worker;
+    grid_job *j = ctx;
+    brm_noise_grid *g = j->g;
+    for (uint32_t y = 0; y < g->n[1]; y++)
+        for (uint32_t x = 0; x < g->n[0]; x++) {
+            brm_vec3 p = brm_add(g->lo, brm_mul(j->step, brm_v3(x, y, k)));
+            g->f[x + (size_t)g->n[0] * (y + (size_t)g->n[1] * k)] = (float)noise_factor(j->s, p);
+        }
+}
+
+brm_status brm_noise_grid_build(const brm_scene *s, int threads, brm_noise_grid *g, brm_diag *d)
+{
+    memset(g, 0, sizeof *g);
+    assert(s->media_ready);
+    if (s->noise->noise_count == 0) return BRM_OK;
+    noise_grid_spacing(s, g->n);
+    brm_vec3 ext = brm_sub(s->fog_bounds.max, s->fog_bounds.min);
+    brm_vec3 step = brm_v3(ext.x / (g->n[0] - 1), ext.y / (g->n[1] - 1), ext.z / (g->n[2] - 1));
+    g->lo = s->fog_bounds.min;
+    g->inv_step = brm_v3(step.x > 0 ? 1.0 / step.x : 0.0, step.y > 0 ? 1.0 / step.y : 0.0, step.z > 0 ? 1.0 / step.z : 0.0);
+    size_t nodes = (size_t)g->n[0] * g->n[1] * g->n[2];
+    g->f = malloc(nodes * sizeof *g->f);
+    if (!g->f) {
+        memset(g, 0, sizeof *g);
+        return brm_diag_error(d, BRM_E_NOMEM, "media: out of memory for the noise table (%zu nodes)", nodes);
+    }
+    grid_job j = {s, g, step};
+    brm_parallel_for(g->n[2], threads, grid_slice, &j, NULL);
+    return BRM_OK;
+}
+
+void brm_noise_grid_free(brm_noise_grid *g)
+{
+    free(g->f);
+    memset(g, 0, sizeof *g);
+}
+
+double brm_media_extinction_tabulated(const brm_scene *s, const brm_noise_grid *g, brm_vec3 p)
+{
+    if (!g || !g->f) return brm_media_extinction(s, p);
+    double sum = brm_media_density_sum(s, p);
+    if (sum <= 0.0) return 0.0;
+    double c[3];
+    uint32_t i0[3];
+    for (int a = 0; a < 3; a++) {
+        double x = (brm_vget(p, a) - brm_vget(g->lo, a)) * brm_vget(g->inv_step, a);
+        double hi = (double)(g->n[a] - 1);
+        if (x < 0) x = 0;
+        if (x > hi) x = hi;
+        uint32_t i = (uint32_t)x;
+        if (i >= g->n[a] - 1) i = g->n[a] - 2;
+        i0[a] = i;
+        c[a] = x - i;
+    }
+    const size_t sx = 1, sy = g->n[0], sz = (size_t)g->n[0] * g->n[1];
+    const float *b = g->f + i0[0] + sy * i0[1] + sz * i0[2];
+    double x00 = b[0] + c[0] * (b[sx] - b[0]);
+    double x10 = b[sy] + c[0] * (b[sy + sx] - b[sy]);
+    double x01 = b[sz] + c[0] * (b[sz + sx] - b[sz]);
+    double x11 = b[sz + sy] + c[0] * (b[sz + sy + sx] - b[sz + sy]);
+    double y0 = x00 + c[1] * (x10 - x00), y1 = x01 + c[1] * (x11 - x01);
+    return sum * (y0 + c[2] * (y1 - y0));
 }

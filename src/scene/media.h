@@ -48,4 +48,27 @@ brm_vec3 brm_media_scatter_phase(const brm_scene *s, const brm_media_point *mp, 
 /* Whether any medium can have fog inside box b (conservative: false means none anywhere). */
 bool brm_media_any_in(const brm_scene *s, brm_aabb b);
 
+
+/* Sum of the media other than noise at p (what the noise factor multiplies); 0 outside the
+ * fog bounds. Cheap: no noise is evaluated. */
+double brm_media_density_sum(const brm_scene *s, brm_vec3 p);
+
+/* The noise factor tabulated on a lattice over the fog bounds, for the fast path's optical-depth
+ * integrals (thousands of evaluations per path family): spacing a third of the finest
+ * octave's wavelength, interpolated trilinearly, at most BRM_NOISE_GRID_MAX_NODES nodes. The
+ * other media stay analytic, so hard box edges stay hard. The exact reference never uses it. */
+#define BRM_NOISE_GRID_MAX_NODES (1u << 23)
+typedef struct brm_noise_grid {
+    uint32_t n[3];              /* nodes per axis; 0 = no grid (no noise medium) */
+    brm_vec3 lo, inv_step;
+    float *f;                   /* noise factor per node, x fastest */
+} brm_noise_grid;
+
+brm_status brm_noise_grid_build(const brm_scene *s, int threads, brm_noise_grid *g, brm_diag *d);
+size_t brm_noise_grid_memory(const brm_scene *s);
+void brm_noise_grid_free(brm_noise_grid *g);
+/* Extinction at p with the noise factor from the grid (exactly brm_media_extinction when the
+ * scene has no noise). */
+double brm_media_extinction_tabulated(const brm_scene *s, const brm_noise_grid *g, brm_vec3 p);
+
 #endif

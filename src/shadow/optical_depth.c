@@ -57,31 +57,38 @@ void brm_media_info_init(const brm_scene *s, media_info *mi)
     }
 }
 
+/* Extinction at q: exact, or with the noise factor from the fast path's table. */
+static inline double sigma_at(const brm_scene *s, const media_info *mi, brm_vec3 q)
+{
+    return mi->noise_grid ? brm_media_extinction_tabulated(s, mi->noise_grid, q) : brm_media_extinction(s, q);
+}
+
 /* sigma~: extinction at q clamped into the fog bounds (continued outside them). */
-static inline double sigma_cont(const brm_scene *s, brm_vec3 q)
+static inline double sigma_cont(const brm_scene *s, const media_info *mi, brm_vec3 q)
 {
     brm_aabb b = s->fog_bounds;
-    return brm_media_extinction(s, brm_vmin(brm_vmax(q, b.min), b.max));
+    return sigma_at(s, mi, brm_vmin(brm_vmax(q, b.min), b.max));
 }
 
 /* Composite Simpson over [a, b] with panels no longer than h (at least one); cont: integrate
  * sigma~ instead of sigma_t. */
-static double simpson(const brm_scene *s, brm_vec3 p, brm_vec3 d, double a, double b, double h, bool cont)
+static double simpson(const brm_scene *s, const media_info *mi, brm_vec3 p, brm_vec3 d, double a, double b, double h,
+                      bool cont)
 {
     double len = b - a;
     if (!(len > 0.0)) return 0.0;
     double np = ceil(len / h);
     uint32_t n = np < 1.0 ? 1u : np > 1e7 ? 10000000u : (uint32_t)np;
     double w = len / (double)n;
-    double (*sig)(const brm_scene *, brm_vec3) = cont ? sigma_cont : brm_media_extinction;
+    double (*sig)(const brm_scene *, const media_info *, brm_vec3) = cont ? sigma_cont : sigma_at;
     /* The ends are where the path crosses the fog bounds or a box face: sample a hair inside,
      * or rounding may put the sample on the wrong side of a jump in sigma_t. */
     double in = 1e-9 * len;
-    double sum = sig(s, brm_madd(p, d, a + in)) + sig(s, brm_madd(p, d, b - in));
+    double sum = sig(s, mi, brm_madd(p, d, a + in)) + sig(s, mi, brm_madd(p, d, b - in));
     for (uint32_t k = 0; k < n; k++) {
         double t0 = a + w * (double)k;
-        sum += 4.0 * sig(s, brm_madd(p, d, t0 + 0.5 * w));
-        if (k + 1 < n) sum += 2.0 * sig(s, brm_madd(p, d, t0 + w));
+        sum += 4.0 * sig(s, mi, brm_madd(p, d, t0 + 0.5 * w));
+        if (k + 1 < n) sum += 2.0 * sig(s, mi, brm_madd(p, d, t0 + w));
     }
     return sum * w / 6.0;
 }
@@ -127,7 +134,7 @@ static double integrate_pieces(const brm_scene *s, const media_info *mi, brm_vec
     uint32_t nc = 1 + line_cuts(s, mi, p, d, a, b, cont, cut + 1);
     cut[nc++] = b;
     double tau = 0.0;
-    for (uint32_t k = 0; k + 1 < nc; k++) tau += simpson(s, p, d, cut[k], cut[k + 1], h, cont);
+    for (uint32_t k = 0; k + 1 < nc; k++) tau += simpson(s, mi, p, d, cut[k], cut[k + 1], h, cont);
     return tau;
 }
 
@@ -311,15 +318,15 @@ static void fill_column(const brm_scene *s, const media_info *mi, const shadow_v
     double cut[MAX_CUTS];
     double tend = v->og_lo[2] + v->og_step[2] * (double)(nk - 1);
     uint32_t nc = line_cuts(s, mi, o, d, t, tend, true, cut), ci = 0;
-    double g = 0.0, sig = sigma_cont(s, brm_madd(o, d, t));
+    double g = 0.0, sig = sigma_cont(s, mi, brm_madd(o, d, t));
     for (uint32_t k = 0; k < nk; k++) {
         if (k > 0) {
             double t1 = v->og_lo[2] + v->og_step[2] * (double)k;
             bool clean = !(ci < nc && cut[ci] < t1) && t1 - t <= h;
             while (ci < nc && cut[ci] < t1) ci++;
-            double s1 = sigma_cont(s, brm_madd(o, d, t1));
+            double s1 = sigma_cont(s, mi, brm_madd(o, d, t1));
             if (clean && !mi->only_uniform)
-                g += (t1 - t) / 6.0 * (sig + 4.0 * sigma_cont(s, brm_madd(o, d, 0.5 * (t + t1))) + s1);
+                g += (t1 - t) / 6.0 * (sig + 4.0 * sigma_cont(s, mi, brm_madd(o, d, 0.5 * (t + t1))) + s1);
             else
                 g += continued_segment(s, mi, o, d, t, t1, h);
             t = t1;

@@ -56,6 +56,8 @@ size_t brm_shadows_memory(const brm_scene *s, const brm_shadow_opts *o)
         free(ls);
     }
     if (needs_bvh(s, o) && !o->bvh) bytes += brm_bvh_memory(s);
+    bytes += brm_sky_cache_memory(s, o);
+    if (!o->reference) bytes += brm_noise_grid_memory(s);
     return bytes;
 }
 
@@ -135,6 +137,13 @@ brm_status brm_shadows_build(const brm_scene *s, const brm_shadow_opts *o, brm_s
     ss->light_count = s->light_count;
     brm_status st = BRM_OK;
     build_item *items = NULL;
+    if (!o->reference && ss->media.any) {
+        /* The optical-depth grids integrate thousands of paths: they read the noise factor
+         * from a table; the reference (and brm_shadow_transmittance_march) evaluate it. */
+        st = brm_noise_grid_build(s, o->threads > 0 ? o->threads : 1, &ss->noise_grid, d);
+        if (st != BRM_OK) goto fail;
+        if (ss->noise_grid.f) ss->media.noise_grid = &ss->noise_grid;
+    }
     if (s->light_count) {
         ss->lights = calloc(s->light_count, sizeof *ss->lights);
         if (!ss->lights) {
@@ -255,6 +264,13 @@ brm_status brm_shadows_build(const brm_scene *s, const brm_shadow_opts *o, brm_s
         ss->bvh = ss->own_bvh;
         ss->bytes += brm_bvh_memory(s);
     }
+    /* The reference uses the same sky cache: it exists to check the light maps and the
+     * optical-depth grids, and the cache is checked against traced rays on its own. */
+    if (ss->sky_trace) {
+        st = brm_sky_cache_build(ss, threads, d);
+        if (st != BRM_OK) goto fail;
+        ss->bytes += brm_sky_cache_memory(s, o);
+    }
     ss->build_seconds = brm_now() - t_start;
     *out = ss;
     return BRM_OK;
@@ -281,6 +297,8 @@ void brm_shadows_free(brm_shadow_set *ss)
             free(ss->lights[l].views[k].blk_bad);
         }
     free(ss->lights);
+    brm_sky_cache_free(&ss->sky_grid);
+    brm_noise_grid_free(&ss->noise_grid);
     brm_bvh_free(ss->own_bvh);
     free(ss);
 }
@@ -292,6 +310,8 @@ void brm_shadows_set_sky_rays(brm_shadow_set *ss, uint32_t rays)
     ss->sky_rays = rays < 1 ? 1 : rays > 4096 ? 4096 : rays;
 }
 size_t brm_shadows_bytes(const brm_shadow_set *ss) { return ss->bytes; }
+
+void brm_shadows_drop_sky_cache(brm_shadow_set *ss) { brm_sky_cache_free(&ss->sky_grid); }
 
 /* Unit direction from p toward light l and the distance to it (HUGE_VAL for directional). */
 static brm_vec3 toward(const brm_light *l, brm_vec3 p, double *dist)
@@ -305,16 +325,47 @@ static brm_vec3 toward(const brm_light *l, brm_vec3 p, double *dist)
     return *dist > 0.0 ? brm_scale(t, 1.0 / *dist) : brm_v3(0, 1, 0);
 }
 
+/* Rays over the reference's filter footprint: the points of the Fibonacci lattice with
+ * F_11 = 89 points and generator F_10 = 55 (Niederreiter 1992; Sloan & Joe 1994), which has no
+ * rows for a straight shadow edge to line up with (a 5×5 grid gave steps of 0.2 there). */
+#define REF_FILTER_N 89
+#define REF_FILTER_G 55
+
+static double reference_visibility(const brm_shadow_set *ss, uint32_t l, brm_vec3 p)
+{
+    const brm_light *light = &ss->scene->lights[l];
+    const light_shadow *ls = &ss->lights[l];
+    double dist;
+    brm_vec3 dir = toward(light, p, &dist);
+    if (ls->view_count == 0 || ls->softness <= 0.0) {
+        double tmax = isfinite(dist) ? dist - ss->eps : HUGE_VAL;
+        return brm_bvh_occluded(ss->bvh, p, dir, ss->eps, tmax) ? 0.0 : 1.0;
+    }
+    const shadow_view *v = brm_shadow_pick_view(ls, p);
+    double half = ls->softness * v->texel, scale = 1.0;
+    if (v->kind == BRM_VIEW_PERSP) {
+        scale = brm_dot(brm_sub(p, v->origin), v->f); /* tan units to metres at p's depth */
+        if (scale <= 0.0) scale = 0.0;
+    }
+    int lit = 0;
+    for (int i = 0; i < REF_FILTER_N; i++) {
+            double fx = (i + 0.5) / REF_FILTER_N, fy = ((double)((i * REF_FILTER_G) % REF_FILTER_N) + 0.5) / REF_FILTER_N;
+            double a = half * (2.0 * fx - 1.0) * scale;
+            double b = half * (2.0 * fy - 1.0) * scale;
+            brm_vec3 q = brm_add(p, brm_add(brm_scale(v->u, a), brm_scale(v->v, b)));
+            double qd;
+            brm_vec3 qdir = toward(light, q, &qd);
+            double tmax = isfinite(qd) ? qd - ss->eps : HUGE_VAL;
+            if (!brm_bvh_occluded(ss->bvh, q, qdir, ss->eps, tmax)) lit++;
+        }
+    return (double)lit / REF_FILTER_N;
+}
+
 double brm_shadow_visibility(const brm_shadow_set *ss, uint32_t l, brm_vec3 p)
 {
     const brm_light *light = &ss->scene->lights[l];
     if (!light->shadow || ss->scene->object_count == 0) return 1.0;
-    if (ss->opts.reference) {
-        double dist;
-        brm_vec3 dir = toward(light, p, &dist);
-        double tmax = isfinite(dist) ? dist - ss->eps : HUGE_VAL;
-        return brm_bvh_occluded(ss->bvh, p, dir, ss->eps, tmax) ? 0.0 : 1.0;
-    }
+    if (ss->opts.reference) return reference_visibility(ss, l, p);
     const light_shadow *ls = &ss->lights[l];
     if (!ls->has_map) return 1.0;
     return brm_shadowmap_pcf(brm_shadow_pick_view(ls, p), p, ls->softness);
@@ -326,7 +377,9 @@ double brm_shadow_transmittance_march(const brm_shadow_set *ss, uint32_t l, brm_
     if (!ss->media.any) return 1.0;
     double dist;
     brm_vec3 dir = toward(&ss->scene->lights[l], p, &dist);
-    return exp(-brm_optical_depth_segment(ss->scene, &ss->media, p, dir, 0.0, dist, ss->ref_step));
+    media_info exact = ss->media;
+    exact.noise_grid = NULL;
+    return exp(-brm_optical_depth_segment(ss->scene, &exact, p, dir, 0.0, dist, ss->ref_step));
 }
 
 double brm_shadow_transmittance(const brm_shadow_set *ss, uint32_t l, brm_vec3 p)

@@ -73,4 +73,8 @@ void brm_sky_incident(const brm_shadow_set *ss, brm_vec3 p, uint32_t sample_inde
  * right after the build, before the set is shared between threads. */
 void brm_shadows_set_sky_rays(brm_shadow_set *ss, uint32_t rays);
 
+
+/* Drops the sky cache so brm_sky_incident traces its rays per call (tests of the estimator). */
+void brm_shadows_drop_sky_cache(brm_shadow_set *ss);
+
 #endif

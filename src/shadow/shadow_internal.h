@@ -6,6 +6,7 @@
 
 #include <stddef.h>
 
+#include "scene/media.h"
 #include "shadow/shadow.h"
 
 /* Automatic shadow-map resolution never exceeds this many texels per side (per cube face): a
@@ -18,7 +19,7 @@
  * filter (1.5 texels each side by default): eight texels per cell keep the demo scene's fast
  * bake close to its BVH reference (common practice, no source; measured there). Maps are
  * cheap next to everything else. */
-#define BRM_SHADOW_TEXELS_PER_CELL 8.0
+#define BRM_SHADOW_TEXELS_PER_CELL 24.0
 #define BRM_SHADOW_MIN_RES 16u
 #define BRM_SHADOW_MAX_RES 16384u
 /* Nodes per optical-depth grid (per view: a point light's six faces get it each): 2 floats
@@ -35,7 +36,7 @@
 #define BRM_SPOT_CUBE_DEG 60.0
 /* Sky rays per brm_sky_incident call: fast path and reference. */
 #define BRM_SKY_RAYS 8u
-#define BRM_SKY_RAYS_REFERENCE 32u
+#define BRM_SKY_RAYS_REFERENCE 256u
 
 typedef enum shadow_view_kind {
     BRM_VIEW_ORTHO = 0,     /* directional: x = u·p, y = v·p, depth = f·p */
@@ -112,7 +113,23 @@ typedef struct media_info {
     brm_aabb boxes[2 * BRM_MAX_MEDIA];
     uint32_t plane_count;       /* and horizontal planes (height fog's base) */
     double plane_y[BRM_MAX_MEDIA];
+    const brm_noise_grid *noise_grid; /* fast path: the tabulated noise factor; NULL = exact */
 } media_info;
+
+/* The sky: visible-sky SH (bands 0–1, 3 colours) on a lattice over the target, each
+ * node traced with BRM_SKY_CACHE_RAYS rays, interpolated trilinearly between the nodes that lie
+ * in free space (nodes inside solids are left out and the weights renormalised). */
+#define BRM_SKY_CACHE_RAYS 128u
+#define BRM_SKY_CACHE_MAX_PER_AXIS 96u
+/* Openings in buildings are a metre or two across: half a metre between nodes resolves them
+ * (common practice, no source). */
+#define BRM_SKY_CACHE_SPACING_M 0.5
+typedef struct sky_cache {
+    uint32_t n[3];              /* nodes per axis; 0 = no cache */
+    brm_vec3 lo, step;          /* node (i, j, k) at lo + (i, j, k)·step */
+    float *sh;                  /* 12 per node: colour-major, 4 coefficients each */
+    uint8_t *ok;                /* 1 where the node is in free space */
+} sky_cache;
 
 struct brm_shadow_set {
     const brm_scene *scene;
@@ -128,6 +145,8 @@ struct brm_shadow_set {
     bool sky_present, sky_trace;
     uint32_t sky_rays;
     double sky_proj[3][4];      /* unoccluded sky, bands 0–1 */
+    sky_cache sky_grid;
+    brm_noise_grid noise_grid;  /* fast path only (media.noise_grid points here) */         /* both paths: the reference checks lights, not the sky */
     size_t bytes;
     double build_seconds;
 };
@@ -166,5 +185,10 @@ double brm_shadowmap_pcf(const shadow_view *v, brm_vec3 p, double r);
 /* ---- sky (sky.c) ---- */
 /* Bands 0–1 of the unoccluded sky of SPEC.md, in closed form. */
 void brm_sky_projection(const brm_sky *sky, double out[3][4]);
+/* Builds ss->sky_grid over ss->opts.bounds (fast path; needs ss->bvh and the sky fields set). */
+brm_status brm_sky_cache_build(brm_shadow_set *ss, int threads, brm_diag *d);
+/* Bytes the cache takes for these options. */
+size_t brm_sky_cache_memory(const brm_scene *s, const brm_shadow_opts *o);
+void brm_sky_cache_free(sky_cache *c);
 
 #endif

@@ -5,10 +5,12 @@
  * projection, so an open point costs nothing in noise and a point with every ray blocked
  * (inside a closed room) gets exactly zero. */
 #include <math.h>
+#include <stdlib.h>
 #include <string.h>
 
 #include "base/lds.h"
 #include "base/sh.h"
+#include "base/threads.h"
 #include "shadow/shadow_internal.h"
 
 /* SPEC.md: L(ω) = H + (Z − H)·max(y, 0) + (G − H)·max(−y, 0). With a = Z − H, b = G − H and the
@@ -44,22 +46,41 @@ static brm_vec3 sky_dir(uint32_t k, uint32_t n, const double shift[2])
     return brm_v3(r * cos(phi), y, r * sin(phi));
 }
 
-void brm_sky_incident(const brm_shadow_set *ss, brm_vec3 p, uint32_t sample_index, double out[3][4])
+/* A non-negative radiance has |band 1| ≤ √3·band 0 (|∫L·C1·ω dω| ≤ C1·∫L dω = √3·C0·∫L dω):
+ * estimates outside that (a few rays over-subtracting) are pulled back onto it. */
+static void sky_constrain(double out[3][4])
 {
-    if (!ss->sky_present) {
-        memset(out, 0, sizeof(double) * 12);
-        return;
+    for (int c = 0; c < 3; c++) {
+        if (out[c][0] <= 0.0) {
+            out[c][0] = out[c][1] = out[c][2] = out[c][3] = 0.0;
+            continue;
+        }
+        double b1 = sqrt(out[c][1] * out[c][1] + out[c][2] * out[c][2] + out[c][3] * out[c][3]);
+        double lim = 1.7320508075688772 * out[c][0];
+        if (b1 > lim)
+            for (int m = 1; m < 4; m++) out[c][m] *= lim / b1;
     }
+}
+
+/* The traced estimate with n rays; returns the share of rays that hit a back face. */
+static double sky_trace(const brm_shadow_set *ss, brm_vec3 p, uint32_t sample_index, uint32_t n, bool count_back,
+                        double out[3][4])
+{
     memcpy(out, ss->sky_proj, sizeof(double) * 12);
-    if (!ss->sky_trace) return;
     const brm_sky *sky = &ss->scene->sky;
-    uint32_t n = ss->sky_rays, blocked = 0;
+    uint32_t blocked = 0, back = 0;
     double shift[2];
     brm_sample2(0x736b79ull /* "sky" */, sample_index, shift);
     double share = 4.0 * BRM_PI / (double)n;
     for (uint32_t k = 0; k < n; k++) {
         brm_vec3 d = sky_dir(k, n, shift);
-        if (!brm_bvh_occluded(ss->bvh, p, d, ss->eps, HUGE_VAL)) continue;
+        if (count_back) {
+            brm_hit h;
+            if (!brm_bvh_intersect(ss->bvh, p, d, ss->eps, HUGE_VAL, &h)) continue;
+            if (h.back_face) back++;
+        } else if (!brm_bvh_occluded(ss->bvh, p, d, ss->eps, HUGE_VAL)) {
+            continue;
+        }
         blocked++;
         brm_vec3 L = brm_sky_radiance(sky, d);
         double y[4];
@@ -69,4 +90,134 @@ void brm_sky_incident(const brm_shadow_set *ss, brm_vec3 p, uint32_t sample_inde
             for (int m = 0; m < 4; m++) out[c][m] -= share * Lc[c] * y[m];
     }
     if (blocked == n) memset(out, 0, sizeof(double) * 12);
+    sky_constrain(out);
+    return n ? (double)back / n : 0.0;
+}
+
+static bool cache_lookup(const sky_cache *c, brm_vec3 p, double out[3][4])
+{
+    double f[3];
+    int i0[3];
+    for (int a = 0; a < 3; a++) {
+        double x = (brm_vget(p, a) - brm_vget(c->lo, a)) / brm_vget(c->step, a);
+        double hi = (double)c->n[a] - 1.0;
+        if (x < -1e-9 || x > hi + 1e-9) return false;
+        if (x < 0) x = 0;
+        if (x > hi) x = hi;
+        int i = (int)floor(x);
+        if (i >= (int)c->n[a] - 1) i = (int)c->n[a] - 2;
+        if (i < 0) i = 0;
+        i0[a] = i;
+        f[a] = c->n[a] > 1 ? x - i : 0.0;
+    }
+    double acc[12] = {0}, wsum = 0.0;
+    for (int corner = 0; corner < 8; corner++) {
+        int di = corner & 1, dj = (corner >> 1) & 1, dk = (corner >> 2) & 1;
+        uint32_t ii = (uint32_t)(i0[0] + di), jj = (uint32_t)(i0[1] + dj), kk = (uint32_t)(i0[2] + dk);
+        if (ii >= c->n[0] || jj >= c->n[1] || kk >= c->n[2]) continue;
+        size_t node = ii + (size_t)c->n[0] * (jj + (size_t)c->n[1] * kk);
+        if (!c->ok[node]) continue;
+        double w = (di ? f[0] : 1 - f[0]) * (dj ? f[1] : 1 - f[1]) * (dk ? f[2] : 1 - f[2]);
+        if (w <= 0.0) continue;
+        const float *v = c->sh + node * 12;
+        for (int q = 0; q < 12; q++) acc[q] += w * v[q];
+        wsum += w;
+    }
+    if (wsum <= 1e-9) return false;
+    for (int q = 0; q < 12; q++) out[q / 4][q % 4] = acc[q] / wsum;
+    return true;
+}
+
+void brm_sky_incident(const brm_shadow_set *ss, brm_vec3 p, uint32_t sample_index, double out[3][4])
+{
+    if (!ss->sky_present) {
+        memset(out, 0, sizeof(double) * 12);
+        return;
+    }
+    if (!ss->sky_trace) {
+        memcpy(out, ss->sky_proj, sizeof(double) * 12);
+        return;
+    }
+    if (ss->sky_grid.n[0] && cache_lookup(&ss->sky_grid, p, out)) return;
+    sky_trace(ss, p, sample_index, ss->sky_rays, false, out);
+}
+
+/* ---- the fast path's cache ------------------------------------------------------------ */
+
+static void cache_dims(const brm_shadow_opts *o, uint32_t n[3], brm_vec3 *lo, brm_vec3 *step)
+{
+    brm_vec3 ext = brm_sub(o->bounds.max, o->bounds.min);
+    double largest = fmax(ext.x, fmax(ext.y, ext.z));
+    /* Sky occlusion changes over the size of openings (windows, doorways, skylights), not of
+     * cells: nodes two cells apart but at most BRM_SKY_CACHE_SPACING_M, and at most
+     * BRM_SKY_CACHE_MAX_PER_AXIS per axis. */
+    double h = fmin(2.0 * (o->cell_size > 0 ? o->cell_size : largest), BRM_SKY_CACHE_SPACING_M);
+    h = fmax(h, largest / (BRM_SKY_CACHE_MAX_PER_AXIS - 1));
+    if (!(h > 0) || !isfinite(h)) h = 1.0;
+    for (int a = 0; a < 3; a++) {
+        double e = brm_vget(ext, a);
+        uint32_t k = (uint32_t)ceil(e / h - 1e-9) + 1;
+        n[a] = k < 2 ? 2 : k;
+    }
+    *lo = o->bounds.min;
+    *step = brm_v3(ext.x / (n[0] - 1), ext.y / (n[1] - 1), ext.z / (n[2] - 1));
+    if (!(step->x > 0)) step->x = 1;
+    if (!(step->y > 0)) step->y = 1;
+    if (!(step->z > 0)) step->z = 1;
+}
+
+size_t brm_sky_cache_memory(const brm_scene *s, const brm_shadow_opts *o)
+{
+    if (!s->sky.present || s->object_count == 0) return 0;
+    uint32_t n[3];
+    brm_vec3 lo, st;
+    cache_dims(o, n, &lo, &st);
+    return (size_t)n[0] * n[1] * n[2] * (12 * sizeof(float) + 1);
+}
+
+typedef struct cache_job {
+    brm_shadow_set *ss;
+} cache_job;
+
+static void cache_slice(void *ctx, uint32_t k, int worker)
+{
+    (void)worker;
+    brm_shadow_set *ss = ((cache_job *)ctx)->ss;
+    sky_cache *c = &ss->sky_grid;
+    for (uint32_t j = 0; j < c->n[1]; j++)
+        for (uint32_t i = 0; i < c->n[0]; i++) {
+            size_t node = i + (size_t)c->n[0] * (j + (size_t)c->n[1] * k);
+            brm_vec3 p = brm_add(c->lo, brm_mul(c->step, brm_v3(i, j, k)));
+            double v[3][4];
+            /* A node that sees back faces in most directions is inside a solid. */
+            double back = sky_trace(ss, p, (uint32_t)node, BRM_SKY_CACHE_RAYS, true, v);
+            c->ok[node] = back < 0.5;
+            for (int q = 0; q < 12; q++) c->sh[node * 12 + (size_t)q] = (float)v[q / 4][q % 4];
+        }
+}
+
+brm_status brm_sky_cache_build(brm_shadow_set *ss, int threads, brm_diag *d)
+{
+    sky_cache *c = &ss->sky_grid;
+    cache_dims(&ss->opts, c->n, &c->lo, &c->step);
+    size_t nodes = (size_t)c->n[0] * c->n[1] * c->n[2];
+    c->sh = malloc(nodes * 12 * sizeof *c->sh);
+    c->ok = malloc(nodes);
+    if (!c->sh || !c->ok) {
+        brm_sky_cache_free(c);
+        return brm_diag_error(d, BRM_E_NOMEM, "shadows: out of memory for the sky cache");
+    }
+    cache_job j = {ss};
+    if (brm_parallel_for(c->n[2], threads, cache_slice, &j, &brm_interrupted) != c->n[2]) {
+        brm_sky_cache_free(c);
+        return brm_diag_error(d, BRM_E_INTERRUPTED, "shadows: interrupted while tracing the sky");
+    }
+    return BRM_OK;
+}
+
+void brm_sky_cache_free(sky_cache *c)
+{
+    free(c->sh);
+    free(c->ok);
+    memset(c, 0, sizeof *c);
 }

@@ -230,10 +230,10 @@ static void resolution_should_follow_cells_overrides_and_cap(void **state)
     sf_ready(s);
     brm_shadow_set *ss = sf_build(s, slab, 0.5, false, NULL, 1);
     const shadow_view *v = &ss->lights[0].views[0];
-    /* 20 m across at 0.5 m cells, eight texels per cell: 320 texels plus the filter margin of
-     * 2·(⌈1.5⌉ + 2). */
-    assert_int_equal(v->res, 320 + 8);
-    assert_near(v->texel, 0.0625, 0.0, 1e-12);
+    /* 20 m across at 0.5 m cells, BRM_SHADOW_TEXELS_PER_CELL texels per cell, plus the filter
+     * margin of 2·(⌈1.5⌉ + 2). */
+    assert_int_equal(v->res, (uint32_t)(40 * BRM_SHADOW_TEXELS_PER_CELL) + 8);
+    assert_near(v->texel, 0.5 / BRM_SHADOW_TEXELS_PER_CELL, 0.0, 1e-12);
     brm_shadows_free(ss);
     /* A 1 mm cell would ask for 160 000 texels: the automatic resolution stops at 4096. */
     ss = sf_build(s, slab, 0.001, false, NULL, 1);
@@ -317,12 +317,27 @@ static void reference_mode_should_trace_rays(void **state)
     sf_ready(s);
     brm_bvh *b = sf_bvh(s);
     brm_shadow_set *ss = sf_build(s, slab, 0.5, true, b, 1);
-    /* Exactly on and off the axis, right at the rim: rays know no filter band. */
-    assert_near(brm_shadow_visibility(ss, 0, brm_v3(1.99, 1, 0)), 0.0, 0.0, 0.0);
-    assert_near(brm_shadow_visibility(ss, 0, brm_v3(2.01, 1, 0)), 1.0, 0.0, 0.0);
+    /* The reference evaluates the filtered visibility the maps approximate, by rays: the lit
+     * fraction of the square of half-width softness·texel around p (in the light's plane). */
+    double w = ss->lights[0].softness * ss->lights[0].views[0].texel;
+    assert_true(w > 0.0);
+    const double xs[] = {2.0 - 2 * w, 2.0 - 0.5 * w, 2.0, 2.0 + 0.5 * w, 2.0 + 2 * w};
+    for (int k = 0; k < 5; k++) {
+        /* Source: the box filter's definition, here integrated over a 400 × 400 grid of the
+         * square against the sphere's silhouette (a circle of radius 2 seen along −y). */
+        double lit = 0;
+        for (int j = 0; j < 400; j++)
+            for (int i = 0; i < 400; i++) {
+                double x = xs[k] + w * (2.0 * (i + 0.5) / 400 - 1), z = w * (2.0 * (j + 0.5) / 400 - 1);
+                lit += x * x + z * z > 4.0;
+            }
+        lit /= 160000.0;
+        assert_near(brm_shadow_visibility(ss, 0, brm_v3(xs[k], 1, 0)), lit, 0.03, 0.0);
+    }
+    assert_near(brm_shadow_visibility(ss, 0, brm_v3(1.5, 1, 0)), 0.0, 0.0, 0.0);
+    assert_near(brm_shadow_visibility(ss, 0, brm_v3(2.5, 1, 0)), 1.0, 0.0, 0.0);
     assert_near(brm_shadow_visibility(ss, 1, brm_v3(0, 1, 0)), 0.0, 0.0, 0.0);
     assert_near(brm_shadow_visibility(ss, 1, brm_v3(0, 12.5, 0)), 1.0, 0.0, 0.0); /* between sphere and light */
-    assert_near(brm_shadow_texel_size(ss, 0), 0.0, 0.0, 0.0);
     brm_shadows_free(ss);
     brm_bvh_free(b);
     brm_scene_free(s);

@@ -197,6 +197,16 @@ static void wide_roof_outside_target_should_block_its_solid_angle(void **state)
     sf_tri(s, o, brm_v3(-a, h, -a), brm_v3(a, h, a), brm_v3(-a, h, a));
     sf_ready(s);
     brm_shadow_set *ss = sf_build(s, (brm_aabb){{-1, -1, -1}, {1, 1, 1}}, 0.25, false, NULL, 1);
+    /* The cache: BRM_SKY_CACHE_RAYS rays per node, interpolated; within 2 % of the solid angle. */
+    {
+        double c[3][4];
+        brm_sky_incident(ss, brm_v3(0.1, 0.2, -0.3), 0, c);
+        printf("roof, cached: band0 %.5f (want %.5f)\n", c[1][0], BRM_SH_C0 * (4.0 * BRM_PI - omega));
+        assert_near(c[1][0], BRM_SH_C0 * (4.0 * BRM_PI - omega), 0.0, 0.02);
+        assert_near(c[1][1], -BRM_SH_C1 * ymom, 0.0, 0.05);
+    }
+    /* The traced estimator itself, per call. */
+    brm_shadows_drop_sky_cache(ss);
     double mean[4] = {0, 0, 0, 0};
     const uint32_t K = 2048;
     for (uint32_t i = 0; i < K; i++) {
@@ -225,6 +235,7 @@ static void wide_roof_outside_target_should_block_its_solid_angle(void **state)
     brm_shadows_free(ss);
     /* More rays per call: the same mean, with less spread between calls. */
     ss = sf_build(s, (brm_aabb){{-1, -1, -1}, {1, 1, 1}}, 0.25, false, NULL, 1);
+    brm_shadows_drop_sky_cache(ss);
     brm_shadows_set_sky_rays(ss, 32);
     assert_int_equal(ss->sky_rays, 32);
     double m32 = 0.0;
