@@ -1,5 +1,6 @@
 /* Speed and size of the .brv reader and writer (a benchmark program, not a test):
- *   bench_brv [N]     N³ cells (default 256), 4 channels (extinction + in-scatter r, g, b)
+ *   bench_brv [N [random]]   N³ cells (default 256), 4 channels (extinction + in-scatter r, g, b);
+ *                            "random": only the random-access part
  * 1. decode throughput of the whole volume, f16 and f32, at one and two threads, next to
  *    ZSTD_decompressDCtx alone on the same brick frames (the floor any reader pays);
  * 2. size per encoding on a smooth synthetic field, against raw f16 and against plain zstd of
@@ -214,8 +215,15 @@ static void random_access(const vol *f, uint32_t cache, const char *pattern)
         }
         dt[pass] = now() - t0;
     }
-    printf("  1M %-6s samples, cache %4u bricks (%6.1f MiB): %.3f s cold, %.3f s warm (checksum %.6g)\n", pattern,
-           cache, cache * brv_brick_size(v) * 4.0 / (1 << 20), dt[0], dt[1], sum);
+    float *batch = malloc(sizeof(float) * 4 * M);
+    double t0 = now();
+    if (brv_sample_world_batch(s, M, pts, batch) != BRV_OK) exit(1);
+    double tb = now() - t0, bsum = 0;
+    for (int i = 0; i < M; i++) bsum += batch[4 * i];
+    free(batch);
+    printf("  1M %-6s samples, cache %4u bricks (%6.1f MiB): %.3f s cold, %.3f s warm; batch call warm %.3f s "
+           "(checksums %.6g, %.6g)\n",
+           pattern, cache, cache * brv_brick_size(v) * 4.0 / (1 << 20), dt[0], dt[1], tb, sum / 2, bsum);
     free(pts);
     brv_sampler_free(s);
     brv_free(v);
@@ -224,6 +232,14 @@ static void random_access(const vol *f, uint32_t cache, const char *pattern)
 int main(int argc, char **argv)
 {
     if (argc > 1) N = (uint32_t)atoi(argv[1]);
+    if (argc > 2 && strcmp(argv[2], "random") == 0) {
+        vol f16 = write_volume(BRV_ENCODING_F16, BRV_ENCODING_F16, 9);
+        printf("random access (trilinear, all 4 channels, f16 volume %u^3, 1 thread)\n", N);
+        random_access(&f16, (N / 16) * (N / 16) * (N / 16), "random");
+        random_access(&f16, 64, "march");
+        free(f16.bytes);
+        return 0;
+    }
     if (N < 16 || N % 16) {
         fprintf(stderr, "usage: bench_brv [N], N a multiple of 16\n");
         return 2;

@@ -333,6 +333,11 @@ BRV_API void brv_sampler_free(brv_sampler *s);
  * out: channel_count floats. */
 BRV_API brv_result brv_sample_world(brv_sampler *s, const double pos[3], float *out);
 
+/* brv_sample_world for count positions (pos: 3·count doubles, out: channel_count·count floats),
+ * with memory prefetching that keeps several samples' cache misses in flight: faster for many
+ * scattered points over a large cached volume, same results. Stops at the first fault. */
+BRV_API brv_result brv_sample_world_batch(brv_sampler *s, size_t count, const double *pos, float *out);
+
 /* Trilinear sample of a frustum grid at pixel coordinate (px, py) in cell units (column i
  * spans px in [i, i + 1), j up) and view-space depth (metres). Froxel values sit at the centre
  * of their pixel and at the middle depth of their slice; outside, clamp to edge.

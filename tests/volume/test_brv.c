@@ -742,6 +742,23 @@ static void sampling_should_match_direct_evaluation_within_encoding_bound(void *
             worst = fmax(worst, fabs(out[1] - want1) / bound);
         }
         print_message("%s: worst f16 sample error / bound %.3f\n", kind == BRV_GRID_WORLD ? "world" : "probes", worst);
+        /* The batch call gives the same bits as one call per point, with every brick cached
+         * (its prefetching path) and with a small cache. */
+        enum { NB = 3000 };
+        double *pts = malloc(sizeof(double) * 3 * NB);
+        float *one = malloc(sizeof(float) * 2 * NB), *many = malloc(sizeof(float) * 2 * NB);
+        for (int k = 0; k < 3 * NB; k++) pts[k] = -2.0 + 8.0 * rand() / (double)RAND_MAX;
+        for (int k = 0; k < NB; k++) assert_int_equal(brv_sample_world(s, pts + 3 * k, one + 2 * k), BRV_OK);
+        brv_sampler *all;
+        assert_int_equal(brv_sampler_create(v, brv_grid(v)->brick_count, &all), BRV_OK);
+        assert_int_equal(brv_sample_world_batch(all, NB, pts, many), BRV_OK);
+        assert_memory_equal(one, many, sizeof(float) * 2 * NB);
+        assert_int_equal(brv_sample_world_batch(s, NB, pts, many), BRV_OK);
+        assert_memory_equal(one, many, sizeof(float) * 2 * NB);
+        brv_sampler_free(all);
+        free(pts);
+        free(one);
+        free(many);
         /* Outside: clamp to the edge value. */
         double far[3] = {-100, -100, -100};
         float out[2], corner[2];
