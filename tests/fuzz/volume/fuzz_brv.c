@@ -179,6 +179,10 @@ static void read_volume(const uint8_t *data, size_t size)
         double p[3];
         for (int a = 0; a < 3; a++) p[a] = 0.5 * (g->bounds_min[a] + g->bounds_max[a]);
         (void)brv_sample_world(s, p, out);
+        double pts[9] = {p[0], p[1], p[2], g->bounds_min[0], g->bounds_min[1], g->bounds_min[2],
+                         g->bounds_max[0], g->bounds_max[1], g->bounds_max[2]};
+        float outs[3 * BRV_MAX_CHANNELS];
+        (void)brv_sample_world_batch(s, 3, pts, outs);
         (void)brv_sample_frustum(s, 0.5 * g->cells[0], 0.5 * g->cells[1], g->camera.near_m + 1.0, out);
         brv_sampler_free(s);
     }
