@@ -13,7 +13,7 @@
  * 4096² float map is 64 MiB. A target whose cells are finer than its extent / 4096 gets texels
  * larger than a cell (common practice, no source: the cap keeps memory bounded). */
 #define BRM_SHADOW_AUTO_MAX 4096u
-#define BRM_SHADOW_AUTO_MAX_CUBE 2048u  /* per face: six 2048² faces are 96 MiB */
+#define BRM_SHADOW_AUTO_MAX_CUBE 1024u  /* per face: six 1024² faces are 24 MiB */
 /* Default texels per cell edge. A texel as large as a cell would do for smooth shadows, but
  * light shafts through openings a few cells wide (windows, skylights) lose their edges to the
  * filter (1.5 texels each side by default): eight texels per cell keep the demo scene's fast
@@ -30,7 +30,7 @@
  * twice the centre error) under 1 % in transmittance. */
 #define BRM_OD_CHECK_TAU 0.003
 #define BRM_OD_REFINE 4u
-#define BRM_OD_BLOCK_SHARE 8u   /* at most one lateral cell in 8 gets a block */
+#define BRM_OD_BLOCK_SHARE 32u  /* at most one lateral cell in 32 gets a block (what is left marches) */
 /* Spots wider than this (outer half-angle, degrees) use six cube faces instead of one
  * perspective map, whose texels would stretch too much toward the rim. */
 #define BRM_SPOT_CUBE_DEG 60.0
