@@ -12,6 +12,7 @@
 #include "base/sh.h"
 #include "base/threads.h"
 #include "shadow/shadow_internal.h"
+#include "voxel/voxelize.h"
 
 /* SPEC.md: L(ω) = H + (Z − H)·max(y, 0) + (G − H)·max(−y, 0). With a = Z − H, b = G − H and the
  * hemisphere integrals ∫_{y>0} dω = 2π, ∫_{y>0} y dω = π, ∫_{y>0} y² dω = 2π/3 (elementary:
@@ -62,25 +63,18 @@ static void sky_constrain(double out[3][4])
     }
 }
 
-/* The traced estimate with n rays; returns the share of rays that hit a back face. */
-static double sky_trace(const brm_shadow_set *ss, brm_vec3 p, uint32_t sample_index, uint32_t n, bool count_back,
-                        double out[3][4])
+/* The traced estimate with n rays. */
+static void sky_trace(const brm_shadow_set *ss, brm_vec3 p, uint32_t sample_index, uint32_t n, double out[3][4])
 {
     memcpy(out, ss->sky_proj, sizeof(double) * 12);
     const brm_sky *sky = &ss->scene->sky;
-    uint32_t blocked = 0, back = 0;
+    uint32_t blocked = 0;
     double shift[2];
     brm_sample2(0x736b79ull /* "sky" */, sample_index, shift);
     double share = 4.0 * BRM_PI / (double)n;
     for (uint32_t k = 0; k < n; k++) {
         brm_vec3 d = sky_dir(k, n, shift);
-        if (count_back) {
-            brm_hit h;
-            if (!brm_bvh_intersect(ss->bvh, p, d, ss->eps, HUGE_VAL, &h)) continue;
-            if (h.back_face) back++;
-        } else if (!brm_bvh_occluded(ss->bvh, p, d, ss->eps, HUGE_VAL)) {
-            continue;
-        }
+        if (!brm_bvh_occluded(ss->bvh, p, d, ss->eps, HUGE_VAL)) continue;
         blocked++;
         brm_vec3 L = brm_sky_radiance(sky, d);
         double y[4];
@@ -91,7 +85,6 @@ static double sky_trace(const brm_shadow_set *ss, brm_vec3 p, uint32_t sample_in
     }
     if (blocked == n) memset(out, 0, sizeof(double) * 12);
     sky_constrain(out);
-    return n ? (double)back / n : 0.0;
 }
 
 static bool cache_lookup(const sky_cache *c, brm_vec3 p, double out[3][4])
@@ -139,7 +132,7 @@ void brm_sky_incident(const brm_shadow_set *ss, brm_vec3 p, uint32_t sample_inde
         return;
     }
     if (ss->sky_grid.n[0] && cache_lookup(&ss->sky_grid, p, out)) return;
-    sky_trace(ss, p, sample_index, ss->sky_rays, false, out);
+    sky_trace(ss, p, sample_index, ss->sky_rays, out);
 }
 
 /* ---- the fast path's cache ------------------------------------------------------------ */
@@ -177,21 +170,23 @@ size_t brm_sky_cache_memory(const brm_scene *s, const brm_shadow_opts *o)
 
 typedef struct cache_job {
     brm_shadow_set *ss;
+    const brm_solid_index *solid;
 } cache_job;
 
 static void cache_slice(void *ctx, uint32_t k, int worker)
 {
     (void)worker;
-    brm_shadow_set *ss = ((cache_job *)ctx)->ss;
+    const cache_job *job = ctx;
+    brm_shadow_set *ss = job->ss;
     sky_cache *c = &ss->sky_grid;
     for (uint32_t j = 0; j < c->n[1]; j++)
         for (uint32_t i = 0; i < c->n[0]; i++) {
             size_t node = i + (size_t)c->n[0] * (j + (size_t)c->n[1] * k);
             brm_vec3 p = brm_add(c->lo, brm_mul(c->step, brm_v3(i, j, k)));
-            double v[3][4];
-            /* A node that sees back faces in most directions is inside a solid. */
-            double back = sky_trace(ss, p, (uint32_t)node, BRM_SKY_CACHE_RAYS, true, v);
-            c->ok[node] = back < 0.5;
+            double v[3][4] = {{0}};
+            /* Nodes inside solids take no part in the interpolation. */
+            c->ok[node] = !brm_solid_index_query(job->solid, p);
+            if (c->ok[node]) sky_trace(ss, p, (uint32_t)node, BRM_SKY_CACHE_RAYS, v);
             for (int q = 0; q < 12; q++) c->sh[node * 12 + (size_t)q] = (float)v[q / 4][q % 4];
         }
 }
@@ -207,8 +202,16 @@ brm_status brm_sky_cache_build(brm_shadow_set *ss, int threads, brm_diag *d)
         brm_sky_cache_free(c);
         return brm_diag_error(d, BRM_E_NOMEM, "shadows: out of memory for the sky cache");
     }
-    cache_job j = {ss};
-    if (brm_parallel_for(c->n[2], threads, cache_slice, &j, &brm_interrupted) != c->n[2]) {
+    brm_solid_index *solid = NULL;
+    brm_status st = brm_solid_index_build(ss->scene, &solid, d);
+    if (st != BRM_OK) {
+        brm_sky_cache_free(c);
+        return st;
+    }
+    cache_job j = {ss, solid};
+    uint32_t ran = brm_parallel_for(c->n[2], threads, cache_slice, &j, &brm_interrupted);
+    brm_solid_index_free(solid);
+    if (ran != c->n[2]) {
         brm_sky_cache_free(c);
         return brm_diag_error(d, BRM_E_INTERRUPTED, "shadows: interrupted while tracing the sky");
     }
