@@ -136,11 +136,48 @@ static void frustum_scatter_should_match_airlight_quadrature_past_a_point_light(
     brm_scene_free(s);
 }
 
+static void frustum_bakes_should_be_identical_across_thread_counts(void **state)
+{
+    (void)state;
+    const char *json =
+        "{\"brume\": 1, \"name\": \"door\", \"fog_bounds\": {\"min\": [-10,-1,-10], \"max\": [10,8,30]},"
+        " \"geometry\": [{\"shape\": \"box\", \"min\": [-2,0,8], \"max\": [2,4,8.5]},"
+        "                {\"shape\": \"sphere\", \"center\": [1,1,4], \"radius\": 0.8}],"
+        " \"lights\": [{\"type\": \"directional\", \"direction\": [0.3,-1,0.6], \"illuminance_lux\": 10000},"
+        "              {\"type\": \"spot\", \"position\": [-2,5,5], \"direction\": [0.3,-1,0.2], \"inner_deg\": 10,"
+        "               \"outer_deg\": 25, \"flux_lm\": 2000, \"range_m\": 10}],"
+        " \"media\": [{\"type\": \"uniform\", \"visibility_m\": 40},"
+        "            {\"type\": \"noise\", \"scale_m\": 2, \"octaves\": 3, \"seed\": 3, \"strength\": 0.5}],"
+        " \"sky\": {\"zenith\": [100,150,300], \"horizon\": [200,200,200], \"ground\": [20,20,20]},"
+        " \"targets\": [{\"name\": \"cam\", \"grid\": \"frustum\", \"camera\": {\"position\": [0,1.6,-2], \"look_at\": [0,2,10],"
+        "   \"up\": [0,1,0], \"fov_y_deg\": 60, \"aspect\": 1.5, \"near\": 0.3, \"far\": 25}, \"cells\": [40,24,40],"
+        "   \"samples\": 2, \"keep_froxel_terms\": true}]}";
+    brm_scene *s = load_json(json);
+    char a[128], b[128];
+    snprintf(a, sizeof a, "%s/door-j1.brv", dir);
+    snprintf(b, sizeof b, "%s/door-j2.brv", dir);
+    brv_free(bake_to(s, 0, 1, false, a));
+    brv_free(bake_to(s, 0, 2, false, b));
+    FILE *f = fopen(a, "rb"), *g = fopen(b, "rb");
+    assert_non_null(f);
+    assert_non_null(g);
+    int x, y;
+    do {
+        x = fgetc(f);
+        y = fgetc(g);
+        assert_int_equal(x, y);
+    } while (x != EOF);
+    fclose(f);
+    fclose(g);
+    brm_scene_free(s);
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
         cmocka_unit_test(frustum_under_uniform_sky_should_match_beer_lambert),
         cmocka_unit_test(frustum_scatter_should_match_airlight_quadrature_past_a_point_light),
+        cmocka_unit_test(frustum_bakes_should_be_identical_across_thread_counts),
     };
     return cmocka_run_group_tests_name("bake-frustum", tests, setup, teardown);
 }

@@ -154,6 +154,64 @@ static void probe_under_a_roof_should_get_no_sun_and_probe_in_a_box_is_invalid(v
     brv_free(v);
 }
 
+static int same_file(const char *a, const char *b)
+{
+    FILE *f = fopen(a, "rb"), *g = fopen(b, "rb");
+    int eq = f && g;
+    while (eq) {
+        int x = fgetc(f), y = fgetc(g);
+        if (x != y) eq = 0;
+        if (x == EOF || y == EOF) break;
+    }
+    if (f) fclose(f);
+    if (g) fclose(g);
+    return eq;
+}
+
+static void probes_should_be_identical_across_thread_counts_and_relocate_out_of_solids(void **state)
+{
+    (void)state;
+    /* Sun, sky, a lamp, fog and boxes the lattice runs through: every part of the probe baker. */
+    const char *json =
+        "{\"brume\": 1, \"name\": \"lattice\", \"fog_bounds\": {\"min\": [-1,-1,-1], \"max\": [9,5,9]},"
+        " \"geometry\": [{\"shape\": \"box\", \"min\": [-1,-1,-1], \"max\": [9,0,9]},"
+        "                {\"shape\": \"box\", \"min\": [3.6,0,3.6], \"max\": [4.4,3,4.4]},"
+        "                {\"shape\": \"sphere\", \"center\": [2,1,6], \"radius\": 0.3}],"
+        " \"lights\": [{\"type\": \"directional\", \"direction\": [0.5,-1,0.3], \"illuminance_lux\": 20000},"
+        "              {\"type\": \"point\", \"position\": [6,2,2], \"intensity_cd\": 300, \"range_m\": 8}],"
+        " \"media\": [{\"type\": \"height\", \"extinction_per_m\": 0.1, \"base_y\": 0.5, \"scale_height_m\": 1}],"
+        " \"sky\": {\"zenith\": [300,400,600], \"horizon\": [500,500,500], \"ground\": [50,50,50]},"
+        " \"targets\": [{\"name\": \"p\", \"grid\": \"probes\", \"min\": [0,1,0], \"max\": [8,3,8], \"spacing_m\": 2,"
+        "   \"rays\": 64, \"relocate\": true, \"encoding\": \"f32\"}]}";
+    brm_scene *s = load_json(json);
+    char a[128], b[128];
+    snprintf(a, sizeof a, "%s/lattice-j1.brv", dir);
+    snprintf(b, sizeof b, "%s/lattice-j2.brv", dir);
+    brv_volume *va = bake_to(s, 0, 1, false, a);
+    brv_volume *vb = bake_to(s, 0, 2, false, b);
+    assert_true(same_file(a, b));
+    /* Probe (4, 1, 4) sits inside the pillar [3.6, 4.4]×[0, 3]×[3.6, 4.4]; within half a spacing
+     * (1 m) there is free space, so it moves there and is valid; the file records where. */
+    const brv_grid_info *g = brv_grid(va);
+    assert_int_equal(g->cells[0], 5);
+    size_t c = 2 + 5 * (0 + 2 * 2);
+    float *valid = read_channel(va, "validity"), *ox = read_channel(va, "offset.x"), *oz = read_channel(va, "offset.z");
+    float *oy = read_channel(va, "offset.y");
+    assert_true(valid[c] == 1.0f);
+    brm_vec3 moved = {4 + ox[c], 1 + oy[c], 4 + oz[c]};
+    assert_true(fabs(moved.x - 4) >= 0.4 || fabs(moved.z - 4) >= 0.4); /* out of the pillar */
+    assert_true(brm_len(brm_sub(moved, brm_v3(4, 1, 4))) <= 1.0 + 1e-9);
+    /* Probes in free space stay on their lattice point. */
+    assert_true(ox[0] == 0.0f && oy[0] == 0.0f && oz[0] == 0.0f && valid[0] == 1.0f);
+    free(valid);
+    free(ox);
+    free(oy);
+    free(oz);
+    brv_free(va);
+    brv_free(vb);
+    brm_scene_free(s);
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
@@ -161,6 +219,7 @@ int main(void)
         cmocka_unit_test(directional_light_should_project_as_a_delta),
         cmocka_unit_test(probe_facing_a_lit_white_wall_should_see_its_exitance),
         cmocka_unit_test(probe_under_a_roof_should_get_no_sun_and_probe_in_a_box_is_invalid),
+        cmocka_unit_test(probes_should_be_identical_across_thread_counts_and_relocate_out_of_solids),
     };
     return cmocka_run_group_tests_name("bake-probes", tests, setup, teardown);
 }
