@@ -299,9 +299,12 @@ brm_status brm_run_plan(const brm_scene *s, uint32_t t, const brm_bake_opts *o, 
     }
     if ((st = brm_atomic_open(&af, out_path, d)) != BRM_OK) goto done;
     file_open = true;
+    char why[256] = "";
+    wd.error = why;
+    wd.error_size = sizeof why;
     brv_result r = brv_writer_create(af.f, &wd, &w);
     if (r != BRV_OK) {
-        st = writer_fail(d, out_path, w, r);
+        st = brm_diag_error(d, BRM_E_IO, "%s: cannot write volume: %s%s%s", out_path, brv_result_text(r), why[0] ? ": " : "", why);
         goto done;
     }
     run_ctx rc = {pl, 0, buf, unit_floats};
