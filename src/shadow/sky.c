@@ -137,9 +137,22 @@ void brm_sky_incident(const brm_shadow_set *ss, brm_vec3 p, uint32_t sample_inde
 
 /* ---- the fast path's cache ------------------------------------------------------------ */
 
-static void cache_dims(const brm_shadow_opts *o, uint32_t n[3], brm_vec3 *lo, brm_vec3 *step)
+/* Where the cache is needed: the target's bounds, clipped to the fog bounds (no fog, nothing
+ * scatters the sky; a frustum's far corners often reach well outside the fog). */
+static brm_aabb cache_box(const brm_scene *s, const brm_shadow_opts *o)
 {
-    brm_vec3 ext = brm_sub(o->bounds.max, o->bounds.min);
+    brm_aabb b = o->bounds;
+    if (brm_aabb_overlaps(b, s->fog_bounds)) {
+        b.min = brm_vmax(b.min, s->fog_bounds.min);
+        b.max = brm_vmin(b.max, s->fog_bounds.max);
+    }
+    return b;
+}
+
+static void cache_dims(const brm_scene *s, const brm_shadow_opts *o, uint32_t n[3], brm_vec3 *lo, brm_vec3 *step)
+{
+    brm_aabb box = cache_box(s, o);
+    brm_vec3 ext = brm_sub(box.max, box.min);
     double largest = fmax(ext.x, fmax(ext.y, ext.z));
     /* Sky occlusion changes over the size of openings (windows, doorways, skylights), not of
      * cells: nodes two cells apart but at most BRM_SKY_CACHE_SPACING_M, and at most
@@ -152,7 +165,7 @@ static void cache_dims(const brm_shadow_opts *o, uint32_t n[3], brm_vec3 *lo, br
         uint32_t k = (uint32_t)ceil(e / h - 1e-9) + 1;
         n[a] = k < 2 ? 2 : k;
     }
-    *lo = o->bounds.min;
+    *lo = box.min;
     *step = brm_v3(ext.x / (n[0] - 1), ext.y / (n[1] - 1), ext.z / (n[2] - 1));
     if (!(step->x > 0)) step->x = 1;
     if (!(step->y > 0)) step->y = 1;
@@ -164,7 +177,7 @@ size_t brm_sky_cache_memory(const brm_scene *s, const brm_shadow_opts *o)
     if (!s->sky.present || s->object_count == 0) return 0;
     uint32_t n[3];
     brm_vec3 lo, st;
-    cache_dims(o, n, &lo, &st);
+    cache_dims(s, o, n, &lo, &st);
     return (size_t)n[0] * n[1] * n[2] * (12 * sizeof(float) + 1);
 }
 
@@ -194,7 +207,7 @@ static void cache_slice(void *ctx, uint32_t k, int worker)
 brm_status brm_sky_cache_build(brm_shadow_set *ss, int threads, brm_diag *d)
 {
     sky_cache *c = &ss->sky_grid;
-    cache_dims(&ss->opts, c->n, &c->lo, &c->step);
+    cache_dims(ss->scene, &ss->opts, c->n, &c->lo, &c->step);
     size_t nodes = (size_t)c->n[0] * c->n[1] * c->n[2];
     c->sh = malloc(nodes * 12 * sizeof *c->sh);
     c->ok = malloc(nodes);
