@@ -1,0 +1,121 @@
+/* Frustum and probe bakes at the sizes their issues name, on the demo scene's geometry:
+ *
+ *   build/bench/bench_targets [SCENE.json]
+ *
+ * - frustum: 160×90×128 froxels, 4 samples, one sun and eight local lights of 15 m range spread
+ *   through the frustum, all casting shadows, the scene's fog: froxel·light·samples per second
+ *   and wall time (shadow maps included) at 1 and 2 threads;
+ * - probes: a 32×8×32 lattice at 0.5 m, 256 rays, bounce on, without fog and with it: probes
+ *   and rays per second at 1 and 2 threads. */
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <unistd.h>
+
+#include "bake/bake.h"
+#include "scene/light.h"
+#include "scene/media.h"
+#include "scene/scene.h"
+
+static brm_bake_stats run(const brm_scene *s, uint32_t t, int threads, const char *out)
+{
+    brm_bake_opts o;
+    memset(&o, 0, sizeof o);
+    o.threads = threads;
+    brm_diag d;
+    brm_diag_init(&d);
+    brm_bake_stats st;
+    if (brm_bake_target(s, t, &o, out, &st, &d) != BRM_OK) {
+        fprintf(stderr, "bench_targets: %s\n", d.message);
+        exit(1);
+    }
+    return st;
+}
+
+static int find(const brm_scene *s, brm_grid_kind k)
+{
+    for (uint32_t i = 0; i < s->target_count; i++)
+        if (s->targets[i].grid == k) return (int)i;
+    return -1;
+}
+
+int main(int argc, char **argv)
+{
+    const char *path = argc > 1 ? argv[1] : BRUME_SOURCE_ROOT "/scenes/saltworks-dusk.json";
+    brm_diag d;
+    brm_diag_init(&d);
+    brm_scene *s = NULL;
+    if (brm_scene_load(path, &s, &d) != BRM_OK) {
+        fprintf(stderr, "bench_targets: %s\n", d.message);
+        return 1;
+    }
+    char out[64];
+    snprintf(out, sizeof out, "/tmp/bench-targets-%d.brv", (int)getpid());
+
+    /* ---- frustum ---- */
+    int f = find(s, BRM_GRID_FRUSTUM);
+    if (f < 0) {
+        fprintf(stderr, "bench_targets: the scene has no frustum target\n");
+        return 1;
+    }
+    brm_target *ft = &s->targets[f];
+    ft->cells[0] = 160, ft->cells[1] = 90, ft->cells[2] = 128, ft->samples = 4;
+    /* One sun (the scene's first directional light) and eight point lights of 15 m range along
+     * the view, a metre and a half either side of the centre line. */
+    brm_light sun = {0};
+    for (uint32_t l = 0; l < s->light_count; l++)
+        if (s->lights[l].type == BRM_LIGHT_DIRECTIONAL) sun = s->lights[l];
+    brm_light *lights = realloc(s->lights, 9 * sizeof *lights);
+    if (!lights) return 1;
+    s->lights = lights;
+    s->light_count = 9;
+    s->lights[0] = sun;
+    brm_vec3 eye = ft->camera.position, fwd = brm_norm(brm_sub(ft->camera.look_at, eye));
+    brm_vec3 side = brm_norm(brm_cross(fwd, brm_v3(0, 1, 0)));
+    for (int i = 0; i < 8; i++) {
+        brm_light *l = &s->lights[1 + i];
+        memset(l, 0, sizeof *l);
+        l->type = BRM_LIGHT_POINT;
+        l->position = brm_add(brm_madd(eye, fwd, 2.0 + 1.6 * i), brm_scale(side, (i & 1) ? 1.5 : -1.5));
+        l->position.y = 2.5 + 0.3 * (i % 3);
+        l->intensity_cd = 300;
+        l->range_m = 15;
+        l->color = brm_v3(1, 0.9, 0.8);
+        l->shadow = true;
+        l->softness_texels = 1.5;
+        snprintf(l->json_path, sizeof l->json_path, "lights[%d]", 1 + i);
+    }
+    printf("frustum %ux%ux%u, %u samples, 1 sun + 8 point lights (15 m), shadows on, fog of the demo\n", ft->cells[0],
+           ft->cells[1], ft->cells[2], ft->samples);
+    for (int th = 1; th <= 2; th++) {
+        brm_bake_stats st = run(s, (uint32_t)f, th, out);
+        printf("  -j%d: %6.2f s (shadow maps %.2f s), %6.2f M froxel-light-samples/s\n", th, st.seconds, st.shadow_seconds,
+               st.light_samples / st.seconds / 1e6);
+    }
+
+    /* ---- probes ---- */
+    int p = find(s, BRM_GRID_PROBES);
+    if (p < 0) {
+        fprintf(stderr, "bench_targets: the scene has no probe target\n");
+        return 1;
+    }
+    brm_target *pt = &s->targets[p];
+    pt->box.min = brm_v3(4.25, 0.5, 0.25);
+    pt->box.max = brm_v3(4.25 + 31 * 0.5, 0.5 + 7 * 0.5, 0.25 + 31 * 0.5);
+    pt->spacing_m = 0.5;
+    pt->rays = 256;
+    uint32_t media = s->medium_count;
+    for (int fog = 0; fog <= 1; fog++) {
+        s->medium_count = fog ? media : 0;
+        printf("probes 32x8x32 at 0.5 m, 256 rays, bounce on, %s\n", fog ? "with the demo's fog" : "without fog");
+        for (int th = 1; th <= 2; th++) {
+            brm_bake_stats st = run(s, (uint32_t)p, th, out);
+            printf("  -j%d: %6.2f s (shadow maps %.2f s), %7.0f probes/s, %6.2f M rays/s (probe rays only)\n", th, st.seconds,
+                   st.shadow_seconds, st.cells / st.seconds, st.rays / st.seconds / 1e6);
+        }
+    }
+    s->medium_count = media;
+    unlink(out);
+    brm_scene_free(s);
+    return 0;
+}
