@@ -103,7 +103,7 @@ int main(int argc, char **argv)
     brm_diag_init(&d);
     brm_bvh *bvh = NULL;
     if (brm_bvh_build(s, &bvh, &d) != BRM_OK) return 1;
-    brm_shadow_opts o = {target, 0.25, threads, false, bvh};
+    brm_shadow_opts o = {target, 0.25, threads, false, bvh, false};
     brm_shadow_set *ss = NULL;
     if (brm_shadows_build(s, &o, &ss, &d) != BRM_OK) return 1;
     printf("target 20 x 8 x 20 m, 0.25 m cells (80 x 32 x 80 = 204800), 3 lights, height + box + noise fog\n");

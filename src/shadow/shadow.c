@@ -266,7 +266,7 @@ brm_status brm_shadows_build(const brm_scene *s, const brm_shadow_opts *o, brm_s
     }
     /* The reference uses the same sky cache: it exists to check the light maps and the
      * optical-depth grids, and the cache is checked against traced rays on its own. */
-    if (ss->sky_trace) {
+    if (ss->sky_trace && !o->no_sky_cache) {
         st = brm_sky_cache_build(ss, threads, d);
         if (st != BRM_OK) goto fail;
         ss->bytes += brm_sky_cache_memory(s, o);

@@ -21,6 +21,7 @@ typedef struct brm_shadow_opts {
     const brm_bvh *bvh;     /* the scene's ray caster (required for the reference path; when
                                NULL and needed — reference, sky over geometry — the set
                                builds its own) */
+    bool no_sky_cache;      /* callers that never ask brm_sky_incident skip its cache */
 } brm_shadow_opts;
 
 typedef struct brm_shadow_set brm_shadow_set;

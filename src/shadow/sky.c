@@ -174,7 +174,7 @@ static void cache_dims(const brm_scene *s, const brm_shadow_opts *o, uint32_t n[
 
 size_t brm_sky_cache_memory(const brm_scene *s, const brm_shadow_opts *o)
 {
-    if (!s->sky.present || s->object_count == 0) return 0;
+    if (!s->sky.present || s->object_count == 0 || o->no_sky_cache) return 0;
     uint32_t n[3];
     brm_vec3 lo, st;
     cache_dims(s, o, n, &lo, &st);
