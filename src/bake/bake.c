@@ -62,6 +62,7 @@ static double min_cell_edge(const brm_grid *g)
 /* Bricks computed per batch before the writer drains them in order. */
 static uint32_t batch_bricks(int threads) { return (uint32_t)threads * 4; }
 
+
 uint64_t brm_bake_estimate_memory(const brm_scene *s, uint32_t t, const brm_bake_opts *o)
 {
     brm_grid g;
@@ -70,11 +71,19 @@ uint64_t brm_bake_estimate_memory(const brm_scene *s, uint32_t t, const brm_bake
     brm_shadow_opts so = {lit_bounds(s, &g), min_cell_edge(&g), effective_threads(o), o->reference, NULL, false};
     m += brm_shadows_memory(s, &so);
     m += brm_bvh_memory(s);
-    uint64_t brick_floats = (uint64_t)BRM_BRICK * BRM_BRICK * BRM_BRICK * 20;
-    if (g.kind == BRM_GRID_FRUSTUM) brick_floats *= g.bricks[2];
-    m += (uint64_t)batch_bricks(effective_threads(o)) * brick_floats * sizeof(float);
+    /* The batch of units computed before the writer drains them (brm_run_plan): four bricks a
+     * thread, or one column of bricks a thread for frustum targets. */
+    uint64_t unit_floats = (uint64_t)BRM_BRICK * BRM_BRICK * BRM_BRICK * 20;
+    uint64_t units = batch_bricks(effective_threads(o));
+    if (g.kind == BRM_GRID_FRUSTUM) {
+        unit_floats *= g.bricks[2];
+        units = (uint64_t)effective_threads(o);
+    }
+    m += units * unit_floats * sizeof(float);
     m += (uint64_t)brm_grid_brick_count(&g) * 64;   /* the writer's brick table */
-    m += (uint64_t)24 << 20;                        /* zstd contexts, encode buffers, scene */
+    /* zstd's compression context at the levels used, encode buffers, the scene, the process:
+     * measured about 8 MiB (bench/bench_memory.c). */
+    m += (uint64_t)8 << 20;
     brm_grid_free(&g);
     return m;
 }

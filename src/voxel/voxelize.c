@@ -383,9 +383,11 @@ static brm_status fill_component(const brm_grid *g, uint8_t *state, size_t seed,
 
 size_t brm_voxelize_memory(const brm_grid *g)
 {
-    /* state + fraction per cell, plus the fill stack, which holds at most one index per cell
-     * (usually far fewer: the stack grows only as needed). */
-    return brm_grid_cells(g) * (sizeof(uint8_t) + sizeof(float) + sizeof(uint32_t));
+    /* state + fraction per cell, plus the fill stack. The stack can hold one index per cell at
+     * worst, but a flood front is about a cross-section of the grid: count the three faces'
+     * areas (an estimate, not a bound; bench/bench_memory.c checks it against the peak). */
+    size_t faces = (size_t)g->n[0] * g->n[1] + (size_t)g->n[1] * g->n[2] + (size_t)g->n[0] * g->n[2];
+    return brm_grid_cells(g) * (sizeof(uint8_t) + sizeof(float)) + faces * sizeof(uint32_t);
 }
 
 void brm_occupancy_free(brm_occupancy *o)
