@@ -379,13 +379,19 @@ typedef struct bake_ctx {
     double *column;             /* per worker: frustum column scratch */
 } bake_ctx;
 
-/* Lights that can reach box b, into this worker's list. */
+/* Lights that can reach box b, into this worker's list: culled by range and cone, and by the
+ * shadow maps where they say the whole box is in shadow; lights the maps say light the whole
+ * box are marked so the kernel skips their lookups (the results do not change). */
 static uint32_t cull_lights(const bake_ctx *c, brm_aabb b, int worker, uint32_t **out)
 {
     uint32_t *lights = c->light_lists + (size_t)worker * (c->scene->light_count + 1);
     uint32_t nl = 0;
-    for (uint32_t l = 0; l < c->scene->light_count; l++)
-        if (brm_light_reaches(&c->scene->lights[l], b)) lights[nl++] = l;
+    for (uint32_t l = 0; l < c->scene->light_count; l++) {
+        if (!brm_light_reaches(&c->scene->lights[l], b)) continue;
+        int cls = brm_shadow_classify(c->shadows, l, b);
+        if (cls == 0) continue;
+        lights[nl++] = cls == 1 ? (l | BRM_KERNEL_LIT) : l;
+    }
     *out = lights;
     return nl;
 }
@@ -537,14 +543,23 @@ static void frustum_unit(void *ctx, uint32_t unit, int worker, float *out)
     uint64_t evals = 0;
     for (uint32_t jj = lo[1]; jj < hi[1]; jj++)
         for (uint32_t i = lo[0]; i < hi[0]; i++) {
-            /* Lights that reach this column's pyramid. */
-            brm_aabb cb = brm_aabb_empty();
-            brm_aabb_grow(&cb, g->cam.position);
-            for (int c = 0; c < 4; c++) brm_aabb_grow(&cb, brm_grid_point(g, i + (c & 1), jj + (c >> 1), nz));
+            /* Froxels a brick's depth at a time, each run with the lights that reach it. */
             uint32_t *lights;
-            uint32_t nl = cull_lights(j, cb, worker, &lights);
-            for (uint32_t k = 0; k < nz; k++) froxel_average(j, i, jj, k, lights, nl, worker, col + (size_t)(k + 1) * COL_FIELDS, &evals);
+            uint32_t nl;
+            for (uint32_t k0 = 0; k0 < nz; k0 += BRM_BRICK) {
+                uint32_t k1 = k0 + BRM_BRICK < nz ? k0 + BRM_BRICK : nz;
+                brm_aabb fb = brm_aabb_empty();
+                for (int c = 0; c < 8; c++)
+                    brm_aabb_grow(&fb, brm_grid_point(g, i + (c & 1), jj + ((c >> 1) & 1), (c & 4) ? k1 : k0));
+                nl = cull_lights(j, fb, worker, &lights);
+                for (uint32_t k = k0; k < k1; k++)
+                    froxel_average(j, i, jj, k, lights, nl, worker, col + (size_t)(k + 1) * COL_FIELDS, &evals);
+            }
             /* The stretch from the camera to the near plane, by samples along the centre ray. */
+            brm_aabb nb = brm_aabb_empty();
+            brm_aabb_grow(&nb, g->cam.position);
+            for (int c = 0; c < 4; c++) brm_aabb_grow(&nb, brm_grid_point(g, i + (c & 1), jj + (c >> 1), 0));
+            nl = cull_lights(j, nb, worker, &lights);
             double x = 2.0 * (i + 0.5) / g->n[0] - 1.0, y = 2.0 * (jj + 0.5) / g->n[1] - 1.0;
             brm_vec3 ray = brm_add(g->fwd, brm_add(brm_scale(g->right, x * g->tan_half_x), brm_scale(g->up, y * g->tan_half_y)));
             double ray_len = brm_len(ray);

@@ -19,15 +19,19 @@ void brm_kernel_eval(const brm_kernel *k, brm_vec3 p, const uint32_t *lights, ui
     const double ss[3] = {mp.sigma_s.x, mp.sigma_s.y, mp.sigma_s.z};
 
     for (uint32_t li = 0; li < light_count; li++) {
-        const brm_light *l = &s->lights[lights[li]];
+        const uint32_t index = lights[li] & ~BRM_KERNEL_LIT;
+        const brm_light *l = &s->lights[index];
         brm_vec3 to_light;
         double dist;
         double e = brm_light_illuminance(l, p, &to_light, &dist);
         out->light_evals++;
         if (e <= 0.0) continue;
-        double v = brm_shadow_visibility(k->shadows, lights[li], p);
-        if (v <= 0.0) continue;
-        e *= v * brm_shadow_transmittance(k->shadows, lights[li], p);
+        if (!(lights[li] & BRM_KERNEL_LIT)) {
+            double v = brm_shadow_visibility(k->shadows, index, p);
+            if (v <= 0.0) continue;
+            e *= v;
+        }
+        e *= brm_shadow_transmittance(k->shadows, index, p);
         if (e <= 0.0) continue;
         /* A light is a delta in direction: its radiance integrates to its illuminance e, and its
          * projection onto Y_lm is e·Y_lm(toward the light). */

@@ -22,6 +22,10 @@ typedef struct brm_kernel_out {
     uint32_t light_evals;       /* lights evaluated (for throughput figures) */
 } brm_kernel_out;
 
+/* A light index with this bit set is known to be unshadowed at p (brm_shadow_classify said so
+ * for the whole brick): its shadow lookup is skipped. */
+#define BRM_KERNEL_LIT 0x80000000u
+
 /* Evaluates the kernel at p for the lights listed (culled by the caller per brick).
  * view: unit direction from the camera toward p, or NULL for view-independent output only.
  * sample_index decorrelates the sky rays between samples. */

@@ -210,6 +210,12 @@ brm_status brm_shadows_build(const brm_scene *s, const brm_shadow_opts *o, brm_s
     }
     free(items);
     items = NULL;
+    for (uint32_t l = 0; l < s->light_count; l++)
+        for (uint32_t k = 0; k < ss->lights[l].view_count; k++)
+            if (!brm_shadowmap_tiles(&ss->lights[l].views[k])) {
+                st = brm_diag_error(d, BRM_E_NOMEM, "shadows: out of memory");
+                goto fail;
+            }
 
     /* Blocks for the flagged cells, then fill them (one item per block). */
     uint32_t n_blk = 0;
@@ -287,6 +293,8 @@ void brm_shadows_free(brm_shadow_set *ss)
     for (uint32_t l = 0; l < ss->light_count && ss->lights; l++)
         for (uint32_t k = 0; k < 6; k++) {
             free(ss->lights[l].views[k].depth);
+            free(ss->lights[l].views[k].tile_min);
+            free(ss->lights[l].views[k].tile_max);
             free(ss->lights[l].views[k].od);
             free(ss->lights[l].views[k].prefix);
             free(ss->lights[l].views[k].od_bad);
@@ -359,6 +367,27 @@ static double reference_visibility(const brm_shadow_set *ss, uint32_t l, brm_vec
             if (!brm_bvh_occluded(ss->bvh, q, qdir, ss->eps, tmax)) lit++;
         }
     return (double)lit / REF_FILTER_N;
+}
+
+int brm_shadow_classify(const brm_shadow_set *ss, uint32_t l, brm_aabb b)
+{
+    const brm_light *light = &ss->scene->lights[l];
+    if (!light->shadow || ss->scene->object_count == 0) return 1;
+    if (ss->opts.reference) return -1;
+    const light_shadow *ls = &ss->lights[l];
+    if (!ls->has_map) return 1;
+    const shadow_view *v = &ls->views[0];
+    if (ls->cube) {
+        /* One face must see the whole box (its eight corners pick the same face). */
+        v = NULL;
+        for (int c = 0; c < 8; c++) {
+            brm_vec3 p = brm_v3(c & 1 ? b.max.x : b.min.x, c & 2 ? b.max.y : b.min.y, c & 4 ? b.max.z : b.min.z);
+            const shadow_view *w = brm_shadow_pick_view(ls, p);
+            if (v && w != v) return -1;
+            v = w;
+        }
+    }
+    return brm_shadowmap_classify(v, b, ls->softness);
 }
 
 double brm_shadow_visibility(const brm_shadow_set *ss, uint32_t l, brm_vec3 p)

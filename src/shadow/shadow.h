@@ -36,6 +36,12 @@ void brm_shadows_free(brm_shadow_set *ss);
  * shadow.resolution overrides it (16..16384). */
 size_t brm_shadows_memory(const brm_scene *s, const brm_shadow_opts *o);
 
+/* What every point of box b sees of light l, from the maps alone: 1 when brm_shadow_visibility
+ * is exactly 1 everywhere in b, 0 when it is exactly 0 everywhere, −1 when mixed or unknown
+ * (the reference path, a box across cube faces or the near plane). Lets the kernel skip the
+ * per-sample lookups of whole bricks without changing a single result. */
+int brm_shadow_classify(const brm_shadow_set *ss, uint32_t l, brm_aabb b);
+
 /* Geometric visibility of light l from p, in [0, 1] (filtered). 1 when the light casts no shadow. */
 double brm_shadow_visibility(const brm_shadow_set *ss, uint32_t l, brm_vec3 p);
 

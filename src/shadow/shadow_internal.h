@@ -21,6 +21,7 @@
  * cheap next to everything else. */
 #define BRM_SHADOW_TEXELS_PER_CELL 24.0
 #define BRM_SHADOW_MIN_RES 16u
+#define BRM_SHADOW_TILE 16u     /* texels per side of a depth-range tile */
 #define BRM_SHADOW_MAX_RES 16384u
 /* Nodes per optical-depth grid (per view: a point light's six faces get it each): 2 floats
  * each, 4 MiB. */
@@ -54,6 +55,9 @@ typedef struct shadow_view {
     double lo[2];               /* ortho: metres; persp: tan units */
     double texel;               /* ortho: metres per texel; persp: tan units per texel */
     double z_near;              /* ortho: depth of the near plane (f·p); persp: clip distance */
+    float *tile_min, *tile_max; /* per BRM_SHADOW_TILE² block of the map: its depth range, for
+                                   classifying whole boxes at once (brm_shadow_classify) */
+    uint32_t tiles;             /* blocks per side */
     float *depth;               /* res², first occluder depth plus bias: ortho f·p − z_near,
                                    persp view depth f·d; +inf where nothing is */
 
@@ -181,6 +185,10 @@ void brm_shadowmap_raster_rows(const brm_scene *s, shadow_view *v, uint32_t row0
 const shadow_view *brm_shadow_pick_view(const light_shadow *ls, brm_vec3 p);
 /* Filtered visibility of p in one view's map, radius r texels. */
 double brm_shadowmap_pcf(const shadow_view *v, brm_vec3 p, double r);
+/* Builds the view's depth-range tiles (after rasterization). Returns 0 when out of memory. */
+int brm_shadowmap_tiles(shadow_view *v);
+/* 1: brm_shadowmap_pcf returns exactly 1 for every point of box b; 0: exactly 0; −1: unknown. */
+int brm_shadowmap_classify(const shadow_view *v, brm_aabb b, double r);
 
 /* ---- sky (sky.c) ---- */
 /* Bands 0–1 of the unoccluded sky of SPEC.md, in closed form. */

@@ -397,3 +397,70 @@ double brm_shadowmap_pcf(const shadow_view *v, brm_vec3 p, double r)
     double lit = 1.0 - shadowed / (4.0 * r * r);
     return lit < 1e-12 ? 0.0 : lit > 1.0 - 1e-12 ? 1.0 : lit;
 }
+
+/* ---- whole boxes at once -------------------------------------------------------------------- */
+
+int brm_shadowmap_tiles(shadow_view *v)
+{
+    if (!v->depth || v->res == 0) return 1;
+    uint32_t T = BRM_SHADOW_TILE, n = (v->res + T - 1) / T;
+    v->tile_min = malloc((size_t)n * n * sizeof(float));
+    v->tile_max = malloc((size_t)n * n * sizeof(float));
+    if (!v->tile_min || !v->tile_max) return 0;
+    v->tiles = n;
+    for (uint32_t tj = 0; tj < n; tj++)
+        for (uint32_t ti = 0; ti < n; ti++) {
+            float lo = INFINITY, hi = -INFINITY;
+            for (uint32_t j = tj * T; j < (tj + 1) * T && j < v->res; j++) {
+                const float *row = v->depth + (size_t)j * v->res;
+                for (uint32_t i = ti * T; i < (ti + 1) * T && i < v->res; i++) {
+                    if (row[i] < lo) lo = row[i];
+                    if (row[i] > hi) hi = row[i];
+                }
+            }
+            v->tile_min[tj * n + ti] = lo;
+            v->tile_max[tj * n + ti] = hi;
+        }
+    return 1;
+}
+
+/* The box's eight corners in the view: its depth range and the texel rectangle every point of
+ * it projects into (extremes at corners: depth is linear, and x/z, y/z are linear-fractional
+ * over a box in front of the view). Then the tiles under the rectangle grown by the filter
+ * radius: if none can hide the box's farthest point, PCF reads only "lit" everywhere; if all
+ * hide its nearest point and the rectangle lies inside the map, only "shadowed". */
+int brm_shadowmap_classify(const shadow_view *v, brm_aabb b, double r)
+{
+    if (!v->tile_min) return -1;
+    double x0 = HUGE_VAL, x1 = -HUGE_VAL, y0 = HUGE_VAL, y1 = -HUGE_VAL, z0 = HUGE_VAL, z1 = -HUGE_VAL;
+    for (int c = 0; c < 8; c++) {
+        brm_vec3 p = brm_v3(c & 1 ? b.max.x : b.min.x, c & 2 ? b.max.y : b.min.y, c & 4 ? b.max.z : b.min.z);
+        brm_vec3 d = to_view(v, p);
+        double z;
+        if (v->kind == BRM_VIEW_ORTHO) {
+            z = d.z - v->z_near;
+        } else {
+            if (d.z <= v->z_near) return -1;
+            z = d.z;
+            d.x /= d.z, d.y /= d.z;
+        }
+        double X = (d.x - v->lo[0]) / v->texel, Y = (d.y - v->lo[1]) / v->texel;
+        x0 = fmin(x0, X), x1 = fmax(x1, X), y0 = fmin(y0, Y), y1 = fmax(y1, Y), z0 = fmin(z0, z), z1 = fmax(z1, z);
+    }
+    x0 -= r + 1.0, y0 -= r + 1.0, x1 += r + 1.0, y1 += r + 1.0;
+    double res = (double)v->res;
+    bool inside = x0 >= 0.0 && y0 >= 0.0 && x1 <= res && y1 <= res;
+    if (x1 <= 0.0 || y1 <= 0.0 || x0 >= res || y0 >= res) return 1; /* off the map: PCF says lit */
+    uint32_t T = BRM_SHADOW_TILE;
+    uint32_t i0 = (uint32_t)fmax(0.0, floor(x0)) / T, i1 = (uint32_t)fmin(res - 1.0, floor(x1)) / T;
+    uint32_t j0 = (uint32_t)fmax(0.0, floor(y0)) / T, j1 = (uint32_t)fmin(res - 1.0, floor(y1)) / T;
+    float lo = INFINITY, hi = -INFINITY;
+    for (uint32_t j = j0; j <= j1; j++)
+        for (uint32_t i = i0; i <= i1; i++) {
+            lo = fminf(lo, v->tile_min[j * v->tiles + i]);
+            hi = fmaxf(hi, v->tile_max[j * v->tiles + i]);
+        }
+    if ((double)lo >= z1) return 1;             /* no texel hides even the farthest point */
+    if (inside && (double)hi < z0) return 0;    /* every texel hides even the nearest point */
+    return -1;
+}

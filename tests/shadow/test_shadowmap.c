@@ -343,6 +343,43 @@ static void reference_mode_should_trace_rays(void **state)
     brm_scene_free(s);
 }
 
+static void classify_should_agree_with_every_lookup_in_the_box(void **state)
+{
+    (void)state;
+    /* The same yard as above: whole boxes the maps call lit (or shadowed) must give exactly 1
+     * (or 0) at every point inside, or the kernel's shortcut would change a bake. */
+    brm_aabb target = {{-8, 0.05, -8}, {8, 6, 8}};
+    brm_scene *s = sf_scene((brm_aabb){{-60, -5, -60}, {60, 60, 60}});
+    sf_box(s, brm_v3(-20, -1, -20), brm_v3(20, 0, 20), false);
+    sf_box(s, brm_v3(-5, 0, -3), brm_v3(-2, 4, 1), false);
+    sf_box(s, brm_v3(-1, 0, 4), brm_v3(3, 5, 4.05), true);
+    sf_sphere(s, brm_v3(3, 3.5, -4), 1.5);
+    sf_sun(s, brm_v3(0.5, -1.0, 0.3));
+    sf_spot(s, brm_v3(0, 9, 0), brm_v3(0.1, -1, 0.05), 30, 50);
+    sf_point(s, brm_v3(1, 5.5, -1));
+    sf_ready(s);
+    brm_shadow_set *ss = sf_build(s, target, 0.1, false, NULL, 2);
+    uint64_t rng = 11;
+    int counts[3] = {0, 0, 0};
+    for (uint32_t l = 0; l < s->light_count; l++)
+        for (int n = 0; n < 3000; n++) {
+            brm_vec3 c = sf_in_box(&rng, target);
+            double h = 0.05 + 0.6 * (double)(n % 7) / 6.0;
+            brm_aabb box = {brm_sub(c, brm_v3(h, h, h)), brm_add(c, brm_v3(h, h, h))};
+            int cls = brm_shadow_classify(ss, l, box);
+            counts[cls + 1]++;
+            if (cls < 0) continue;
+            for (int k = 0; k < 20; k++) {
+                brm_vec3 p = sf_in_box(&rng, box);
+                assert_true(brm_shadow_visibility(ss, l, p) == (double)cls);
+            }
+        }
+    /* All three answers occur, so the check above tested something. */
+    assert_true(counts[0] > 100 && counts[1] > 100 && counts[2] > 100);
+    brm_shadows_free(ss);
+    brm_scene_free(s);
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
@@ -354,6 +391,7 @@ int main(void)
         cmocka_unit_test(resolution_should_follow_cells_overrides_and_cap),
         cmocka_unit_test(build_should_not_depend_on_thread_count),
         cmocka_unit_test(reference_mode_should_trace_rays),
+        cmocka_unit_test(classify_should_agree_with_every_lookup_in_the_box),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }
