@@ -123,7 +123,7 @@ typedef struct media_info {
 /* The sky: visible-sky SH (bands 0–1, 3 colours) on a lattice over the target, each
  * node traced with BRM_SKY_CACHE_RAYS rays, interpolated trilinearly between the nodes that lie
  * in free space (nodes inside solids are left out and the weights renormalised). */
-#define BRM_SKY_CACHE_RAYS 128u
+#define BRM_SKY_CACHE_RAYS 64u
 #define BRM_SKY_CACHE_MAX_PER_AXIS 96u
 /* Openings in buildings are a metre or two across: half a metre between nodes resolves them
  * (common practice, no source). */
