@@ -3,6 +3,7 @@
 #ifndef BRM_TEST_BAKE_UTIL_H
 #define BRM_TEST_BAKE_UTIL_H
 
+#include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
 #include <unistd.h>
@@ -58,6 +59,41 @@ static inline char *temp_dir(void)
     snprintf(d, 64, "/tmp/brume-bake-XXXXXX");
     assert_non_null(mkdtemp(d));
     return d;
+}
+
+/* A fresh temporary folder per test program (group setup and teardown). */
+static char *dir;
+
+static inline int setup(void **state)
+{
+    (void)state;
+    dir = temp_dir();
+    return 0;
+}
+
+static inline int teardown(void **state)
+{
+    (void)state;
+    char cmd[128];
+    snprintf(cmd, sizeof cmd, "rm -rf %s", dir);
+    if (system(cmd) != 0) return 1;
+    free(dir);
+    return 0;
+}
+
+/* Whether two files hold the same bytes. */
+static inline int files_equal(const char *a, const char *b)
+{
+    FILE *f = fopen(a, "rb"), *g = fopen(b, "rb");
+    int eq = f && g;
+    while (eq) {
+        int x = fgetc(f), y = fgetc(g);
+        if (x != y) eq = 0;
+        if (x == EOF || y == EOF) break;
+    }
+    if (f) fclose(f);
+    if (g) fclose(g);
+    return eq;
 }
 
 #endif

@@ -6,24 +6,6 @@
 #include "bake_util.h"
 #include "base/sh.h"
 
-static char *dir;
-
-static int setup(void **state)
-{
-    (void)state;
-    dir = temp_dir();
-    return 0;
-}
-
-static int teardown(void **state)
-{
-    (void)state;
-    char cmd[128];
-    snprintf(cmd, sizeof cmd, "rm -rf %s", dir);
-    if (system(cmd) != 0) return 1;
-    free(dir);
-    return 0;
-}
 
 /* The 9 coefficients of one colour channel of probe index c. */
 static void probe_sh(const brv_volume *v, char colour, size_t c, double L[9])
@@ -154,20 +136,6 @@ static void probe_under_a_roof_should_get_no_sun_and_probe_in_a_box_is_invalid(v
     brv_free(v);
 }
 
-static int same_file(const char *a, const char *b)
-{
-    FILE *f = fopen(a, "rb"), *g = fopen(b, "rb");
-    int eq = f && g;
-    while (eq) {
-        int x = fgetc(f), y = fgetc(g);
-        if (x != y) eq = 0;
-        if (x == EOF || y == EOF) break;
-    }
-    if (f) fclose(f);
-    if (g) fclose(g);
-    return eq;
-}
-
 static void probes_should_be_identical_across_thread_counts_and_relocate_out_of_solids(void **state)
 {
     (void)state;
@@ -189,7 +157,7 @@ static void probes_should_be_identical_across_thread_counts_and_relocate_out_of_
     snprintf(b, sizeof b, "%s/lattice-j2.brv", dir);
     brv_volume *va = bake_to(s, 0, 1, false, a);
     brv_volume *vb = bake_to(s, 0, 2, false, b);
-    assert_true(same_file(a, b));
+    assert_true(files_equal(a, b));
     /* Probe (4, 1, 4) sits inside the pillar [3.6, 4.4]×[0, 3]×[3.6, 4.4]; within half a spacing
      * (1 m) there is free space, so it moves there and is valid; the file records where. */
     const brv_grid_info *g = brv_grid(va);

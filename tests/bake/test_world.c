@@ -6,24 +6,6 @@
 #include "bake_util.h"
 #include "base/sh.h"
 
-static char *dir;
-
-static int setup(void **state)
-{
-    (void)state;
-    dir = temp_dir();
-    return 0;
-}
-
-static int teardown(void **state)
-{
-    (void)state;
-    char cmd[128];
-    snprintf(cmd, sizeof cmd, "rm -rf %s", dir);
-    if (system(cmd) != 0) return 1;
-    free(dir);
-    return 0;
-}
 
 static void path_for(char *buf, size_t n, const char *name) { snprintf(buf, n, "%s/%s.brv", dir, name); }
 
@@ -175,31 +157,6 @@ static void extinction_should_average_height_fog_in_closed_form(void **state)
     free(ext);
     brv_free(v);
     brm_scene_free(s);
-}
-
-static int files_equal(const char *a, const char *b)
-{
-    char *x = NULL, *y = NULL;
-    size_t nx = 0, ny = 0;
-    FILE *f = fopen(a, "rb"), *g = fopen(b, "rb");
-    if (!f || !g) return 0;
-    fseek(f, 0, SEEK_END);
-    nx = (size_t)ftell(f);
-    fseek(g, 0, SEEK_END);
-    ny = (size_t)ftell(g);
-    rewind(f);
-    rewind(g);
-    int eq = nx == ny;
-    if (eq) {
-        x = malloc(nx ? nx : 1);
-        y = malloc(ny ? ny : 1);
-        eq = fread(x, 1, nx, f) == nx && fread(y, 1, ny, g) == ny && memcmp(x, y, nx) == 0;
-    }
-    free(x);
-    free(y);
-    fclose(f);
-    fclose(g);
-    return eq;
 }
 
 static void bakes_should_be_identical_across_thread_counts_and_runs(void **state)
