@@ -4,8 +4,9 @@
 
 #include <math.h>
 
-/* Window max(0, 1 − (d/r)⁴)², the windowing part of the falloff of Karis 2013 ("Real Shading
- * in Unreal Engine 4", SIGGRAPH course notes); SPEC.md uses it with the plain inverse square. */
+/* Window max(0, 1 − (d/r)⁴)², the windowing part of the falloff of Karis 2013 (SIGGRAPH 2013
+ * course "Physically Based Shading in Theory and Practice"); SPEC.md uses it with the plain
+ * inverse square. */
 static inline double range_window(double d, double range)
 {
     double x = d / range, x2 = x * x, w = 1.0 - x2 * x2;
