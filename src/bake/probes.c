@@ -184,7 +184,8 @@ static void surface_irradiance(const probe_ctx *c, brm_vec3 p, brm_vec3 n, uint3
         double e = brm_light_illuminance(lt, p, &to, &dist);
         double cosi = brm_dot(n, to);
         if (e <= 0 || cosi <= 0) continue;
-        double v = brm_shadow_visibility(c->ss, l, p);
+        /* Bounce light: the sharp lookup (its penumbra matters little there). */
+        double v = brm_shadow_visibility_sharp(c->ss, l, p);
         if (v <= 0) continue;
         e *= cosi * v * brm_shadow_transmittance(c->ss, l, p);
         E[0] += e * lt->color.x;

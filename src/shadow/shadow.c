@@ -400,6 +400,21 @@ double brm_shadow_visibility(const brm_shadow_set *ss, uint32_t l, brm_vec3 p)
     return brm_shadowmap_pcf(brm_shadow_pick_view(ls, p), p, ls->softness);
 }
 
+double brm_shadow_visibility_sharp(const brm_shadow_set *ss, uint32_t l, brm_vec3 p)
+{
+    const brm_light *light = &ss->scene->lights[l];
+    if (!light->shadow || ss->scene->object_count == 0) return 1.0;
+    if (ss->opts.reference) {
+        double dist;
+        brm_vec3 dir = toward(light, p, &dist);
+        double tmax = isfinite(dist) ? dist - ss->eps : HUGE_VAL;
+        return brm_bvh_occluded(ss->bvh, p, dir, ss->eps, tmax) ? 0.0 : 1.0;
+    }
+    const light_shadow *ls = &ss->lights[l];
+    if (!ls->has_map) return 1.0;
+    return brm_shadowmap_pcf(brm_shadow_pick_view(ls, p), p, 0.5);
+}
+
 /* Reference: composite Simpson from p toward the light, to the light or the fog-bounds exit. */
 double brm_shadow_transmittance_march(const brm_shadow_set *ss, uint32_t l, brm_vec3 p)
 {

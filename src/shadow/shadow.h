@@ -45,6 +45,11 @@ int brm_shadow_classify(const brm_shadow_set *ss, uint32_t l, brm_aabb b);
 /* Geometric visibility of light l from p, in [0, 1] (filtered). 1 when the light casts no shadow. */
 double brm_shadow_visibility(const brm_shadow_set *ss, uint32_t l, brm_vec3 p);
 
+/* The same with the narrowest filter (bilinear over the four nearest texels): for surfaces
+ * lit by a bounce, where the penumbra's width matters little and the lookup count does. The
+ * reference path traces one ray. */
+double brm_shadow_visibility_sharp(const brm_shadow_set *ss, uint32_t l, brm_vec3 p);
+
 /* Transmittance exp(−∫sigma_t) from p toward light l, up to the light or to where the path
  * leaves the fog bounds. Within 1 % of the reference march. */
 double brm_shadow_transmittance(const brm_shadow_set *ss, uint32_t l, brm_vec3 p);
