@@ -14,12 +14,6 @@
  * larger than a cell (common practice, no source: the cap keeps memory bounded). */
 #define BRM_SHADOW_AUTO_MAX 4096u
 #define BRM_SHADOW_AUTO_MAX_CUBE 1024u  /* per face: six 1024² faces are 24 MiB */
-/* Default texels per cell edge. A texel as large as a cell would do for smooth shadows, but
- * light shafts through openings a few cells wide (windows, skylights) lose their edges to the
- * filter (1.5 texels each side by default): eight texels per cell keep the demo scene's fast
- * bake close to its BVH reference (common practice, no source; measured there). Maps are
- * cheap next to everything else. */
-#define BRM_SHADOW_TEXELS_PER_CELL 24.0
 #define BRM_SHADOW_MIN_RES 16u
 #define BRM_SHADOW_TILE 16u     /* texels per side of a depth-range tile */
 #define BRM_SHADOW_MAX_RES 16384u

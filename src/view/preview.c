@@ -796,7 +796,8 @@ brm_status brm_preview_render(const brm_scene *s, uint32_t t, const brv_volume *
     j.eps = 1e-6 * scale;
     if (s->object_count > 0 && (st = brm_bvh_build(s, &bvh, d)) != BRM_OK) goto fail;
     /* The preview traces its own sky rays per pixel: no sky cache. */
-    brm_shadow_opts so = {lit, largest / PREVIEW_SHADOW_TEXELS, threads, o->reference, bvh, true};
+    brm_shadow_opts so = {lit, largest * BRM_SHADOW_TEXELS_PER_CELL / PREVIEW_SHADOW_TEXELS, threads, o->reference, bvh,
+                          true};
     if ((st = brm_shadows_build(s, &so, &ss, d)) != BRM_OK) goto fail;
     j.bvh = bvh;
     j.ss = ss;
