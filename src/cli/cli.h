@@ -42,6 +42,14 @@ int brm_cli_usage(const char *cmd, const char *fmt, ...)
  * separate value; returns -1 (after printing a usage error) when the value is missing. */
 int brm_cli_opt(const char *cmd, int argc, char **argv, int *i, const char *name, const char **val);
 bool brm_cli_flag(char **argv, int i, const char *name);
+/* In a parser's loop over argv (with `int i` the index and `int r` in scope): takes option
+ * `name` into the const char *var and continues the loop, or returns BRM_EXIT_USAGE from the
+ * command when its value is missing. */
+#define BRM_CLI_TAKE(cmd, name, var)                                     \
+    if ((r = brm_cli_opt(cmd, argc, argv, &i, name, &var)) != 0) {       \
+        if (r < 0) return BRM_EXIT_USAGE;                                \
+        continue;                                                        \
+    }
 /* Strict number parsing: the whole string, finite. Return false on junk. */
 bool brm_cli_parse_double(const char *s, double *out);
 bool brm_cli_parse_u32(const char *s, uint32_t *out);

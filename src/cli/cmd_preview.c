@@ -121,11 +121,7 @@ int brm_cmd_preview(int argc, char **argv)
             return BRM_EXIT_OK;
         }
         if (brm_cli_flag(argv, i, "--no-fog-beside")) { no_beside = true; continue; }
-#define OPT(name, var)                                                       \
-        if ((r = brm_cli_opt(CMD, argc, argv, &i, name, &var)) != 0) {       \
-            if (r < 0) return BRM_EXIT_USAGE;                                \
-            continue;                                                        \
-        }
+#define OPT(name, var) BRM_CLI_TAKE(CMD, name, var)
         OPT("--target", target)
         OPT("--output", out)
         OPT("-o", out)

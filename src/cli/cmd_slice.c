@@ -70,11 +70,7 @@ int brm_cmd_slice(int argc, char **argv)
         }
         if (brm_cli_flag(argv, i, "--all")) { all = true; continue; }
         if (brm_cli_flag(argv, i, "--no-legend")) { no_legend = true; continue; }
-#define OPT(name, var)                                                       \
-        if ((r = brm_cli_opt(CMD, argc, argv, &i, name, &var)) != 0) {       \
-            if (r < 0) return BRM_EXIT_USAGE;                                \
-            continue;                                                        \
-        }
+#define OPT(name, var) BRM_CLI_TAKE(CMD, name, var)
         OPT("--channel", channels)
         OPT("--irradiance", irr)
         OPT("--axis", axis_s)
