@@ -129,6 +129,8 @@ void brv_unshuffle(const uint8_t *src, uint8_t *dst, size_t n, unsigned word_byt
 
 /* Allocator defaults. */
 void *brv_alloc(const brv_allocator *a, size_t size);
+/* The allocator the volume was opened with (NULL: malloc/free); its samplers and decoders use it. */
+const brv_allocator *brv_volume_allocator(const brv_volume *v);
 void brv_dealloc(const brv_allocator *a, void *p);
 
 #endif

@@ -43,7 +43,7 @@ struct brv_decoder {
     uint32_t *words; /* one channel of a full brick, as integer words */
 };
 
-static const brv_allocator *vol_allocator(const brv_volume *v) { return v->has_alloc ? &v->alloc : NULL; }
+const brv_allocator *brv_volume_allocator(const brv_volume *v) { return v->has_alloc ? &v->alloc : NULL; }
 
 const char *brv_result_text(brv_result r)
 {
@@ -59,7 +59,7 @@ const char *brv_result_text(brv_result r)
 void brv_free(brv_volume *v)
 {
     if (!v) return;
-    const brv_allocator *a = vol_allocator(v);
+    const brv_allocator *a = brv_volume_allocator(v);
     brv_dealloc(a, v->owned);
     brv_dealloc(a, v->slice_depths);
     brv_dealloc(a, v->metadata);
@@ -167,7 +167,7 @@ static brv_result parse(brv_volume *v)
     g->camera.far_m = cv[12];
     const uint8_t *p = t + BRV_TABLES_FIXED;
     if (sd) {
-        v->slice_depths = brv_alloc(vol_allocator(v), (size_t)sd * sizeof(double));
+        v->slice_depths = brv_alloc(brv_volume_allocator(v), (size_t)sd * sizeof(double));
         if (!v->slice_depths) return BRV_E_NOMEM;
         for (uint32_t k = 0; k < sd; k++) {
             double z = brv_rdf64(p + 8 * (size_t)k);
@@ -217,7 +217,7 @@ static brv_result parse(brv_volume *v)
 
     v->brick_table = p;
     v->brick_entry = bes;
-    span *sp = brv_alloc(vol_allocator(v), (size_t)g->brick_count * sizeof *sp);
+    span *sp = brv_alloc(brv_volume_allocator(v), (size_t)g->brick_count * sizeof *sp);
     if (!sp) return BRV_E_NOMEM;
     brv_result r = BRV_OK;
     uint64_t total = 0;
@@ -239,12 +239,12 @@ static brv_result parse(brv_volume *v)
         }
         if (r == BRV_OK && at != toff) r = BRV_E_BRICK_RANGE;
     }
-    brv_dealloc(vol_allocator(v), sp);
+    brv_dealloc(brv_volume_allocator(v), sp);
     if (r != BRV_OK) return r;
     g->brick_bytes = total;
     p += (size_t)g->brick_count * bes;
 
-    v->metadata = brv_alloc(vol_allocator(v), (size_t)msize + 1);
+    v->metadata = brv_alloc(brv_volume_allocator(v), (size_t)msize + 1);
     if (!v->metadata) return BRV_E_NOMEM;
     memcpy(v->metadata, p, msize);
     v->metadata[msize] = '\0';
@@ -359,7 +359,7 @@ brv_result brv_brick_extent(const brv_volume *v, uint32_t b, uint32_t origin[3],
 brv_result brv_decoder_create(const brv_volume *v, brv_decoder **out)
 {
     if (!v || !out) return BRV_E_ARGUMENT;
-    const brv_allocator *a = vol_allocator(v);
+    const brv_allocator *a = brv_volume_allocator(v);
     brv_decoder *d = brv_alloc(a, sizeof *d);
     if (!d) return BRV_E_NOMEM;
     memset(d, 0, sizeof *d);
@@ -379,7 +379,7 @@ brv_result brv_decoder_create(const brv_volume *v, brv_decoder **out)
 void brv_decoder_free(brv_decoder *d)
 {
     if (!d) return;
-    const brv_allocator *a = vol_allocator(d->v);
+    const brv_allocator *a = brv_volume_allocator(d->v);
     ZSTD_freeDCtx(d->dctx);
     brv_dealloc(a, d->payload);
     brv_dealloc(a, d->scratch);

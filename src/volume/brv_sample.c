@@ -35,16 +35,17 @@ brv_result brv_sampler_create(const brv_volume *v, uint32_t cache_bricks, brv_sa
     size_t per = brv_brick_size(v), total;
     if (per && (size_t)cache_bricks > (size_t)-1 / per / sizeof(float)) return BRV_E_NOMEM;
     total = per * cache_bricks;
-    brv_sampler *s = brv_alloc(NULL, sizeof *s);
+    const brv_allocator *a = brv_volume_allocator(v);
+    brv_sampler *s = brv_alloc(a, sizeof *s);
     if (!s) return BRV_E_NOMEM;
     memset(s, 0, sizeof *s);
     s->v = v;
     s->g = g;
     s->count = cache_bricks;
     s->direct = cache_bricks == g->brick_count;
-    s->slots = brv_alloc(NULL, cache_bricks * sizeof *s->slots);
-    s->pool = brv_alloc(NULL, total * sizeof(float));
-    s->scratch = brv_alloc(NULL, per * sizeof(float));
+    s->slots = brv_alloc(a, cache_bricks * sizeof *s->slots);
+    s->pool = brv_alloc(a, total * sizeof(float));
+    s->scratch = brv_alloc(a, per * sizeof(float));
     s->sets = cache_bricks >= 2 ? cache_bricks / 2 : 1;
     brv_result r = brv_decoder_create(v, &s->dec);
     if (r == BRV_OK && (!s->slots || !s->pool || !s->scratch)) r = BRV_E_NOMEM;
@@ -63,11 +64,12 @@ brv_result brv_sampler_create(const brv_volume *v, uint32_t cache_bricks, brv_sa
 void brv_sampler_free(brv_sampler *s)
 {
     if (!s) return;
+    const brv_allocator *a = brv_volume_allocator(s->v);
     brv_decoder_free(s->dec);
-    brv_dealloc(NULL, s->slots);
-    brv_dealloc(NULL, s->pool);
-    brv_dealloc(NULL, s->scratch);
-    brv_dealloc(NULL, s);
+    brv_dealloc(a, s->slots);
+    brv_dealloc(a, s->pool);
+    brv_dealloc(a, s->scratch);
+    brv_dealloc(a, s);
 }
 
 static brv_result fetch(brv_sampler *s, uint32_t b, const slot **out)

@@ -878,6 +878,33 @@ static void result_texts_should_come_from_one_list(void **state)
     assert_string_equal(brv_result_text((brv_result)999), "unknown result");
 }
 
+/* The sampler and its decoder allocate through the volume's callbacks, and give it all back. */
+static void sampler_should_allocate_through_the_volume_allocator(void **state)
+{
+    (void)state;
+    size_t size;
+    uint8_t *buf = small_file(&size);
+    counting cnt = {0};
+    brv_allocator a = {count_alloc, count_free, &cnt};
+    brv_volume *v = NULL;
+    assert_int_equal(brv_open_memory(buf, size, &a, &v), BRV_OK);
+    size_t calls_open = cnt.calls, live_open = cnt.live;
+    brv_sampler *smp = NULL;
+    assert_int_equal(brv_sampler_create(v, 4, &smp), BRV_OK);
+    assert_true(cnt.calls > calls_open);
+    assert_true(cnt.live > live_open);
+    float values[BRV_MAX_CHANNELS];
+    const brv_grid_info *g = brv_grid(v);
+    double c[3] = {0.5 * (g->bounds_min[0] + g->bounds_max[0]), 0.5 * (g->bounds_min[1] + g->bounds_max[1]),
+                   0.5 * (g->bounds_min[2] + g->bounds_max[2])};
+    assert_int_equal(brv_sample_world(smp, c, values), BRV_OK);
+    brv_sampler_free(smp);
+    assert_int_equal(cnt.live, live_open);
+    brv_free(v);
+    assert_int_equal(cnt.live, 0);
+    free(buf);
+}
+
 int main(int argc, char **argv)
 {
     golden_path = argc > 1 ? argv[1] : "golden_v1.brv";
@@ -892,6 +919,7 @@ int main(int argc, char **argv)
         cmocka_unit_test(uniform_bricks_should_cost_bytes_not_kilobytes),
         cmocka_unit_test(smooth_f16_should_compress_over_4x_against_raw_halves),
         cmocka_unit_test(writer_memory_should_not_grow_with_the_volume),
+        cmocka_unit_test(sampler_should_allocate_through_the_volume_allocator),
         cmocka_unit_test(writer_should_give_the_same_bytes_for_the_same_input),
         cmocka_unit_test(open_should_reject_every_truncation),
         cmocka_unit_test(open_should_reject_random_byte_flips),
