@@ -97,7 +97,9 @@ static void fog_free(fog_grid *f)
 }
 
 /* Radiance gathered from the fog along o + t·dir for t in [0, tmax], and the transmittance
- * over that path: slabs of half a fog cell, each integrated in closed form. */
+ * over that path: the ray walks the grid cell by cell (Amanatides & Woo 1987, "A Fast Voxel
+ * Traversal Algorithm for Ray Tracing"), each cell's stretch integrated in closed form with the
+ * cell's extinction and in-scatter. */
 static void fog_march(const fog_grid *f, brm_vec3 o, brm_vec3 dir, double tmax, double L[3], double *T)
 {
     L[0] = L[1] = L[2] = 0.0;
@@ -105,28 +107,48 @@ static void fog_march(const fog_grid *f, brm_vec3 o, brm_vec3 dir, double tmax, 
     if (!f->ext) return;
     brm_vec3 inv = brm_v3(1.0 / dir.x, 1.0 / dir.y, 1.0 / dir.z);
     double t0, t1;
-    if (!brm_ray_aabb(o, inv, f->box, 0.0, tmax, &t0, &t1)) return;
-    double step = 0.5 * fmin(f->cell.x, fmin(f->cell.y, f->cell.z));
-    double tr = 1.0;
-    for (double t = t0; t < t1; t += step) {
-        double len = t + step < t1 ? step : t1 - t;
-        brm_vec3 p = brm_madd(o, dir, t + 0.5 * len);
-        int ix = (int)((p.x - f->box.min.x) / f->cell.x), iy = (int)((p.y - f->box.min.y) / f->cell.y),
-            iz = (int)((p.z - f->box.min.z) / f->cell.z);
-        if (ix < 0) ix = 0;
-        if (iy < 0) iy = 0;
-        if (iz < 0) iz = 0;
-        if (ix >= (int)f->n[0]) ix = (int)f->n[0] - 1;
-        if (iy >= (int)f->n[1]) iy = (int)f->n[1] - 1;
-        if (iz >= (int)f->n[2]) iz = (int)f->n[2] - 1;
-        size_t c = (size_t)ix + f->n[0] * ((size_t)iy + f->n[1] * (size_t)iz);
-        double sigma = f->ext[c];
-        double tau = sigma * len, Ts = exp(-tau);
-        /* ∫ S e^(−σt) dt over the slab (REFERENCES.md §6c), limit S·len as σ → 0. */
-        double w = tau < 1e-7 ? len : (1.0 - Ts) / sigma;
-        for (int ch = 0; ch < 3; ch++) L[ch] += tr * f->ins[3 * c + (size_t)ch] * w;
-        tr *= Ts;
-        if (tr < 1e-6) break;
+    if (!brm_ray_aabb(o, inv, f->box, 0.0, tmax, &t0, &t1) || !(t1 > t0)) return;
+    brm_vec3 p = brm_madd(o, dir, t0);
+    int idx[3], stepi[3];
+    double tnext[3], tdelta[3];
+    for (int a = 0; a < 3; a++) {
+        double cell = brm_vget(f->cell, a), lo = brm_vget(f->box.min, a), d = brm_vget(dir, a);
+        int i = (int)floor((brm_vget(p, a) - lo) / cell);
+        if (i < 0) i = 0;
+        if (i >= (int)f->n[a]) i = (int)f->n[a] - 1;
+        idx[a] = i;
+        if (d > 0) {
+            stepi[a] = 1;
+            tnext[a] = t0 + (lo + (i + 1) * cell - brm_vget(p, a)) / d;
+            tdelta[a] = cell / d;
+        } else if (d < 0) {
+            stepi[a] = -1;
+            tnext[a] = t0 + (lo + i * cell - brm_vget(p, a)) / d;
+            tdelta[a] = -cell / d;
+        } else {
+            stepi[a] = 0;
+            tnext[a] = HUGE_VAL;
+            tdelta[a] = HUGE_VAL;
+        }
+    }
+    double t = t0, tr = 1.0;
+    while (t < t1) {
+        int a = tnext[0] < tnext[1] ? (tnext[0] < tnext[2] ? 0 : 2) : (tnext[1] < tnext[2] ? 1 : 2);
+        double te = tnext[a] < t1 ? tnext[a] : t1;
+        double len = te - t;
+        if (len > 0) {
+            size_t c = (size_t)idx[0] + f->n[0] * ((size_t)idx[1] + f->n[1] * (size_t)idx[2]);
+            double sigma = f->ext[c], tau = sigma * len, Ts = exp(-tau);
+            /* ∫ S e^(−σt) dt over the stretch (REFERENCES.md §6c), limit S·len as σ → 0. */
+            double w = tau < 1e-7 ? len : (1.0 - Ts) / sigma;
+            for (int ch = 0; ch < 3; ch++) L[ch] += tr * f->ins[3 * c + (size_t)ch] * w;
+            tr *= Ts;
+            if (tr < 1e-6) break;
+        }
+        t = te;
+        idx[a] += stepi[a];
+        if (idx[a] < 0 || idx[a] >= (int)f->n[a]) break;
+        tnext[a] += tdelta[a];
     }
     *T = tr;
 }
