@@ -657,8 +657,12 @@ static brm_status voxelize_grid(const brm_scene *s, const brm_grid *g, int threa
         v.slice_start[0] = 0;
     }
 
-    brm_parallel_for(g->n[2], threads, g->kind == BRM_GRID_FRUSTUM ? surface_slice_frustum : surface_slice, &v,
-                     NULL);
+    /* Both parallel passes stop when the bake is interrupted (SIGINT/SIGTERM). */
+    if (brm_parallel_for(g->n[2], threads, g->kind == BRM_GRID_FRUSTUM ? surface_slice_frustum : surface_slice, &v,
+                         &brm_interrupted) != g->n[2]) {
+        st = brm_diag_error(d, BRM_E_INTERRUPTED, "voxelizer: interrupted");
+        goto fail;
+    }
 
     /* Empty components: one query at the first cell of each decides the whole component. */
     size_t cap = 1u << 16;
@@ -678,7 +682,11 @@ static brm_status voxelize_grid(const brm_scene *s, const brm_grid *g, int threa
     for (size_t c = 0; c < cells; c++)
         if (v.state[c] == CELL_DONE_EMPTY) v.state[c] = BRM_CELL_EMPTY;
 
-    brm_parallel_for(g->n[2], threads, fraction_slice, &v, NULL);
+    if (atomic_load(&brm_interrupted) ||
+        brm_parallel_for(g->n[2], threads, fraction_slice, &v, &brm_interrupted) != g->n[2]) {
+        st = brm_diag_error(d, BRM_E_INTERRUPTED, "voxelizer: interrupted");
+        goto fail;
+    }
 
     free(stack);
     free(v.slice_start);
