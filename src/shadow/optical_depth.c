@@ -198,7 +198,22 @@ static size_t block_bytes(shadow_view *v)
     v->blk_cap = (uint32_t)((lat + BRM_OD_BLOCK_SHARE - 1) / BRM_OD_BLOCK_SHARE);
     size_t per = r1 * r1 * v->og_n[2] * 2 * sizeof(float) + (size_t)BRM_OD_REFINE * BRM_OD_REFINE * (v->og_n[2] - 1) +
                  sizeof(uint32_t) + (v->kind == BRM_VIEW_ORTHO ? 3 * r1 * r1 * sizeof(float) : 0);
-    return lat * sizeof(int32_t) + v->blk_cap * per;
+    return lat * sizeof(int32_t) + v->blk_cap * per + lat * sizeof(int32_t); /* refine, blocks, corr */
+}
+
+/* Sets the light's reserved correction pool (a share of one view's lateral cells; any of its
+ * views may draw on it: a cube's faces see very different numbers of flagged paths) and
+ * returns what it takes. The build adds what the unused blocks leave (see shadow.c). */
+static size_t corr_bytes(light_shadow *ls)
+{
+    size_t lat = (size_t)(ls->views[0].og_n[0] - 1) * (ls->views[0].og_n[1] - 1);
+    ls->corr_pool = (uint32_t)((lat + BRM_OD_CORR_SHARE - 1) / BRM_OD_CORR_SHARE);
+    return (size_t)ls->corr_pool * brm_od_corr_bytes(&ls->views[0]);
+}
+
+size_t brm_od_corr_bytes(const shadow_view *v)
+{
+    return (size_t)v->og_n[2] * BRM_OD_CORR_PTS * sizeof(float) + (v->og_n[2] - 1) + sizeof(int8_t) + sizeof(uint32_t);
 }
 
 size_t brm_od_plan(const brm_scene *s, const brm_shadow_opts *o, const media_info *mi, light_shadow *ls,
@@ -233,8 +248,9 @@ size_t brm_od_plan(const brm_scene *s, const brm_shadow_opts *o, const media_inf
         }
         for (int a = 0; a < 3; a++) axis_set(v, a, lo[a], hi[a], n[a], true);
         for (int a = 0; a < 3; a++) v->prefix_axis[a] = brm_vget(v->f, a) != 0.0;
-        return ((size_t)n[0] * n[1] * n[2] * 2 + (size_t)3 * n[0] * n[1]) * sizeof(float) +
-               (size_t)(n[0] - 1) * (n[1] - 1) * (n[2] - 1) + block_bytes(v);
+        size_t bytes = ((size_t)n[0] * n[1] * n[2] * 2 + (size_t)3 * n[0] * n[1]) * sizeof(float) +
+                       (size_t)(n[0] - 1) * (n[1] - 1) * (n[2] - 1) + block_bytes(v);
+        return bytes + corr_bytes(ls);
     }
     brm_vec3 pos = l->position;
     double rmax = 1e-3;
@@ -254,7 +270,7 @@ size_t brm_od_plan(const brm_scene *s, const brm_shadow_opts *o, const media_inf
         axis_set(v, 2, 0.0, rmax, nr, false);
         bytes += (size_t)nl * nl * nr * 2 * sizeof(float) + (size_t)(nl - 1) * (nl - 1) * (nr - 1) + block_bytes(v);
     }
-    return bytes;
+    return bytes + corr_bytes(ls);
 }
 
 /* Depth where the line o + t·f crosses the plane of the fog-bounds face that light travelling
@@ -470,6 +486,127 @@ void brm_od_fill_block(const brm_scene *s, const media_info *mi, shadow_view *v,
         }
 }
 
+/* ---- cell corrections --------------------------------------------------------------
+ *
+ * Why corrections and not more blocks: a block costs (R+1)² = 25 columns to fill and 16 to
+ * check, and 25·og_n[2]·2 floats; a correction costs 9 columns (5 taken, 4 to check) and
+ * 5·og_n[2] floats. A correction stores, per depth node, what bilinear interpolation misses
+ * (exact minus interpolated G + P) at the cell's centre and at its four edge midpoints; the
+ * corners are grid nodes, where it misses nothing. At lookup the misses are interpolated
+ * biquadratically (the Lagrange basis on 0, ½, 1 per axis, corners 0), so an error that is
+ * quadratic across the cell, as smooth optical depth is at this scale, is removed exactly.
+ * A kink crossing the cell is not quadratic: the build re-checks the corrected value at the
+ * four quarter points for every node, and the flagged intervals where it still misses
+ * BRM_OD_CHECK_TAU keep marching. On an edge the correction depends only on that edge's
+ * midpoint, which a corrected neighbour shares: two corrected cells meet continuously. */
+
+int brm_od_assign_corrections(shadow_view *v)
+{
+    uint32_t nk = v->og_n[2];
+    size_t lat = (size_t)(v->og_n[0] - 1) * (v->og_n[1] - 1);
+    v->corr_count = 0;
+    for (size_t c = 0; c < lat; c++) {
+        v->corr[c] = -1;
+        if (v->corr_count == v->corr_cap || v->refine[c] >= 0) continue;
+        const uint8_t *bad = v->od_bad + c * (nk - 1);
+        for (uint32_t k = 0; k + 1 < nk; k++)
+            if (bad[k]) {
+                v->corr[c] = (int32_t)v->corr_count++;
+                break;
+            }
+    }
+    size_t n = v->corr_count ? v->corr_count : 1;
+    v->corr_cell = malloc(n * sizeof *v->corr_cell);
+    v->corr_dg = malloc(n * nk * BRM_OD_CORR_PTS * sizeof(float));
+    v->corr_on = malloc(n * (nk - 1));
+    v->corr_face = malloc(n);
+    if (!v->corr_cell || !v->corr_dg || !v->corr_on || !v->corr_face) return 0;
+    for (size_t c = 0; c < lat; c++)
+        if (v->corr[c] >= 0) v->corr_cell[v->corr[c]] = (uint32_t)c;
+    return 1;
+}
+
+/* The entry face of the path at lateral (x, y) (ortho), −1 for persp or a miss. */
+static int lateral_face(const brm_scene *s, const shadow_view *v, double x, double y)
+{
+    if (v->kind != BRM_VIEW_ORTHO) return -1;
+    return entry_face(s, brm_add(brm_scale(v->u, x), brm_scale(v->v, y)), v->f);
+}
+
+/* The points a correction is taken at, in cell units: centre, then the edge midpoints
+ * y = 0, y = 1, x = 0, x = 1. */
+static const double corr_x[BRM_OD_CORR_PTS] = {0.5, 0.5, 0.5, 0.0, 1.0},
+                    corr_y[BRM_OD_CORR_PTS] = {0.5, 0.0, 1.0, 0.5, 0.5};
+
+/* The weights of the five stored misses at (x, y) in cell units. */
+static void corr_weights(double x, double y, double w[BRM_OD_CORR_PTS])
+{
+    double x0 = 2.0 * (x - 0.5) * (x - 1.0), xm = 4.0 * x * (1.0 - x), x1 = 2.0 * x * (x - 0.5);
+    double y0 = 2.0 * (y - 0.5) * (y - 1.0), ym = 4.0 * y * (1.0 - y), y1 = 2.0 * y * (y - 0.5);
+    w[0] = xm * ym;
+    w[1] = xm * y0;
+    w[2] = xm * y1;
+    w[3] = x0 * ym;
+    w[4] = x1 * ym;
+}
+
+void brm_od_fill_correction(const brm_scene *s, const media_info *mi, shadow_view *v, uint32_t c, float *scratch)
+{
+    const uint32_t nk = v->og_n[2], n0 = v->og_n[0], NP = BRM_OD_CORR_PTS;
+    uint32_t cell = v->corr_cell[c], ci = cell % (n0 - 1), cj = cell / (n0 - 1);
+    size_t plane = (size_t)n0 * v->og_n[1], c00 = (size_t)ci + (size_t)n0 * cj;
+    size_t cn[4] = {c00, c00 + 1, c00 + n0, c00 + n0 + 1};
+    float *dg = v->corr_dg + (size_t)c * nk * NP, *fail = scratch + 2 * (size_t)nk;
+    uint8_t *on = v->corr_on + (size_t)c * (nk - 1);
+    memset(on, 0, nk - 1);
+    for (uint32_t k = 0; k < nk * NP; k++) dg[k] = 0.0f;
+    for (uint32_t k = 0; k < nk; k++) fail[k] = 0.0f;
+    double xc = v->og_lo[0] + v->og_step[0] * ((double)ci + 0.5), yc = v->og_lo[1] + v->og_step[1] * ((double)cj + 0.5);
+    int e = lateral_face(s, v, xc, yc);
+    v->corr_face[c] = (int8_t)e;
+    if (v->kind == BRM_VIEW_ORTHO && e < 0) return; /* no face to take P from: keep marching */
+    bool need[3] = {false, false, false};
+    if (e >= 0) need[e] = true;
+    /* Points 0–4 take the misses; 5–8 (the quarter points) check the corrected value. */
+    static const double qx[4] = {0.25, 0.75, 0.25, 0.75}, qy[4] = {0.25, 0.25, 0.75, 0.75};
+    for (uint32_t q = 0; q < NP + 4; q++) {
+        double px = q < NP ? corr_x[q] : qx[q - NP], py = q < NP ? corr_y[q] : qy[q - NP];
+        double x = v->og_lo[0] + v->og_step[0] * ((double)ci + px), y = v->og_lo[1] + v->og_step[1] * ((double)cj + py);
+        if (lateral_face(s, v, x, y) != e) { /* another face there: keep marching */
+            memset(on, 0, nk - 1);
+            return;
+        }
+        float pre[3];
+        fill_column(s, mi, v, x, y, need, scratch, pre);
+        double wb[4] = {(1.0 - px) * (1.0 - py), px * (1.0 - py), (1.0 - px) * py, px * py}, wc[BRM_OD_CORR_PTS];
+        corr_weights(px, py, wc);
+        double p_int = 0.0, p_ex = 0.0;
+        if (e >= 0) {
+            for (int m = 0; m < 4; m++) p_int += wb[m] * v->prefix[e * plane + cn[m]];
+            p_ex = pre[e];
+        }
+        for (uint32_t k = 0; k < nk; k++) {
+            double g_int = 0.0;
+            for (int m = 0; m < 4; m++) g_int += wb[m] * v->od[2 * ((size_t)nk * cn[m] + k)];
+            double miss = ((double)scratch[2 * k] + p_ex) - (g_int + p_int);
+            if (q < NP) {
+                dg[(size_t)k * NP + q] = (float)miss;
+            } else {
+                double corr = 0.0;
+                for (uint32_t m = 0; m < NP; m++) corr += wc[m] * (double)dg[(size_t)k * NP + m];
+                if (fabs(miss - corr) > BRM_OD_CHECK_TAU) fail[k] = 1.0f;
+            }
+        }
+    }
+    /* The flagged intervals whose both nodes pass with the correction stop marching. */
+    uint8_t *bad = v->od_bad + (size_t)cell * (nk - 1);
+    for (uint32_t k = 0; k + 1 < nk; k++)
+        if (bad[k] && fail[k] == 0.0f && fail[k + 1] == 0.0f) {
+            bad[k] = 0;
+            on[k] = 1;
+        }
+}
+
 /* G (and for face ≥ 0 the prefix P_face) at grid coordinates (x, y, z): cubic Hermite in z
  * (values G, slopes sigma~), bilinear across paths, in the cell's block when it has one.
  * Returns 0 outside the grid or in a flagged cell. */
@@ -493,8 +630,16 @@ static int grid_eval(const shadow_view *v, double x, double y, double z, int fac
     const uint8_t *bad;
     int32_t b = v->refine ? v->refine[lat] : -1;
     double wx = w[0], wy = w[1];
+    const float *dg = NULL;
     if (b < 0) {
         bad = v->od_bad + lat * (nk - 1);
+        int32_t cr = v->corr ? v->corr[lat] : -1;
+        if (cr >= 0 && v->corr_on[(size_t)cr * (nk - 1) + c[2]]) {
+            /* The correction is what makes this interval good, and it was taken with the
+             * centre's entry face: another face marches. */
+            if (v->corr_face[cr] != face) return 0;
+            dg = v->corr_dg + ((size_t)cr * nk + c[2]) * BRM_OD_CORR_PTS;
+        }
         for (int q = 0; q < 4; q++) {
             size_t cc = (c[0] + (uint32_t)(q & 1)) + (size_t)n0 * (c[1] + (uint32_t)(q >> 1));
             col[q] = v->od + 2 * (size_t)nk * cc;
@@ -521,6 +666,12 @@ static int grid_eval(const shadow_view *v, double x, double y, double z, int fac
         double wq = (q & 1 ? wx : 1.0 - wx) * (q >> 1 ? wy : 1.0 - wy);
         g += wq * (h00 * n[0] + h10 * n[1] + h01 * n[2] + h11 * n[3]);
         if (face >= 0) pp += wq * *pre[q];
+    }
+    if (dg) {
+        double wc[BRM_OD_CORR_PTS], c0 = 0.0, c1 = 0.0;
+        corr_weights(wx, wy, wc);
+        for (uint32_t m = 0; m < BRM_OD_CORR_PTS; m++) c0 += wc[m] * dg[m], c1 += wc[m] * dg[BRM_OD_CORR_PTS + m];
+        g += (1.0 - t) * c0 + t * c1;
     }
     *g_out = g;
     if (p_out) *p_out = pp;

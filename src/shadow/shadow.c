@@ -103,6 +103,21 @@ static void block_item(void *ctx, uint32_t item, int worker)
     free(scratch);
 }
 
+static void corr_item(void *ctx, uint32_t item, int worker)
+{
+    (void)worker;
+    build_ctx *c = ctx;
+    build_item *it = &c->items[item];
+    shadow_view *v = &c->ss->lights[it->light].views[it->view];
+    float *scratch = malloc((size_t)v->og_n[2] * 3 * sizeof(float));
+    if (!scratch) { /* no correction after all: the cell keeps its flags and marches */
+        memset(v->corr_on + (size_t)it->row * (v->og_n[2] - 1), 0, v->og_n[2] - 1);
+        return;
+    }
+    brm_od_fill_correction(c->ss->scene, &c->ss->media, v, it->row, scratch);
+    free(scratch);
+}
+
 static void od_check_item(void *ctx, uint32_t item, int worker)
 {
     (void)worker;
@@ -170,8 +185,9 @@ brm_status brm_shadows_build(const brm_scene *s, const brm_shadow_opts *o, brm_s
                 v->od_bad = calloc(lat * (v->og_n[2] - 1), 1);
                 v->refine = malloc(lat * sizeof *v->refine);
                 v->blk_cell = malloc((size_t)v->blk_cap * sizeof *v->blk_cell);
+                v->corr = malloc(lat * sizeof *v->corr);
                 (void)r1;
-                if (!v->refine || !v->blk_cell) {
+                if (!v->refine || !v->blk_cell || !v->corr) {
                     st = brm_diag_error(d, BRM_E_NOMEM, "shadows: out of memory for %s's optical-depth grid",
                                         s->lights[l].json_path);
                     goto fail;
@@ -218,7 +234,7 @@ brm_status brm_shadows_build(const brm_scene *s, const brm_shadow_opts *o, brm_s
             }
 
     /* Blocks for the flagged cells, then fill them (one item per block). */
-    uint32_t n_blk = 0;
+    uint32_t n_blk = 0, n_corr = 0;
     for (uint32_t l = 0; l < s->light_count; l++)
         for (uint32_t k = 0; k < ss->lights[l].view_count; k++)
             if (ss->lights[l].has_od) {
@@ -240,6 +256,34 @@ brm_status brm_shadows_build(const brm_scene *s, const brm_shadow_opts *o, brm_s
                              (v->kind == BRM_VIEW_ORTHO ? 3 * r1 * r1 * sizeof(float) : 0);
                 ss->bytes -= (size_t)(v->blk_cap - v->blk_count) * per;
             }
+    /* The flagged cells left without a block: corrections, from the light's pool in view
+     * order (deterministic). The pool is what the estimate reserved plus what the unused
+     * blocks left, so the build stays within the estimate. */
+    for (uint32_t l = 0; l < s->light_count; l++) {
+        light_shadow *ls = &ss->lights[l];
+        if (!ls->has_od) continue;
+        size_t spare = 0, cb = brm_od_corr_bytes(&ls->views[0]), r1 = BRM_OD_REFINE + 1;
+        for (uint32_t k = 0; k < ls->view_count; k++) {
+            const shadow_view *v = &ls->views[k];
+            spare += (size_t)(v->blk_cap - v->blk_count) *
+                     (r1 * r1 * v->og_n[2] * 2 * sizeof(float) + (size_t)BRM_OD_REFINE * BRM_OD_REFINE * (v->og_n[2] - 1) +
+                      (v->kind == BRM_VIEW_ORTHO ? 3 * r1 * r1 * sizeof(float) : 0));
+        }
+        size_t pool = ls->corr_pool + spare / cb, used = 0;
+        for (uint32_t k = 0; k < ls->view_count; k++) {
+            shadow_view *v = &ls->views[k];
+            v->corr_cap = (uint32_t)(pool - used);
+            if (!brm_od_assign_corrections(v)) {
+                st = brm_diag_error(d, BRM_E_NOMEM, "shadows: out of memory for %s's optical-depth grid",
+                                    s->lights[l].json_path);
+                goto fail;
+            }
+            used += v->corr_count;
+            n_corr += v->corr_count;
+        }
+        /* The estimate counted corr_pool corrections: count the difference (≤ spare). */
+        ss->bytes = ss->bytes + used * cb - (size_t)ls->corr_pool * cb;
+    }
     items = calloc((size_t)n_blk + 1, sizeof *items);
     if (!items) {
         st = brm_diag_error(d, BRM_E_NOMEM, "shadows: out of memory");
@@ -251,6 +295,21 @@ brm_status brm_shadows_build(const brm_scene *s, const brm_shadow_opts *o, brm_s
             if (ss->lights[l].has_od)
                 for (uint32_t b = 0; b < ss->lights[l].views[k].blk_count; b++) items[ni++] = (build_item){l, k, b};
     if (brm_parallel_for(n_blk, threads, block_item, &(build_ctx){ss, items}, &brm_interrupted) != n_blk) {
+        st = brm_diag_error(d, BRM_E_INTERRUPTED, "shadows: interrupted while building the light maps");
+        goto fail;
+    }
+    free(items);
+    items = calloc((size_t)n_corr + 1, sizeof *items);
+    if (!items) {
+        st = brm_diag_error(d, BRM_E_NOMEM, "shadows: out of memory");
+        goto fail;
+    }
+    ni = 0;
+    for (uint32_t l = 0; l < s->light_count; l++)
+        for (uint32_t k = 0; k < ss->lights[l].view_count; k++)
+            if (ss->lights[l].has_od)
+                for (uint32_t c = 0; c < ss->lights[l].views[k].corr_count; c++) items[ni++] = (build_item){l, k, c};
+    if (brm_parallel_for(n_corr, threads, corr_item, &(build_ctx){ss, items}, &brm_interrupted) != n_corr) {
         st = brm_diag_error(d, BRM_E_INTERRUPTED, "shadows: interrupted while building the light maps");
         goto fail;
     }
@@ -303,6 +362,11 @@ void brm_shadows_free(brm_shadow_set *ss)
             free(ss->lights[l].views[k].blk_od);
             free(ss->lights[l].views[k].blk_pre);
             free(ss->lights[l].views[k].blk_bad);
+            free(ss->lights[l].views[k].corr);
+            free(ss->lights[l].views[k].corr_cell);
+            free(ss->lights[l].views[k].corr_dg);
+            free(ss->lights[l].views[k].corr_on);
+            free(ss->lights[l].views[k].corr_face);
         }
     free(ss->lights);
     brm_sky_cache_free(&ss->sky_grid);

@@ -26,6 +26,12 @@
 #define BRM_OD_CHECK_TAU 0.003
 #define BRM_OD_REFINE 4u
 #define BRM_OD_BLOCK_SHARE 32u  /* at most one lateral cell in 32 gets a block (what is left marches) */
+/* Cell corrections (5·og_n[2] floats + og_n[2] bytes each): a light's views together get one
+ * per BRM_OD_CORR_SHARE lateral cells of one view, reserved by the estimate, plus as many as
+ * the memory its views' unused blocks leave would hold (reserved too). Common practice, no
+ * source: the cap bounds the memory estimate; flagged cells beyond it keep marching. */
+#define BRM_OD_CORR_SHARE 8u
+#define BRM_OD_CORR_PTS 5u     /* misses stored per node: centre and four edge midpoints */
 /* Spots wider than this (outer half-angle, degrees) use six cube faces instead of one
  * perspective map, whose texels would stretch too much toward the rim. */
 #define BRM_SPOT_CUBE_DEG 60.0
@@ -64,7 +70,8 @@ typedef struct shadow_view {
     float *prefix;              /* 3 · og_n[0] · og_n[1], axis-major; NULL for persp */
     bool prefix_axis[3];
     /* per lateral cell and depth interval: 1 where the build found interpolation off by more
-     * than BRM_OD_CHECK_TAU (paths grazing a fade or an edge): lookups there march instead */
+     * than BRM_OD_CHECK_TAU (paths grazing a fade or an edge): lookups there march instead;
+     * cleared where a cell correction (below) passed its re-check */
     uint8_t *od_bad;            /* (og_n[0] − 1) · (og_n[1] − 1) · (og_n[2] − 1) */
     /* Flagged lateral cells get a block of (R+1)² columns, R = BRM_OD_REFINE per side, checked
      * again at their sub-cell centres; up to blk_cap blocks (a fixed share of the cells: the
@@ -76,6 +83,18 @@ typedef struct shadow_view {
     float *blk_od;              /* blk_cap · (R+1)² columns · og_n[2] · 2 */
     float *blk_pre;             /* ortho: blk_cap · 3 · (R+1)² */
     uint8_t *blk_bad;           /* blk_cap · R² · (og_n[2] − 1) */
+    /* Flagged cells left without a block get a correction (brm_od_fill_correction): per
+     * depth node what bilinear interpolation misses at the cell's centre and edge midpoints,
+     * interpolated biquadratically across the cell and added at lookup in the flagged
+     * intervals where it passed a re-check at the four quarter points; those are cleared in
+     * od_bad, the others keep marching. Up to corr_cap (what the light's pool has left
+     * when the view's turn comes). */
+    int32_t *corr;              /* per lateral cell: its correction, or −1 */
+    uint32_t corr_cap, corr_count;
+    uint32_t *corr_cell;        /* per correction: its lateral cell */
+    int8_t *corr_face;          /* ortho: the entry face the correction was taken with (−1 persp) */
+    float *corr_dg;             /* corr_count · og_n[2] · BRM_OD_CORR_PTS, the points fastest */
+    uint8_t *corr_on;           /* corr_count · (og_n[2] − 1): 1 where the correction applies */
 } shadow_view;
 /* The grids store G = ∫ sigma~ along the path from the first depth node (ortho) or from the
  * light (persp), where sigma~(q) = sigma_t(q clamped into the fog bounds): sigma_t continued
@@ -92,6 +111,8 @@ typedef struct light_shadow {
     bool has_map;               /* shadows on and there is geometry */
     bool has_od;                /* media present */
     bool cube;                  /* six faces (point lights, wide spots) */
+    uint32_t corr_pool;         /* cell corrections the estimate reserves for the light's
+                                   views (the build adds what unused blocks leave) */
     uint32_t view_count;
     double softness;            /* PCF radius in texels */
     double texel_size;          /* world size of a texel near the target (m) */
@@ -167,6 +188,15 @@ void brm_od_check_row(const brm_scene *s, const media_info *mi, shadow_view *v, 
 void brm_od_assign_blocks(shadow_view *v);
 /* Fills and checks block b. scratch holds 2·og_n[2] floats. */
 void brm_od_fill_block(const brm_scene *s, const media_info *mi, shadow_view *v, uint32_t b, float *scratch);
+/* After every view's blocks are assigned: hands up to corr_cap corrections to the flagged
+ * cells that have no block, in row order (deterministic), and allocates them. Returns 0 when
+ * out of memory. */
+int brm_od_assign_corrections(shadow_view *v);
+/* Fills and re-checks correction c (clears the od_bad intervals it fixes). scratch holds
+ * 3·og_n[2] floats. */
+void brm_od_fill_correction(const brm_scene *s, const media_info *mi, shadow_view *v, uint32_t c, float *scratch);
+/* Bytes one correction takes. */
+size_t brm_od_corr_bytes(const shadow_view *v);
 /* Optical depth at p from the grid; returns 0 and leaves *tau when p is outside it. */
 int brm_od_lookup(const brm_scene *s, const shadow_view *v, brm_vec3 p, double *tau);
 
