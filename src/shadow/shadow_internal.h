@@ -26,11 +26,13 @@
 #define BRM_OD_CHECK_TAU 0.003
 #define BRM_OD_REFINE 4u
 #define BRM_OD_BLOCK_SHARE 32u  /* at most one lateral cell in 32 gets a block (what is left marches) */
-/* Cell corrections (5·og_n[2] floats + og_n[2] bytes each): a light's views together get one
- * per BRM_OD_CORR_SHARE lateral cells of one view, reserved by the estimate, plus as many as
- * the memory its views' unused blocks leave would hold (reserved too). Common practice, no
- * source: the cap bounds the memory estimate; flagged cells beyond it keep marching. */
+/* Cell corrections (5·og_n[2] floats + og_n[2] bytes each): a one-view light gets one per
+ * BRM_OD_CORR_SHARE lateral cells, a cube's faces together one per BRM_OD_CORR_SHARE_CUBE of
+ * all their cells, reserved by the estimate, plus as many as the memory its views' unused
+ * blocks leave would hold (reserved too). Common practice, no source: the caps bound the
+ * memory estimate; flagged cells beyond them keep marching. */
 #define BRM_OD_CORR_SHARE 8u
+#define BRM_OD_CORR_SHARE_CUBE 12u
 #define BRM_OD_CORR_PTS 5u     /* misses stored per node: centre and four edge midpoints */
 /* Spots wider than this (outer half-angle, degrees) use six cube faces instead of one
  * perspective map, whose texels would stretch too much toward the rim. */
