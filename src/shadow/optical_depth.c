@@ -226,8 +226,15 @@ size_t brm_od_plan(const brm_scene *s, const brm_shadow_opts *o, const media_inf
 {
     ls->has_od = ls->active && mi->any && brm_media_any_in(s, o->bounds);
     if (!ls->has_od) return 0;
+    /* Lookups come from samples in fog, so the grid need cover only the target's part of the
+     * fog bounds (a frustum's bounding box reaches far outside them; covering it all starved
+     * the lateral resolution and sent most lookups to the fallback march). */
+    brm_aabb gb = o->bounds;
+    gb.min = brm_vmax(gb.min, s->fog_bounds.min);
+    gb.max = brm_vmin(gb.max, s->fog_bounds.max);
+    if (!(gb.min.x <= gb.max.x && gb.min.y <= gb.max.y && gb.min.z <= gb.max.z)) gb = o->bounds;
     brm_vec3 c[8];
-    box_corners(o->bounds, c);
+    box_corners(gb, c);
     /* Spacing: optical depth varies across paths on the lateral feature scale and along a
      * path on the fine one; Hermite interpolation along the path (the derivative of tau is
      * sigma_t, stored too) makes half a feature per node ample. */
