@@ -135,6 +135,27 @@ static void od_check_item(void *ctx, uint32_t item, int worker)
     free(scratch);
 }
 
+static uint32_t blocks_of(const shadow_view *v) { return v->blk_count; }
+static uint32_t corrections_of(const shadow_view *v) { return v->corr_count; }
+
+/* Runs fn on one work item per (light, view, i < count(view)) of the views with grids, listed
+ * in light and view order (so results do not depend on which thread takes which). */
+static brm_status run_per_view(brm_shadow_set *ss, uint32_t total, uint32_t (*count)(const shadow_view *),
+                               brm_item_fn fn, int threads, brm_diag *d)
+{
+    build_item *items = calloc((size_t)total + 1, sizeof *items);
+    if (!items) return brm_diag_error(d, BRM_E_NOMEM, "shadows: out of memory");
+    uint32_t ni = 0;
+    for (uint32_t l = 0; l < ss->light_count; l++)
+        for (uint32_t k = 0; k < ss->lights[l].view_count; k++)
+            if (ss->lights[l].has_od)
+                for (uint32_t i = 0; i < count(&ss->lights[l].views[k]); i++) items[ni++] = (build_item){l, k, i};
+    uint32_t ran = brm_parallel_for(total, threads, fn, &(build_ctx){ss, items}, &brm_interrupted);
+    free(items);
+    if (ran != total) return brm_diag_error(d, BRM_E_INTERRUPTED, "shadows: interrupted while building the light maps");
+    return BRM_OK;
+}
+
 brm_status brm_shadows_build(const brm_scene *s, const brm_shadow_opts *o, brm_shadow_set **out, brm_diag *d)
 {
     BRM_CHECK(d, s && o && out, BRM_E_INTERNAL, "shadows: missing scene, options or output");
@@ -284,37 +305,9 @@ brm_status brm_shadows_build(const brm_scene *s, const brm_shadow_opts *o, brm_s
         /* The estimate counted corr_pool corrections: count the difference (≤ spare). */
         ss->bytes = ss->bytes + used * cb - (size_t)ls->corr_pool * cb;
     }
-    items = calloc((size_t)n_blk + 1, sizeof *items);
-    if (!items) {
-        st = brm_diag_error(d, BRM_E_NOMEM, "shadows: out of memory");
+    if ((st = run_per_view(ss, n_blk, blocks_of, block_item, threads, d)) != BRM_OK ||
+        (st = run_per_view(ss, n_corr, corrections_of, corr_item, threads, d)) != BRM_OK)
         goto fail;
-    }
-    ni = 0;
-    for (uint32_t l = 0; l < s->light_count; l++)
-        for (uint32_t k = 0; k < ss->lights[l].view_count; k++)
-            if (ss->lights[l].has_od)
-                for (uint32_t b = 0; b < ss->lights[l].views[k].blk_count; b++) items[ni++] = (build_item){l, k, b};
-    if (brm_parallel_for(n_blk, threads, block_item, &(build_ctx){ss, items}, &brm_interrupted) != n_blk) {
-        st = brm_diag_error(d, BRM_E_INTERRUPTED, "shadows: interrupted while building the light maps");
-        goto fail;
-    }
-    free(items);
-    items = calloc((size_t)n_corr + 1, sizeof *items);
-    if (!items) {
-        st = brm_diag_error(d, BRM_E_NOMEM, "shadows: out of memory");
-        goto fail;
-    }
-    ni = 0;
-    for (uint32_t l = 0; l < s->light_count; l++)
-        for (uint32_t k = 0; k < ss->lights[l].view_count; k++)
-            if (ss->lights[l].has_od)
-                for (uint32_t c = 0; c < ss->lights[l].views[k].corr_count; c++) items[ni++] = (build_item){l, k, c};
-    if (brm_parallel_for(n_corr, threads, corr_item, &(build_ctx){ss, items}, &brm_interrupted) != n_corr) {
-        st = brm_diag_error(d, BRM_E_INTERRUPTED, "shadows: interrupted while building the light maps");
-        goto fail;
-    }
-    free(items);
-    items = NULL;
 
     /* Sky. */
     ss->sky_present = s->sky.present;
