@@ -42,6 +42,8 @@ int brm_cli_usage(const char *cmd, const char *fmt, ...)
  * separate value; returns -1 (after printing a usage error) when the value is missing. */
 int brm_cli_opt(const char *cmd, int argc, char **argv, int *i, const char *name, const char **val);
 bool brm_cli_flag(char **argv, int i, const char *name);
+/* Whether s ends in suffix, ignoring case (".PPM" counts as ".ppm"). */
+bool brm_cli_ends_with(const char *s, const char *suffix);
 /* In a parser's loop over argv (with `int i` the index and `int r` in scope): takes option
  * `name` into the const char *var and continues the loop, or returns BRM_EXIT_USAGE from the
  * command when its value is missing. */

@@ -4,6 +4,7 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <strings.h>
 
 #include "cli/cli.h"
 
@@ -48,6 +49,12 @@ int brm_cli_opt(const char *cmd, int argc, char **argv, int *i, const char *name
 }
 
 bool brm_cli_flag(char **argv, int i, const char *name) { return strcmp(argv[i], name) == 0; }
+
+bool brm_cli_ends_with(const char *s, const char *suffix)
+{
+    size_t a = strlen(s), b = strlen(suffix);
+    return a >= b && strcasecmp(s + a - b, suffix) == 0;
+}
 
 bool brm_cli_parse_double(const char *s, double *out)
 {

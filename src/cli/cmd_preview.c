@@ -4,7 +4,6 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
-#include <strings.h>
 #include <sys/stat.h>
 
 #include "bake/bake.h"
@@ -53,11 +52,6 @@ static void help(FILE *f)
             "2 usage error (flags, unknown target), 3 cannot read or write a file (a missing volume).\n");
 }
 
-static bool ends_with(const char *s, const char *suffix)
-{
-    size_t a = strlen(s), b = strlen(suffix);
-    return a >= b && strcasecmp(s + a - b, suffix) == 0;
-}
 
 /* "X,Y,Z" with three finite numbers. */
 static bool parse_vec(const char *s, brm_vec3 *out)
@@ -140,7 +134,7 @@ int brm_cmd_preview(int argc, char **argv)
     if (scene_path == NULL) return brm_cli_usage(CMD, "no scene given; give SCENE.json");
     if (target == NULL) return brm_cli_usage(CMD, "missing --target NAME");
     if (out == NULL) return brm_cli_usage(CMD, "missing -o OUT.ppm");
-    if (!ends_with(out, ".ppm")) return brm_cli_usage(CMD, "-o '%s': the name must end in .ppm", out);
+    if (!brm_cli_ends_with(out, ".ppm")) return brm_cli_usage(CMD, "-o '%s': the name must end in .ppm", out);
 
     brm_preview_opts o;
     memset(&o, 0, sizeof o);

@@ -2,7 +2,6 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
-#include <strings.h>
 
 #include "base/atomic_file.h"
 #include "base/diag.h"
@@ -50,11 +49,6 @@ static void help(FILE *f)
             "channel, index out of range), 3 cannot read or write a file.\n");
 }
 
-static bool ends_with(const char *s, const char *suffix)
-{
-    size_t a = strlen(s), b = strlen(suffix);
-    return a >= b && strcasecmp(s + a - b, suffix) == 0;
-}
 
 int brm_cmd_slice(int argc, char **argv)
 {
@@ -97,8 +91,8 @@ int brm_cmd_slice(int argc, char **argv)
         return brm_cli_usage(CMD, "--index '%s' is not a slice number; give an integer from 0", index_s);
     o.all = all;
     if (out == NULL) return brm_cli_usage(CMD, "missing -o OUT.ppm or OUT.pfm");
-    if (ends_with(out, ".pfm")) o.pfm = true;
-    else if (!ends_with(out, ".ppm")) return brm_cli_usage(CMD, "-o '%s': the name must end in .ppm or .pfm", out);
+    if (brm_cli_ends_with(out, ".pfm")) o.pfm = true;
+    else if (!brm_cli_ends_with(out, ".ppm")) return brm_cli_usage(CMD, "-o '%s': the name must end in .ppm or .pfm", out);
     if (scale_s != NULL && (!brm_cli_parse_u32(scale_s, &o.scale) || o.scale < 1 || o.scale > 64))
         return brm_cli_usage(CMD, "--scale '%s' is not a magnification; give an integer from 1 to 64", scale_s);
     if (exposure_s != NULL) {

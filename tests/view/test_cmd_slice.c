@@ -25,28 +25,10 @@ static float value_at(uint32_t i, uint32_t j, uint32_t k) { return (float)(i + 1
 /* Runs brume slice with the NULL-terminated arguments; stderr is captured in err_text. */
 static int run(const char *first, ...)
 {
-    char *argv[32];
-    int argc = 0;
-    argv[argc++] = (char *)"slice";
     va_list ap;
     va_start(ap, first);
-    for (const char *a = first; a != NULL && argc < 31; a = va_arg(ap, const char *)) argv[argc++] = (char *)a;
+    int rc = run_command_v(brm_cmd_slice, "slice", "view_cmd_stderr.txt", err_text, sizeof err_text, first, ap);
     va_end(ap);
-    argv[argc] = NULL;
-    fflush(stdout);
-    fflush(stderr);
-    int saved = dup(2);
-    int fd = open("view_cmd_stderr.txt", O_CREAT | O_TRUNC | O_WRONLY, 0644);
-    dup2(fd, 2);
-    close(fd);
-    int rc = brm_cmd_slice(argc, argv);
-    fflush(stderr);
-    dup2(saved, 2);
-    close(saved);
-    FILE *f = fopen("view_cmd_stderr.txt", "rb");
-    size_t n = f ? fread(err_text, 1, sizeof err_text - 1, f) : 0;
-    err_text[n] = '\0';
-    if (f) fclose(f);
     return rc;
 }
 

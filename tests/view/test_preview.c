@@ -23,6 +23,7 @@
 #include "base/atomic_file.h"
 #include "view/tone.h"
 #include "voxel/grid.h"
+#include "view_test_util.h"
 
 /* ---- hand-built scenes ------------------------------------------------------------------ */
 
@@ -734,28 +735,10 @@ static char err_text[8192];
 /* Runs brume preview with the NULL-terminated arguments; stderr goes to err_text. */
 static int run_cmd(const char *first, ...)
 {
-    char *argv[32];
-    int argc = 0;
-    argv[argc++] = (char *)"preview";
     va_list ap;
     va_start(ap, first);
-    for (const char *a = first; a != NULL && argc < 31; a = va_arg(ap, const char *)) argv[argc++] = (char *)a;
+    int rc = run_command_v(brm_cmd_preview, "preview", "stderr.txt", err_text, sizeof err_text, first, ap);
     va_end(ap);
-    argv[argc] = NULL;
-    fflush(stdout);
-    fflush(stderr);
-    int saved = dup(2);
-    int fd = open("stderr.txt", O_CREAT | O_TRUNC | O_WRONLY, 0644);
-    dup2(fd, 2);
-    close(fd);
-    int rc = brm_cmd_preview(argc, argv);
-    fflush(stderr);
-    dup2(saved, 2);
-    close(saved);
-    FILE *f = fopen("stderr.txt", "rb");
-    size_t n = f ? fread(err_text, 1, sizeof err_text - 1, f) : 0;
-    err_text[n] = '\0';
-    if (f) fclose(f);
     return rc;
 }
 

@@ -3,9 +3,13 @@
 #ifndef BRM_VIEW_TEST_UTIL_H
 #define BRM_VIEW_TEST_UTIL_H
 
+#include <fcntl.h>
+#include <stdarg.h>
 #include <stdint.h>
+#include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <unistd.h>
 
 typedef struct parsed_image {
     char magic[3];
@@ -42,6 +46,33 @@ static inline float pfm_sample(const uint8_t *raster, size_t s)
     float f;
     memcpy(&f, &u, 4);
     return f;
+}
+
+/* Runs a command function (brm_cmd_slice, brm_cmd_preview, ...) with argv = {name, the
+ * arguments of ap up to NULL}; its stderr goes through the file stderr_path into err (size n). */
+static inline int run_command_v(int (*cmd)(int, char **), const char *name, const char *stderr_path, char *err,
+                                size_t n, const char *first, va_list ap)
+{
+    char *argv[32];
+    int argc = 0;
+    argv[argc++] = (char *)name;
+    for (const char *a = first; a != NULL && argc < 31; a = va_arg(ap, const char *)) argv[argc++] = (char *)a;
+    argv[argc] = NULL;
+    fflush(stdout);
+    fflush(stderr);
+    int saved = dup(2);
+    int fd = open(stderr_path, O_CREAT | O_TRUNC | O_WRONLY, 0644);
+    dup2(fd, 2);
+    close(fd);
+    int rc = cmd(argc, argv);
+    fflush(stderr);
+    dup2(saved, 2);
+    close(saved);
+    FILE *f = fopen(stderr_path, "rb");
+    size_t got = f ? fread(err, 1, n - 1, f) : 0;
+    err[got] = '\0';
+    if (f) fclose(f);
+    return rc;
 }
 
 #endif
