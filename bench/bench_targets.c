@@ -1,6 +1,8 @@
 /* Frustum and probe bakes at the sizes their issues name, on the demo scene's geometry:
  *
- *   build/bench/bench_targets [SCENE.json]
+ *   build/bench/bench_targets [frustum|probes] [SCENE.json]
+ *
+ * (a part's name bakes that part only; the lights are set up the same way either way)
  *
  * - frustum: 160×90×128 froxels, 4 samples, one sun and eight local lights of 15 m range spread
  *   through the frustum, all casting shadows, the scene's fog: froxel·light·samples per second
@@ -41,6 +43,9 @@ static int find(const brm_scene *s, brm_grid_kind k)
 
 int main(int argc, char **argv)
 {
+    int do_frustum = 1, do_probes = 1;
+    if (argc > 1 && strcmp(argv[1], "frustum") == 0) do_probes = 0, argc--, argv++;
+    else if (argc > 1 && strcmp(argv[1], "probes") == 0) do_frustum = 0, argc--, argv++;
     const char *path = argc > 1 ? argv[1] : BRUME_SOURCE_ROOT "/scenes/saltworks-dusk.json";
     brm_diag d;
     brm_diag_init(&d);
@@ -85,9 +90,10 @@ int main(int argc, char **argv)
         l->softness_texels = 1.5;
         snprintf(l->json_path, sizeof l->json_path, "lights[%d]", 1 + i);
     }
-    printf("frustum %ux%ux%u, %u samples, 1 sun + 8 point lights (15 m), shadows on, fog of the demo\n", ft->cells[0],
-           ft->cells[1], ft->cells[2], ft->samples);
-    for (int th = 1; th <= 2; th++) {
+    if (do_frustum)
+        printf("frustum %ux%ux%u, %u samples, 1 sun + 8 point lights (15 m), shadows on, fog of the demo\n",
+               ft->cells[0], ft->cells[1], ft->cells[2], ft->samples);
+    for (int th = 1; th <= 2 && do_frustum; th++) {
         brm_bake_stats st = run(s, (uint32_t)f, th, out);
         printf("  -j%d: %6.2f s (shadow maps %.2f s), %6.2f M froxel-light-samples/s\n", th, st.seconds, st.shadow_seconds,
                st.light_samples / st.seconds / 1e6);
@@ -105,7 +111,7 @@ int main(int argc, char **argv)
     pt->spacing_m = 0.5;
     pt->rays = 256;
     uint32_t media = s->medium_count;
-    for (int fog = 0; fog <= 1; fog++) {
+    for (int fog = 0; fog <= 1 && do_probes; fog++) {
         s->medium_count = fog ? media : 0;
         printf("probes 32x8x32 at 0.5 m, 256 rays, bounce on, %s\n", fog ? "with the demo's fog" : "without fog");
         for (int th = 1; th <= 2; th++) {
