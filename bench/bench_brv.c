@@ -240,6 +240,16 @@ int main(int argc, char **argv)
         free(f16.bytes);
         return 0;
     }
+    if (argc > 2 && strcmp(argv[2], "decode") == 0) {
+        vol f32 = write_volume(BRV_ENCODING_F32, BRV_ENCODING_F32, 9);
+        vol f16 = write_volume(BRV_ENCODING_F16, BRV_ENCODING_F16, 9);
+        printf("decode of the whole volume, %u^3 cells, 4 channels\n", N);
+        decode_bench("f32", &f32);
+        decode_bench("f16", &f16);
+        free(f32.bytes);
+        free(f16.bytes);
+        return 0;
+    }
     if (N < 16 || N % 16) {
         fprintf(stderr, "usage: bench_brv [N], N a multiple of 16\n");
         return 2;

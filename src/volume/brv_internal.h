@@ -127,6 +127,12 @@ void brv_delta_decode(uint8_t *words, size_t n, unsigned word_bytes, uint32_t nx
 void brv_shuffle(const uint8_t *src, uint8_t *dst, size_t n, unsigned word_bytes);
 void brv_unshuffle(const uint8_t *src, uint8_t *dst, size_t n, unsigned word_bytes);
 
+/* The inverse filters of one group, fused with the conversion (unfilter.c): n words of a
+ * brick with rows of nx cells, byte planes at src, scale 2^ex, floats to out (rgb9e5: three
+ * planes of n). simd = 0 forces the scalar reference, which the tests compare against. */
+void brv_unfilter_f16(const uint8_t *src, size_t n, uint32_t nx, int ex, float *out, int simd);
+void brv_unfilter_w32(const uint8_t *src, size_t n, uint32_t nx, int ex, uint32_t code, float *out, int simd);
+
 /* Allocator defaults. */
 void *brv_alloc(const brv_allocator *a, size_t size);
 /* The allocator the volume was opened with (NULL: malloc/free); its samplers and decoders use it. */

@@ -40,7 +40,6 @@ struct brv_decoder {
     ZSTD_DCtx *dctx;
     uint8_t *payload;
     float *scratch; /* one full brick, every channel */
-    uint32_t *words; /* one channel of a full brick, as integer words */
 };
 
 const brv_allocator *brv_volume_allocator(const brv_volume *v) { return v->has_alloc ? &v->alloc : NULL; }
@@ -367,8 +366,7 @@ brv_result brv_decoder_create(const brv_volume *v, brv_decoder **out)
     d->dctx = ZSTD_createDCtx();
     d->payload = brv_alloc(a, v->payload_max);
     d->scratch = brv_alloc(a, brv_brick_size(v) * sizeof(float));
-    d->words = brv_alloc(a, (size_t)v->grid.brick_size * v->grid.brick_size * v->grid.brick_size * sizeof(uint32_t));
-    if (!d->dctx || !d->payload || !d->scratch || !d->words) {
+    if (!d->dctx || !d->payload || !d->scratch) {
         brv_decoder_free(d);
         return BRV_E_NOMEM;
     }
@@ -383,140 +381,7 @@ void brv_decoder_free(brv_decoder *d)
     ZSTD_freeDCtx(d->dctx);
     brv_dealloc(a, d->payload);
     brv_dealloc(a, d->scratch);
-    brv_dealloc(a, d->words);
     brv_dealloc(a, d);
-}
-
-/* Decodes one group's words into floats in two passes: the byte planes are merged and the
- * x-row prefix sums taken into integer words, then the words are converted. With SSE2 (every
- * x86-64) both passes run 8 cells at a time; the scalar code is the reference and the rest of
- * the world's path, and the tests check both give the same bits. */
-#if defined(__SSE2__)
-#include <emmintrin.h>
-
-/* Prefix sum of 8 u16 lanes, plus the carry from the row so far. */
-static inline __m128i prefix8(__m128i v, __m128i carry)
-{
-    v = _mm_add_epi16(v, _mm_slli_si128(v, 2));
-    v = _mm_add_epi16(v, _mm_slli_si128(v, 4));
-    v = _mm_add_epi16(v, _mm_slli_si128(v, 8));
-    return _mm_add_epi16(v, carry);
-}
-
-/* 4 halves (in the low 16 bits of each 32-bit lane) to floats, as brv_f16_to_f32. */
-static inline __m128 half4(__m128i h)
-{
-    __m128i em = _mm_slli_epi32(_mm_and_si128(h, _mm_set1_epi32(0x7FFF)), 13);
-    __m128i sign = _mm_slli_epi32(_mm_and_si128(h, _mm_set1_epi32(0x8000)), 16);
-    __m128i normal = _mm_castps_si128(_mm_mul_ps(_mm_castsi128_ps(em), _mm_set1_ps(5.192296858534828e33f)));
-    __m128i special = _mm_or_si128(_mm_set1_epi32(0x7F800000), _mm_and_si128(em, _mm_set1_epi32(0x7FFFFF)));
-    __m128i is_special = _mm_cmpgt_epi32(em, _mm_set1_epi32((0x7C00 << 13) - 1));
-    __m128i bits = _mm_or_si128(_mm_and_si128(is_special, special), _mm_andnot_si128(is_special, normal));
-    return _mm_castsi128_ps(_mm_or_si128(bits, sign));
-}
-#endif
-
-static void decode_f16(const uint8_t *restrict src, size_t n, uint32_t nx, float sc, uint16_t *restrict w,
-                       float *restrict out)
-{
-    const uint8_t *lo = src, *hi = src + n;
-    size_t i = 0;
-#if defined(__SSE2__)
-    if (nx % 8 == 0) {
-        const __m128i zero = _mm_setzero_si128();
-        for (size_t row = 0; row < n; row += nx) {
-            __m128i carry = zero;
-            for (size_t x = 0; x < nx; x += 8) {
-                __m128i l = _mm_loadl_epi64((const __m128i *)(const void *)(lo + row + x));
-                __m128i h = _mm_loadl_epi64((const __m128i *)(const void *)(hi + row + x));
-                __m128i v = prefix8(_mm_unpacklo_epi8(l, h), carry);
-                carry = _mm_shuffle_epi32(_mm_shufflehi_epi16(v, 0xFF), 0xFF); /* lane 7 everywhere */
-                __m128 f0 = half4(_mm_unpacklo_epi16(v, zero)), f1 = half4(_mm_unpackhi_epi16(v, zero));
-                __m128 s4 = _mm_set1_ps(sc);
-                _mm_storeu_ps(out + row + x, _mm_mul_ps(f0, s4));
-                _mm_storeu_ps(out + row + x + 4, _mm_mul_ps(f1, s4));
-            }
-        }
-        return;
-    }
-#endif
-    for (size_t row = 0; row < n; row += nx) {
-        uint16_t prev = 0;
-        for (i = row; i < row + nx; i++) {
-            prev = (uint16_t)(prev + (uint16_t)(lo[i] | (hi[i] << 8)));
-            w[i] = prev;
-        }
-    }
-    for (i = 0; i < n; i++) out[i] = brv_f16_to_f32(w[i]) * sc;
-}
-
-#if defined(__SSE2__)
-/* 4 words from 4 byte planes at index i, little-endian. */
-static inline __m128i words4(const uint8_t *b0, const uint8_t *b1, const uint8_t *b2, const uint8_t *b3, size_t i)
-{
-    int32_t x0, x1, x2, x3;
-    memcpy(&x0, b0 + i, 4);
-    memcpy(&x1, b1 + i, 4);
-    memcpy(&x2, b2 + i, 4);
-    memcpy(&x3, b3 + i, 4);
-    __m128i lo = _mm_unpacklo_epi8(_mm_cvtsi32_si128(x0), _mm_cvtsi32_si128(x1));
-    __m128i hi = _mm_unpacklo_epi8(_mm_cvtsi32_si128(x2), _mm_cvtsi32_si128(x3));
-    return _mm_unpacklo_epi16(lo, hi);
-}
-#endif
-
-static void decode_w32(const uint8_t *restrict src, size_t n, uint32_t nx, float sc, uint32_t code,
-                       uint32_t *restrict w, float *restrict out)
-{
-    const uint8_t *b0 = src, *b1 = src + n, *b2 = src + 2 * n, *b3 = src + 3 * n;
-#if defined(__SSE2__)
-    if (nx % 4 == 0) {
-        const __m128 s4 = _mm_set1_ps(sc);
-        const __m128i m9 = _mm_set1_epi32(0x1FF), bias = _mm_set1_epi32(103);
-        for (size_t row = 0; row < n; row += nx) {
-            __m128i carry = _mm_setzero_si128();
-            for (size_t i = row; i < row + nx; i += 4) {
-                __m128i v = words4(b0, b1, b2, b3, i);
-                v = _mm_add_epi32(v, _mm_slli_si128(v, 4));
-                v = _mm_add_epi32(v, _mm_slli_si128(v, 8));
-                v = _mm_add_epi32(v, carry);
-                carry = _mm_shuffle_epi32(v, 0xFF);
-                if (code == BRV_ENCODING_F32) {
-                    _mm_storeu_ps(out + i, _mm_castsi128_ps(v));
-                } else {
-                    __m128 q = _mm_mul_ps(_mm_castsi128_ps(_mm_slli_epi32(_mm_add_epi32(_mm_srli_epi32(v, 27), bias), 23)), s4);
-                    _mm_storeu_ps(out + i, _mm_mul_ps(_mm_cvtepi32_ps(_mm_and_si128(v, m9)), q));
-                    _mm_storeu_ps(out + n + i, _mm_mul_ps(_mm_cvtepi32_ps(_mm_and_si128(_mm_srli_epi32(v, 9), m9)), q));
-                    _mm_storeu_ps(out + 2 * n + i, _mm_mul_ps(_mm_cvtepi32_ps(_mm_and_si128(_mm_srli_epi32(v, 18), m9)), q));
-                }
-            }
-        }
-        return;
-    }
-#endif
-    for (size_t row = 0; row < n; row += nx) {
-        uint32_t prev = 0;
-        if (code == BRV_ENCODING_F32) { /* the words are the float bits: straight to out */
-            for (size_t i = row; i < row + nx; i++) {
-                prev += (uint32_t)b0[i] | ((uint32_t)b1[i] << 8) | ((uint32_t)b2[i] << 16) | ((uint32_t)b3[i] << 24);
-                out[i] = brv_bits_f32(prev);
-            }
-        } else {
-            for (size_t i = row; i < row + nx; i++) {
-                prev += (uint32_t)b0[i] | ((uint32_t)b1[i] << 8) | ((uint32_t)b2[i] << 16) | ((uint32_t)b3[i] << 24);
-                w[i] = prev;
-            }
-        }
-    }
-    if (code == BRV_ENCODING_F32) return;
-    for (size_t i = 0; i < n; i++) {
-        uint32_t p = w[i];
-        float r, g, b;
-        brv_rgb9e5_unpack(p, &r, &g, &b);
-        out[2 * n + i] = b * sc;
-        out[n + i] = g * sc;
-        out[i] = r * sc;
-    }
 }
 
 static void decode_constant(const uint8_t *w, size_t n, uint32_t code, float sc, float *out)
@@ -581,8 +446,8 @@ static brv_result decode_brick(const brv_volume *v, brv_decoder *dec, uint32_t b
             float sc = ldexpf(1.0f, ex);
             float *dst = only < 0 ? out + (size_t)g->first * n : (g->count == 1 ? out : dec->scratch);
             if (mode == BRV_MODE_CONSTANT) decode_constant(p, n, g->code, sc, dst);
-            else if (wb == 2) decode_f16(p, n, e[0], sc, (uint16_t *)(void *)dec->words, dst);
-            else decode_w32(p, n, e[0], sc, g->code, dec->words, dst);
+            else if (wb == 2) brv_unfilter_f16(p, n, e[0], ex, dst, 1);
+            else brv_unfilter_w32(p, n, e[0], ex, g->code, dst, 1);
             if (only >= 0 && g->count > 1)
                 memmove(out, dec->scratch + (size_t)((uint32_t)only - g->first) * n, n * sizeof(float));
         }

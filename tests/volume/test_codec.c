@@ -133,6 +133,79 @@ static void filters_should_be_lossless(void **state)
     }
 }
 
+/* The vectorised inverse filters against the scalar reference, and both against an
+ * independent decoding (the word as IEEE 754 binary16 by ldexp, the rgb9e5 triplet by the
+ * extension's formula): every 16-bit word, infinities and NaNs included, at scales 2^0, 2^9
+ * and 2^40 (one and two multiplications), and 2^20 words of the 4-byte kinds.
+ * Source: IEEE Std 754-2008 binary16; EXT_texture_shared_exponent, "shared exponent to RGB". */
+static float half_by_formula(uint16_t h)
+{
+    int e = (h >> 10) & 0x1F, m = h & 0x3FF;
+    float v = e == 0 ? ldexpf((float)m, -24) : e == 31 ? (m ? NAN : INFINITY) : ldexpf((float)(m | 0x400), e - 25);
+    return (h & 0x8000) ? -v : v;
+}
+
+static void shuffle_delta(const uint8_t *words, size_t n, unsigned wb, uint32_t nx, uint8_t *planes)
+{
+    uint8_t *tmp = malloc(n * wb);
+    memcpy(tmp, words, n * wb);
+    brv_delta_encode(tmp, n, wb, nx);
+    brv_shuffle(tmp, planes, n, wb);
+    free(tmp);
+}
+
+static void unfilter_should_match_scalar_reference_bit_for_bit(void **state)
+{
+    (void)state;
+    enum { N = 65536 };
+    uint8_t *words = malloc(4u * N), *planes = malloc(4u * N);
+    float *a = malloc(3 * sizeof(float) * N), *b = malloc(3 * sizeof(float) * N);
+    uint32_t seed = 12345;
+    for (uint32_t w = 0; w < N; w++) brv_wr16(words + 2 * w, (uint16_t)(w * 40503u)); /* every word, scattered */
+    static const uint32_t nxs[] = {16, 8, 32, 5};
+    static const int exs[] = {0, 9, 40};
+    for (size_t i = 0; i < sizeof nxs / sizeof nxs[0]; i++) {
+        size_t n = N - N % nxs[i];
+        shuffle_delta(words, n, 2, nxs[i], planes);
+        for (size_t k = 0; k < sizeof exs / sizeof exs[0]; k++) {
+            brv_unfilter_f16(planes, n, nxs[i], exs[k], a, 1);
+            brv_unfilter_f16(planes, n, nxs[i], exs[k], b, 0);
+            assert_memory_equal(a, b, n * sizeof(float));
+            for (size_t j = 0; j < n; j++) {
+                float want = half_by_formula(brv_rd16(words + 2 * j)) * ldexpf(1.0f, exs[k]);
+                if (isnan(want)) assert_true(isnan(a[j]));
+                else assert_true(a[j] == want && signbit(a[j]) == signbit(want));
+            }
+        }
+    }
+    for (uint32_t w = 0; w < N; w++) {
+        seed = seed * 1664525u + 1013904223u;
+        brv_wr32(words + 4 * w, seed);
+    }
+    for (size_t i = 0; i < sizeof nxs / sizeof nxs[0]; i++) {
+        size_t n = N - N % nxs[i];
+        shuffle_delta(words, n, 4, nxs[i], planes);
+        brv_unfilter_w32(planes, n, nxs[i], 0, BRV_ENCODING_F32, a, 1);
+        brv_unfilter_w32(planes, n, nxs[i], 0, BRV_ENCODING_F32, b, 0);
+        assert_memory_equal(a, b, n * sizeof(float));
+        for (size_t j = 0; j < n; j++) assert_int_equal(brv_f32_bits(a[j]), brv_rd32(words + 4 * j));
+        brv_unfilter_w32(planes, n, nxs[i], 7, BRV_ENCODING_RGB9E5, a, 1);
+        brv_unfilter_w32(planes, n, nxs[i], 7, BRV_ENCODING_RGB9E5, b, 0);
+        assert_memory_equal(a, b, 3 * n * sizeof(float));
+        for (size_t j = 0; j < n; j += 97) {
+            uint32_t p = brv_rd32(words + 4 * j);
+            int e = (int)(p >> 27);
+            assert_true(a[j] == ldexpf((float)(p & 0x1FF), e - 15 - 9 + 7));
+            assert_true(a[n + j] == ldexpf((float)((p >> 9) & 0x1FF), e - 15 - 9 + 7));
+            assert_true(a[2 * n + j] == ldexpf((float)((p >> 18) & 0x1FF), e - 15 - 9 + 7));
+        }
+    }
+    free(words);
+    free(planes);
+    free(a);
+    free(b);
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
@@ -142,6 +215,7 @@ int main(void)
         cmocka_unit_test(rgb9e5_error_should_stay_within_bound),
         cmocka_unit_test(crc32_should_match_check_value),
         cmocka_unit_test(filters_should_be_lossless),
+        cmocka_unit_test(unfilter_should_match_scalar_reference_bit_for_bit),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }
