@@ -46,17 +46,28 @@ static inline double lerp(double t, double a, double b) { return a + t * (b - a)
  * 256 is exact in binary floating point. */
 static inline double fold(double x) { return fabs(x) < 1e9 ? x : fmod(x, 256.0); }
 
-static double gradient_noise(const uint8_t *perm, double x, double y, double z)
+/* One lattice axis of gradient noise at coordinate x: the cell (masked to the period), the
+ * offset inside it and its fade. Separate so a lattice of points can compute it once per row. */
+typedef struct noise_axis {
+    unsigned cell;
+    double t, fade;
+} noise_axis;
+
+static inline noise_axis noise_axis_at(double x)
 {
-    int ix = (int)x, iy = (int)y, iz = (int)z;
+    int ix = (int)x;
     ix -= x < ix;   /* floor */
-    iy -= y < iy;
-    iz -= z < iz;
-    unsigned X = (unsigned)ix & 255u, Y = (unsigned)iy & 255u, Z = (unsigned)iz & 255u;
-    x -= ix;
-    y -= iy;
-    z -= iz;
-    double u = fade(x), v = fade(y), w = fade(z);
+    noise_axis a;
+    a.cell = (unsigned)ix & 255u;
+    a.t = x - ix;
+    a.fade = fade(a.t);
+    return a;
+}
+
+static inline double gradient_noise_axes(const uint8_t *perm, noise_axis ax, noise_axis ay, noise_axis az)
+{
+    const unsigned X = ax.cell, Y = ay.cell, Z = az.cell;
+    const double x = ax.t, y = ay.t, z = az.t, u = ax.fade, v = ay.fade, w = az.fade;
     unsigned A = perm[X] + Y, AA = perm[A] + Z, AB = perm[A + 1] + Z;
     unsigned B = perm[X + 1] + Y, BA = perm[B] + Z, BB = perm[B + 1] + Z;
     return lerp(w,
@@ -64,6 +75,11 @@ static double gradient_noise(const uint8_t *perm, double x, double y, double z)
                      lerp(u, grad(perm[AB], x, y - 1, z), grad(perm[BB], x - 1, y - 1, z))),
                 lerp(v, lerp(u, grad(perm[AA + 1], x, y, z - 1), grad(perm[BA + 1], x - 1, y, z - 1)),
                      lerp(u, grad(perm[AB + 1], x, y - 1, z - 1), grad(perm[BB + 1], x - 1, y - 1, z - 1))));
+}
+
+static inline double gradient_noise(const uint8_t *perm, double x, double y, double z)
+{
+    return gradient_noise_axes(perm, noise_axis_at(x), noise_axis_at(y), noise_axis_at(z));
 }
 
 /* A seeded permutation of 0..255 (Fisher-Yates driven by the splitmix64 hash of seed and
@@ -142,7 +158,10 @@ brm_status brm_media_prepare(brm_scene *s, brm_diag *d)
 
 /* ---- density --------------------------------------------------------------------------- */
 
-/* One density medium's extinction at p (before the noise factor); p is inside the fog. */
+/* One density medium's extinction at p (before the noise factor); p is inside the fog. The
+ * minima are plain comparisons (the coordinates are finite), not calls to fmin. */
+static inline double min2(double a, double b) { return b < a ? b : a; }
+
 static inline double density(const brm_medium *m, brm_vec3 p)
 {
     switch (m->type) {
@@ -154,14 +173,22 @@ static inline double density(const brm_medium *m, brm_vec3 p)
     case BRM_MEDIUM_BOX: {
         if (!brm_aabb_contains(m->box, p)) return 0.0;
         if (m->inv_edge_fade <= 0.0) return m->sigma_t;
-        double e = fmin(fmin(fmin(p.x - m->box.min.x, m->box.max.x - p.x), fmin(p.y - m->box.min.y, m->box.max.y - p.y)),
-                        fmin(p.z - m->box.min.z, m->box.max.z - p.z));
+        double e = min2(min2(min2(p.x - m->box.min.x, m->box.max.x - p.x), min2(p.y - m->box.min.y, m->box.max.y - p.y)),
+                        min2(p.z - m->box.min.z, m->box.max.z - p.z));
         double t = e * m->inv_edge_fade;
         if (t >= 1.0) return m->sigma_t;
         return m->sigma_t * t * t * (3.0 - 2.0 * t);   /* smoothstep(0, edge_fade_m, e) */
     }
     default: return 0.0;
     }
+}
+
+/* Σ density over the density media at p, p inside the fog bounds. */
+static inline double density_sum_inside(const brm_scene *s, const brm_noise_table *t, brm_vec3 p)
+{
+    double sum = 0.0;
+    for (uint32_t k = 0; k < t->density_count; k++) sum += density(&s->media[t->density_idx[k]], p);
+    return sum;
 }
 
 static inline double noise_factor(const brm_scene *s, brm_vec3 p)
@@ -267,10 +294,7 @@ double brm_media_density_sum(const brm_scene *s, brm_vec3 p)
 {
     assert(s->media_ready);
     if (!brm_aabb_contains(s->fog_bounds, p)) return 0.0;
-    const brm_noise_table *t = s->noise;
-    double sum = 0.0;
-    for (uint32_t k = 0; k < t->density_count; k++) sum += density(&s->media[t->density_idx[k]], p);
-    return sum;
+    return density_sum_inside(s, s->noise, p);
 }
 
 static double noise_grid_spacing(const brm_scene *s, uint32_t n[3])
@@ -318,16 +342,67 @@ typedef struct grid_job {
     brm_vec3 step;
 } grid_job;
 
+/* Noise factors of one z layer of the lattice. The fBm's per-axis work (the lattice cell, the
+ * offset in it and its fade, per octave) depends on one coordinate only, so it is computed once
+ * per row and column of the layer instead of once per node; the arithmetic is that of fbm(),
+ * so every node holds exactly noise_factor() of its point. */
 static void grid_slice(void *ctx, uint32_t k, int worker)
 {
     (void)worker;
     grid_job *j = ctx;
     brm_noise_grid *g = j->g;
-    for (uint32_t y = 0; y < g->n[1]; y++)
-        for (uint32_t x = 0; x < g->n[0]; x++) {
-            brm_vec3 p = brm_add(g->lo, brm_mul(j->step, brm_v3(x, y, k)));
-            g->f[x + (size_t)g->n[0] * (y + (size_t)g->n[1] * k)] = (float)noise_factor(j->s, p);
+    const brm_scene *s = j->s;
+    const brm_noise_table *t = s->noise;
+    const uint32_t nx = g->n[0], ny = g->n[1];
+    float *out = g->f + (size_t)nx * ny * k;
+    uint32_t oct_total = 0;
+    for (uint32_t q = 0; q < t->noise_count; q++) {
+        uint32_t oc = s->media[t->noise_idx[q]].octaves;
+        oct_total += oc > 12 ? 12 : oc;
+    }
+    noise_axis *tab = malloc(sizeof *tab * ((size_t)oct_total * (nx + ny + 1) + 1));
+    if (!tab) {
+        for (uint32_t y = 0; y < ny; y++)
+            for (uint32_t x = 0; x < nx; x++)
+                out[x + (size_t)nx * y] = (float)noise_factor(s, brm_add(g->lo, brm_mul(j->step, brm_v3(x, y, k))));
+        return;
+    }
+    /* tab: per noise medium and octave, nx x-axes, then ny y-axes, then the z-axis. */
+    const size_t per_oct = (size_t)nx + ny + 1;
+    size_t at = 0;
+    for (uint32_t q = 0; q < t->noise_count; q++) {
+        const brm_medium *m = &s->media[t->noise_idx[q]];
+        uint32_t oc = m->octaves > 12 ? 12 : m->octaves;
+        double freq = 1.0;
+        for (uint32_t o = 0; o < oc; o++, at += per_oct) {
+            for (uint32_t x = 0; x < nx; x++)
+                tab[at + x] = noise_axis_at(fold(fold((g->lo.x + j->step.x * x) * m->inv_scale_m) * freq + octave_offset[o][0]));
+            for (uint32_t y = 0; y < ny; y++)
+                tab[at + nx + y] = noise_axis_at(fold(fold((g->lo.y + j->step.y * y) * m->inv_scale_m) * freq + octave_offset[o][1]));
+            tab[at + nx + ny] = noise_axis_at(fold(fold((g->lo.z + j->step.z * k) * m->inv_scale_m) * freq + octave_offset[o][2]));
+            freq *= 2.0;
         }
+    }
+    for (uint32_t y = 0; y < ny; y++)
+        for (uint32_t x = 0; x < nx; x++) {
+            double f = 1.0;
+            const noise_axis *oa = tab;
+            for (uint32_t q = 0; q < t->noise_count; q++) {
+                const uint32_t mi = t->noise_idx[q];
+                const brm_medium *m = &s->media[mi];
+                const uint8_t *perm = t->perm[mi];
+                uint32_t oc = m->octaves > 12 ? 12 : m->octaves;
+                double sum = 0.0, amp = 1.0;
+                for (uint32_t o = 0; o < oc; o++, oa += per_oct) {
+                    sum += amp * gradient_noise_axes(perm, oa[x], oa[nx + y], oa[nx + ny]);
+                    amp *= 0.5;
+                }
+                double v = 1.0 + m->strength * (sum * t->fbm_norm[mi]);
+                f *= v > 0.0 ? v : 0.0;
+            }
+            out[x + (size_t)nx * y] = (float)f;
+        }
+    free(tab);
 }
 
 brm_status brm_noise_grid_build(const brm_scene *s, int threads, brm_noise_grid *g, brm_diag *d)
@@ -357,29 +432,35 @@ void brm_noise_grid_free(brm_noise_grid *g)
     memset(g, 0, sizeof *g);
 }
 
+/* One axis of the trilinear lookup: the node below x (clamped into the lattice) and the
+ * fraction past it. */
+static inline uint32_t lattice_axis(double x, uint32_t n, double *frac)
+{
+    const double hi = (double)(n - 1);
+    if (!(x > 0.0)) x = 0.0;
+    if (x > hi) x = hi;
+    uint32_t i = (uint32_t)x;
+    if (i >= n - 1) i = n - 2;
+    *frac = x - i;
+    return i;
+}
+
 double brm_media_extinction_tabulated(const brm_scene *s, const brm_noise_grid *g, brm_vec3 p)
 {
     if (!g || !g->f) return brm_media_extinction(s, p);
-    double sum = brm_media_density_sum(s, p);
+    if (!brm_aabb_contains(s->fog_bounds, p)) return 0.0;
+    double sum = density_sum_inside(s, s->noise, p);
     if (sum <= 0.0) return 0.0;
-    double c[3];
-    uint32_t i0[3];
-    for (int a = 0; a < 3; a++) {
-        double x = (brm_vget(p, a) - brm_vget(g->lo, a)) * brm_vget(g->inv_step, a);
-        double hi = (double)(g->n[a] - 1);
-        if (x < 0) x = 0;
-        if (x > hi) x = hi;
-        uint32_t i = (uint32_t)x;
-        if (i >= g->n[a] - 1) i = g->n[a] - 2;
-        i0[a] = i;
-        c[a] = x - i;
-    }
-    const size_t sx = 1, sy = g->n[0], sz = (size_t)g->n[0] * g->n[1];
-    const float *b = g->f + i0[0] + sy * i0[1] + sz * i0[2];
-    double x00 = b[0] + c[0] * (b[sx] - b[0]);
-    double x10 = b[sy] + c[0] * (b[sy + sx] - b[sy]);
-    double x01 = b[sz] + c[0] * (b[sz + sx] - b[sz]);
-    double x11 = b[sz + sy] + c[0] * (b[sz + sy + sx] - b[sz + sy]);
-    double y0 = x00 + c[1] * (x10 - x00), y1 = x01 + c[1] * (x11 - x01);
-    return sum * (y0 + c[2] * (y1 - y0));
+    double cx, cy, cz;
+    const uint32_t ix = lattice_axis((p.x - g->lo.x) * g->inv_step.x, g->n[0], &cx);
+    const uint32_t iy = lattice_axis((p.y - g->lo.y) * g->inv_step.y, g->n[1], &cy);
+    const uint32_t iz = lattice_axis((p.z - g->lo.z) * g->inv_step.z, g->n[2], &cz);
+    const size_t sy = g->n[0], sz = (size_t)g->n[0] * g->n[1];
+    const float *b = g->f + ix + sy * iy + sz * iz;
+    double x00 = b[0] + cx * (b[1] - b[0]);
+    double x10 = b[sy] + cx * (b[sy + 1] - b[sy]);
+    double x01 = b[sz] + cx * (b[sz + 1] - b[sz]);
+    double x11 = b[sz + sy] + cx * (b[sz + sy + 1] - b[sz + sy]);
+    double y0 = x00 + cy * (x10 - x00), y1 = x01 + cy * (x11 - x01);
+    return sum * (y0 + cz * (y1 - y0));
 }
