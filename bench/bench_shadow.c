@@ -2,16 +2,26 @@
  * each per-sample query (visibility, transmittance, sky) against the exact paths it replaces
  * (BVH rays, the fine march). A yard scene of our own: ground, boxes, a sphere, a thin wall,
  * a roof outside the target; height + box + noise fog; sun, spot and point light.
- * Run: build/bench/bench_shadow [threads] */
+ * Then the demo scene's two bake benchmarks, shadow side only: the world target "hall" with the
+ * scene's five lights, and the 160×90×128 frustum with one sun and eight 15 m point lights of
+ * bench_targets.c: build time (wall, and CPU seconds of the whole process, which at one thread
+ * is the figure that a busy machine disturbs least), what the grids look like, and the cost
+ * of the kernel's lookups at points spread like its samples, with the worst transmittance
+ * error against the exact march.
+ * Run: build/bench/bench_shadow [threads] [yard|hall|frustum|all] */
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <time.h>
+#include <math.h>
 
 #include "base/threads.h"
+#include "scene/light.h"
 #include "scene/media.h"
 #include "shadow/shadow.h"
 #include "shadow/shadow_internal.h"
 #include "voxel/bvh.h"
+#include "voxel/grid.h"
 
 static uint64_t rng_state = 1;
 static double unif(void)
@@ -94,9 +104,8 @@ static brm_scene *yard(void)
 
 #define N_QUERY 200000
 
-int main(int argc, char **argv)
+static int yard_bench(int threads)
 {
-    int threads = argc > 1 ? atoi(argv[1]) : 1;
     brm_scene *s = yard();
     brm_aabb target = {{-10, 0.05, -10}, {10, 8, 10}};
     brm_diag d;
@@ -116,7 +125,7 @@ int main(int argc, char **argv)
             const shadow_view *v = &ls->views[k];
             size_t n = (size_t)(v->og_n[0] - 1) * (v->og_n[1] - 1) * (v->og_n[2] - 1);
             cells += n;
-            for (size_t i = 0; i < n; i++) bad += v->od_bad[i];
+            for (size_t i = 0; i < n; i++) bad += v->od_bad[i] == 1;
         }
         uint32_t blocks = 0, inside = 0, miss = 0;
         for (uint32_t k = 0; k < ls->view_count; k++) blocks += ls->views[k].blk_count;
@@ -186,4 +195,162 @@ int main(int argc, char **argv)
     free(pts);
     free(cone);
     return sink == 12345.678 ? 1 : 0;
+}
+
+/* ---- the demo scene's targets ---------------------------------------------------------- */
+
+static double cpu_seconds(void)
+{
+    struct timespec t;
+    clock_gettime(CLOCK_PROCESS_CPUTIME_ID, &t);
+    return (double)t.tv_sec + 1e-9 * (double)t.tv_nsec;
+}
+
+/* The lights of bench_targets.c's frustum case: the scene's sun and eight 15 m point lights
+ * along the view. */
+static void frustum_lights(brm_scene *s, const brm_target *ft)
+{
+    brm_light sun = {0};
+    for (uint32_t l = 0; l < s->light_count; l++)
+        if (s->lights[l].type == BRM_LIGHT_DIRECTIONAL) sun = s->lights[l];
+    brm_light *lights = realloc(s->lights, 9 * sizeof *lights);
+    if (!lights) exit(1);
+    s->lights = lights;
+    s->light_count = 9;
+    s->lights[0] = sun;
+    brm_vec3 eye = ft->camera.position, fwd = brm_norm(brm_sub(ft->camera.look_at, eye));
+    brm_vec3 side = brm_norm(brm_cross(fwd, brm_v3(0, 1, 0)));
+    for (int i = 0; i < 8; i++) {
+        brm_light *l = &s->lights[1 + i];
+        memset(l, 0, sizeof *l);
+        l->type = BRM_LIGHT_POINT;
+        l->position = brm_add(brm_madd(eye, fwd, 2.0 + 1.6 * i), brm_scale(side, (i & 1) ? 1.5 : -1.5));
+        l->position.y = 2.5 + 0.3 * (i % 3);
+        l->intensity_cd = 300;
+        l->range_m = 15;
+        l->color = brm_v3(1, 0.9, 0.8);
+        l->shadow = true;
+        l->softness_texels = 1.5;
+        snprintf(l->json_path, sizeof l->json_path, "lights[%d]", 1 + i);
+    }
+}
+
+#define N_DEMO_QUERY 100000
+#define N_DEMO_CHECK 1500
+
+static int demo_bench(int threads, bool frustum)
+{
+    const char *path = BRUME_SOURCE_ROOT "/scenes/saltworks-dusk.json";
+    brm_diag d;
+    brm_diag_init(&d);
+    brm_scene *s = NULL;
+    if (brm_scene_load(path, &s, &d) != BRM_OK) {
+        fprintf(stderr, "bench_shadow: %s\n", d.message);
+        return 1;
+    }
+    int t = -1;
+    for (uint32_t i = 0; i < s->target_count && t < 0; i++)
+        if (s->targets[i].grid == (frustum ? BRM_GRID_FRUSTUM : BRM_GRID_WORLD)) t = (int)i;
+    if (t < 0) return 1;
+    brm_target *tg = &s->targets[t];
+    if (frustum) {
+        tg->cells[0] = 160, tg->cells[1] = 90, tg->cells[2] = 128, tg->samples = 4;
+        frustum_lights(s, tg);
+    }
+    brm_grid g;
+    if (brm_grid_init(&g, tg, &d) != BRM_OK) return 1;
+    brm_bvh *bvh = NULL;
+    if (brm_bvh_build(s, &bvh, &d) != BRM_OK) return 1;
+    double e = fmin(g.cell.x, fmin(g.cell.y, g.cell.z)); /* as the baker passes it */
+    brm_shadow_opts o = {brm_grid_bounds(&g), e, threads, false, bvh, false};
+    brm_shadow_set *ss = NULL;
+    double c0 = cpu_seconds();
+    if (brm_shadows_build(s, &o, &ss, &d) != BRM_OK) {
+        fprintf(stderr, "bench_shadow: %s\n", d.message);
+        return 1;
+    }
+    double cpu = cpu_seconds() - c0;
+    printf("demo %s %ux%ux%u, %u lights: build (%d thread%s) %.3f s wall, %.3f s CPU, %.1f MiB\n",
+           frustum ? "frustum" : "world", g.n[0], g.n[1], g.n[2], s->light_count, threads, threads > 1 ? "s" : "",
+           brm_shadows_build_seconds(ss), cpu, brm_shadows_bytes(ss) / 1048576.0);
+    /* Sample points spread like the kernel's: uniform in continuous cell coordinates. */
+    brm_vec3 *pts = malloc(N_DEMO_QUERY * sizeof *pts);
+    if (!pts) return 1;
+    for (int i = 0; i < N_DEMO_QUERY; i++)
+        pts[i] = brm_grid_point(&g, unif() * g.n[0], unif() * g.n[1], unif() * g.n[2]);
+    volatile double sink = 0;
+    double tv_all = 0, tt_all = 0;
+    uint64_t n_all = 0;
+    for (uint32_t l = 0; l < s->light_count; l++) {
+        const light_shadow *ls = &ss->lights[l];
+        const brm_light *L = &s->lights[l];
+        /* the points the kernel would ask: inside the light's reach (range, cone) */
+        brm_vec3 *q = malloc(N_DEMO_QUERY * sizeof *q);
+        int nq = 0;
+        for (int i = 0; i < N_DEMO_QUERY; i++) {
+            brm_vec3 to;
+            double dist;
+            if (brm_light_illuminance(L, pts[i], &to, &dist) > 0.0 && brm_aabb_contains(s->fog_bounds, pts[i])) q[nq++] = pts[i];
+        }
+        if (nq == 0 || !ls->active) {
+            free(q);
+            continue;
+        }
+        size_t cells = 0, bad = 0;
+        uint32_t blocks = 0, corrs = 0;
+        for (uint32_t k = 0; k < ls->view_count && ls->has_od; k++) {
+            const shadow_view *v = &ls->views[k];
+            size_t n = (size_t)(v->og_n[0] - 1) * (v->og_n[1] - 1) * (v->og_n[2] - 1);
+            cells += n;
+            for (size_t i = 0; i < n; i++) bad += v->od_bad[i] == 1;
+            blocks += v->blk_count;
+            corrs += v->corr_count;
+        }
+        int miss = 0;
+        for (int i = 0; i < nq; i++) {
+            double tau;
+            miss += !ls->has_od || !brm_od_lookup(s, brm_shadow_pick_view(ls, q[i]), q[i], &tau);
+        }
+        double t0 = brm_now();
+        for (int i = 0; i < nq; i++) sink += brm_shadow_visibility(ss, l, q[i]);
+        double tv = brm_now() - t0;
+        t0 = brm_now();
+        for (int i = 0; i < nq; i++) sink += brm_shadow_transmittance(ss, l, q[i]);
+        double tt = brm_now() - t0;
+        tv_all += tv, tt_all += tt, n_all += (uint64_t)nq;
+        double worst = 0.0;
+        int nc = nq < N_DEMO_CHECK ? nq : N_DEMO_CHECK;
+        for (int i = 0; i < nc; i++) {
+            brm_vec3 p = q[(size_t)i * (size_t)nq / (size_t)nc];
+            double a = brm_shadow_transmittance(ss, l, p), b = brm_shadow_transmittance_march(ss, l, p);
+            worst = fmax(worst, fabs(a - b) / b);
+        }
+        printf("  light %u (%s): map %u^2 x %u, grid %u x %u x %u, %.2f %% flagged, %u blocks, %u corrections; "
+               "%.2f %% of lookups march; visibility %.1f ns, transmittance %.1f ns, worst |T - T_march|/T %.4f %%\n",
+               l, L->type == BRM_LIGHT_DIRECTIONAL ? "sun" : L->type == BRM_LIGHT_SPOT ? "spot" : "point", ls->views[0].res,
+               ls->view_count, ls->views[0].og_n[0], ls->views[0].og_n[1], ls->views[0].og_n[2],
+               cells ? 100.0 * (double)bad / (double)cells : 0.0, blocks, corrs, 100.0 * miss / nq, tv / nq * 1e9,
+               tt / nq * 1e9, 100.0 * worst);
+        free(q);
+    }
+    printf("  all lights: visibility %.1f ns, transmittance %.1f ns per lookup (mean)\n", tv_all / (double)n_all * 1e9,
+           tt_all / (double)n_all * 1e9);
+    free(pts);
+    brm_shadows_free(ss);
+    brm_bvh_free(bvh);
+    brm_grid_free(&g);
+    brm_scene_free(s);
+    return sink == 12345.678 ? 1 : 0;
+}
+
+int main(int argc, char **argv)
+{
+    int threads = argc > 1 ? atoi(argv[1]) : 1;
+    const char *which = argc > 2 ? argv[2] : "all";
+    bool all = strcmp(which, "all") == 0;
+    int rc = 0;
+    if (all || strcmp(which, "yard") == 0) rc |= yard_bench(threads);
+    if (all || strcmp(which, "hall") == 0) rc |= demo_bench(threads, false);
+    if (all || strcmp(which, "frustum") == 0) rc |= demo_bench(threads, true);
+    return rc;
 }

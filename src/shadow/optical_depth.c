@@ -261,7 +261,8 @@ size_t brm_od_plan(const brm_scene *s, const brm_shadow_opts *o, const media_inf
         for (int a = 0; a < 3; a++) axis_set(v, a, lo[a], hi[a], n[a], true);
         for (int a = 0; a < 3; a++) v->prefix_axis[a] = brm_vget(v->f, a) != 0.0;
         size_t bytes = ((size_t)n[0] * n[1] * n[2] * 2 + (size_t)3 * n[0] * n[1]) * sizeof(float) +
-                       (size_t)(n[0] - 1) * (n[1] - 1) * (n[2] - 1) + block_bytes(v);
+                       (size_t)n[0] * n[1] * sizeof(uint16_t) + (size_t)(n[0] - 1) * (n[1] - 1) * (n[2] - 1) +
+                       block_bytes(v);
         return bytes + corr_bytes(ls);
     }
     brm_vec3 pos = l->position;
@@ -280,7 +281,8 @@ size_t brm_od_plan(const brm_scene *s, const brm_shadow_opts *o, const media_inf
         axis_set(v, 0, -tan_half, tan_half, nl, true);
         axis_set(v, 1, -tan_half, tan_half, nl, true);
         axis_set(v, 2, 0.0, rmax, nr, false);
-        bytes += (size_t)nl * nl * nr * 2 * sizeof(float) + (size_t)(nl - 1) * (nl - 1) * (nr - 1) + block_bytes(v);
+        bytes += (size_t)nl * nl * nr * 2 * sizeof(float) + (size_t)nl * nl * sizeof(uint16_t) +
+                 (size_t)(nl - 1) * (nl - 1) * (nr - 1) + block_bytes(v);
     }
     return bytes + corr_bytes(ls);
 }
@@ -314,10 +316,114 @@ static int entry_face(const brm_scene *s, brm_vec3 o, brm_vec3 f)
     return tin <= tout ? best : -1;
 }
 
-/* One column of the grid at lateral (x, y): G and sigma~ at every depth node into col, and
- * for ortho views P_a for the faces marked in need (0 for the others) into pre[3]. */
+/* The line of the column at lateral (x, y): origin and unit direction, the depth parameter
+ * being the distance along it (ortho: f·o = 0, so it is f·p). */
+static void column_line(const shadow_view *v, double x, double y, brm_vec3 *o, brm_vec3 *d)
+{
+    if (v->kind == BRM_VIEW_ORTHO) {
+        *o = brm_add(brm_scale(v->u, x), brm_scale(v->v, y));
+        *d = v->f;
+    } else {
+        *o = v->origin;
+        *d = brm_norm(brm_add(v->f, brm_add(brm_scale(v->u, x), brm_scale(v->v, y))));
+    }
+}
+
+/* Depth parameter where the column's path leaves the fog bounds; −HUGE_VAL when it misses
+ * them. */
+static double column_exit(const brm_scene *s, const shadow_view *v, double x, double y)
+{
+    brm_vec3 o, d;
+    column_line(v, x, y, &o, &d);
+    brm_vec3 inv = brm_v3(1.0 / d.x, 1.0 / d.y, 1.0 / d.z);
+    double t0, t1;
+    if (!brm_ray_aabb(o, inv, s->fog_bounds, v->kind == BRM_VIEW_ORTHO ? -HUGE_VAL : 0.0, HUGE_VAL, &t0, &t1))
+        return -HUGE_VAL;
+    return t1;
+}
+
+/* Why: a lookup at p reads the depth nodes either side of p in the four columns around p's
+ * lateral cell, and p is inside the fog bounds. How far into a cell the bounds reach is the
+ * largest depth of the polytope (the cell's prism or pyramid cut by the bounds), found at one
+ * of its vertices: sampled here at the cell's corners, edge midpoints and centre, plus the
+ * bounds' own corners that project into the cell; a node of margin covers what the samples
+ * miss between them, and a miss beyond that only costs a march (the intervals past a
+ * column's last node are flagged). Point lights of limited range inside a hall fill a third
+ * to two thirds of their columns this way. */
+void brm_od_plan_reach(const brm_scene *s, shadow_view *v)
+{
+    const uint32_t n0 = v->og_n[0], n1 = v->og_n[1], nk = v->og_n[2], m0 = 2 * n0 - 1, m1 = 2 * n1 - 1;
+    size_t lat = (size_t)(n0 - 1) * (n1 - 1);
+    double *e = malloc((size_t)m0 * m1 * sizeof *e), *reach = malloc(lat * sizeof *reach);
+    if (!e || !reach) { /* no memory for the plan: fill every node */
+        for (size_t c = 0; c < (size_t)n0 * n1; c++) v->od_last[c] = (uint16_t)(nk - 1);
+        free(e);
+        free(reach);
+        return;
+    }
+    for (uint32_t j = 0; j < m1; j++)
+        for (uint32_t i = 0; i < m0; i++)
+            e[i + (size_t)m0 * j] = column_exit(s, v, v->og_lo[0] + v->og_step[0] * 0.5 * i, v->og_lo[1] + v->og_step[1] * 0.5 * j);
+    for (uint32_t cj = 0; cj + 1 < n1; cj++)
+        for (uint32_t ci = 0; ci + 1 < n0; ci++) {
+            double r = -HUGE_VAL;
+            for (uint32_t b = 0; b <= 2; b++)
+                for (uint32_t a = 0; a <= 2; a++) r = fmax(r, e[2 * ci + a + (size_t)m0 * (2 * cj + b)]);
+            reach[ci + (size_t)(n0 - 1) * cj] = r;
+        }
+    brm_vec3 bc[8];
+    box_corners(s->fog_bounds, bc);
+    for (int q = 0; q < 8; q++) {
+        double x, y, t;
+        if (v->kind == BRM_VIEW_ORTHO) {
+            x = brm_dot(bc[q], v->u), y = brm_dot(bc[q], v->v), t = brm_dot(bc[q], v->f);
+        } else {
+            brm_vec3 dq = brm_sub(bc[q], v->origin);
+            double zf = brm_dot(dq, v->f);
+            if (!(zf > 0.0)) continue;
+            x = brm_dot(dq, v->u) / zf, y = brm_dot(dq, v->v) / zf, t = brm_len(dq);
+        }
+        double fx = floor((x - v->og_lo[0]) / v->og_step[0]), fy = floor((y - v->og_lo[1]) / v->og_step[1]);
+        /* on a cell boundary the corner belongs to the cells either side */
+        for (int dj = -1; dj <= 0; dj++)
+            for (int di = -1; di <= 0; di++) {
+                double cx = fx + di, cy = fy + dj;
+                if (cx >= 0.0 && cx < n0 - 1.0 && cy >= 0.0 && cy < n1 - 1.0) {
+                    size_t c = (size_t)cx + (size_t)(n0 - 1) * (size_t)cy;
+                    reach[c] = fmax(reach[c], t);
+                }
+            }
+    }
+    memset(v->od_last, 0, (size_t)n0 * n1 * sizeof *v->od_last);
+    for (uint32_t cj = 0; cj + 1 < n1; cj++)
+        for (uint32_t ci = 0; ci + 1 < n0; ci++) {
+            double r = reach[ci + (size_t)(n0 - 1) * cj];
+            double k = r == -HUGE_VAL ? 0.0 : floor((r - v->og_lo[2]) / v->og_step[2]) + 2.0;
+            uint16_t need = (uint16_t)(k < 0.0 ? 0.0 : k > nk - 1.0 ? nk - 1.0 : k);
+            size_t c00 = ci + (size_t)n0 * cj, cn[4] = {c00, c00 + 1, c00 + n0, c00 + n0 + 1};
+            for (int q = 0; q < 4; q++)
+                if (v->od_last[cn[q]] < need) v->od_last[cn[q]] = need;
+        }
+    free(e);
+    free(reach);
+}
+
+/* Intervals of lateral cell (ci, cj) whose nodes are filled in all four of its columns. */
+static uint32_t cell_valid(const shadow_view *v, uint32_t ci, uint32_t cj)
+{
+    size_t n0 = v->og_n[0], c00 = ci + n0 * cj;
+    uint32_t m = v->od_last[c00];
+    if (v->od_last[c00 + 1] < m) m = v->od_last[c00 + 1];
+    if (v->od_last[c00 + n0] < m) m = v->od_last[c00 + n0];
+    if (v->od_last[c00 + n0 + 1] < m) m = v->od_last[c00 + n0 + 1];
+    return m;
+}
+
+/* One column of the grid at lateral (x, y): G and sigma~ at depth nodes 0..last into col (0
+ * after it), and for ortho views P_a for the faces marked in need (0 for the others) into
+ * pre[3]. */
 static void fill_column(const brm_scene *s, const media_info *mi, const shadow_view *v, double x, double y,
-                        const bool need[3], float *col, float pre[3])
+                        const bool need[3], uint32_t last, float *col, float pre[3])
 {
     uint32_t nk = v->og_n[2];
     double h = fmax(mi->feature / 2.0, 1.0001 * v->og_step[2]);
@@ -348,6 +454,10 @@ static void fill_column(const brm_scene *s, const media_info *mi, const shadow_v
     uint32_t nc = line_cuts(s, mi, o, d, t, tend, true, cut), ci = 0;
     double g = 0.0, sig = sigma_cont(s, mi, brm_madd(o, d, t));
     for (uint32_t k = 0; k < nk; k++) {
+        if (k > last) {
+            col[2 * k] = col[2 * k + 1] = 0.0f;
+            continue;
+        }
         if (k > 0) {
             double t1 = v->og_lo[2] + v->og_step[2] * (double)k;
             bool clean = !(ci < nc && cut[ci] < t1) && t1 - t <= h;
@@ -383,7 +493,7 @@ void brm_od_fill_row(const brm_scene *s, const media_info *mi, shadow_view *v, u
                     if (e >= 0) need[e] = true;
                 }
         float pre[3];
-        fill_column(s, mi, v, x, y, need, v->od + 2 * (size_t)nk * cell, pre);
+        fill_column(s, mi, v, x, y, need, v->od_last[cell], v->od + 2 * (size_t)nk * cell, pre);
         if (v->kind == BRM_VIEW_ORTHO)
             for (int a = 0; a < 3; a++) v->prefix[a * plane + cell] = pre[a];
     }
@@ -405,7 +515,8 @@ void brm_od_check_row(const brm_scene *s, const media_info *mi, shadow_view *v, 
             if (e >= 0) need[e] = true;
         }
         float pre[3];
-        fill_column(s, mi, v, x, y, need, scratch, pre);
+        uint32_t valid = cell_valid(v, i, j);
+        fill_column(s, mi, v, x, y, need, valid, scratch, pre);
         size_t c00 = (size_t)i + (size_t)n0 * j, c[4] = {c00, c00 + 1, c00 + n0, c00 + n0 + 1};
         double p_int = 0.0, p_ex = 0.0;
         if (e >= 0) {
@@ -414,7 +525,7 @@ void brm_od_check_row(const brm_scene *s, const media_info *mi, shadow_view *v, 
         }
         uint8_t *bad = v->od_bad + ((size_t)i + (size_t)(n0 - 1) * j) * (nk - 1);
         for (uint32_t k = 0; k + 1 < nk; k++) bad[k] = 0;
-        for (uint32_t k = 0; k < nk; k++) {
+        for (uint32_t k = 0; k <= valid; k++) {
             double g_int = 0.0;
             for (int q = 0; q < 4; q++) g_int += 0.25 * v->od[2 * ((size_t)nk * c[q] + k)];
             double err = fabs((g_int + p_int) - ((double)scratch[2 * k] + p_ex));
@@ -423,6 +534,7 @@ void brm_od_check_row(const brm_scene *s, const media_info *mi, shadow_view *v, 
                 if (k + 1 < nk) bad[k] = 1;
             }
         }
+        for (uint32_t k = valid; k + 1 < nk; k++) bad[k] = BRM_OD_UNFILLED;
     }
 }
 
@@ -436,7 +548,7 @@ void brm_od_assign_blocks(shadow_view *v)
         if (v->blk_count == v->blk_cap) continue;
         const uint8_t *bad = v->od_bad + c * (nk - 1);
         for (uint32_t k = 0; k + 1 < nk; k++)
-            if (bad[k]) {
+            if (bad[k] == 1) {
                 v->blk_cell[v->blk_count] = (uint32_t)c;
                 v->refine[c] = (int32_t)v->blk_count++;
                 break;
@@ -457,12 +569,13 @@ void brm_od_fill_block(const brm_scene *s, const media_info *mi, shadow_view *v,
                 if (e >= 0) need[e] = true;
             }
     float *od = v->blk_od + 2 * (size_t)nk * R1 * R1 * b;
+    uint32_t valid = cell_valid(v, ci, cj);
     for (uint32_t bj = 0; bj <= R; bj++)
         for (uint32_t bi = 0; bi <= R; bi++) {
             double x = v->og_lo[0] + v->og_step[0] * ((double)ci + (double)bi / R);
             double y = v->og_lo[1] + v->og_step[1] * ((double)cj + (double)bj / R);
             float pre[3];
-            fill_column(s, mi, v, x, y, need, od + 2 * (size_t)nk * (bi + R1 * bj), pre);
+            fill_column(s, mi, v, x, y, need, valid, od + 2 * (size_t)nk * (bi + R1 * bj), pre);
             if (v->kind == BRM_VIEW_ORTHO)
                 for (int a = 0; a < 3; a++) v->blk_pre[((size_t)b * 3 + a) * R1 * R1 + bi + R1 * bj] = pre[a];
         }
@@ -478,7 +591,7 @@ void brm_od_fill_block(const brm_scene *s, const media_info *mi, shadow_view *v,
                 if (e >= 0) nd[e] = true;
             }
             float pre[3];
-            fill_column(s, mi, v, x, y, nd, scratch, pre);
+            fill_column(s, mi, v, x, y, nd, valid, scratch, pre);
             size_t q0 = si + R1 * sj, q[4] = {q0, q0 + 1, q0 + R1, q0 + R1 + 1};
             double p_int = 0.0, p_ex = 0.0;
             if (e >= 0) {
@@ -487,7 +600,7 @@ void brm_od_fill_block(const brm_scene *s, const media_info *mi, shadow_view *v,
             }
             uint8_t *bad = v->blk_bad + ((size_t)b * R * R + si + R * sj) * (nk - 1);
             memset(bad, 0, nk - 1);
-            for (uint32_t k = 0; k < nk; k++) {
+            for (uint32_t k = 0; k <= valid; k++) {
                 double g_int = 0.0;
                 for (int m = 0; m < 4; m++) g_int += 0.25 * od[2 * ((size_t)nk * q[m] + k)];
                 if (fabs((g_int + p_int) - ((double)scratch[2 * k] + p_ex)) > BRM_OD_CHECK_TAU) {
@@ -495,6 +608,7 @@ void brm_od_fill_block(const brm_scene *s, const media_info *mi, shadow_view *v,
                     if (k + 1 < nk) bad[k] = 1;
                 }
             }
+            for (uint32_t k = valid; k + 1 < nk; k++) bad[k] = BRM_OD_UNFILLED;
         }
 }
 
@@ -522,7 +636,7 @@ int brm_od_assign_corrections(shadow_view *v)
         if (v->corr_count == v->corr_cap || v->refine[c] >= 0) continue;
         const uint8_t *bad = v->od_bad + c * (nk - 1);
         for (uint32_t k = 0; k + 1 < nk; k++)
-            if (bad[k]) {
+            if (bad[k] == 1) {
                 v->corr[c] = (int32_t)v->corr_count++;
                 break;
             }
@@ -570,6 +684,7 @@ void brm_od_fill_correction(const brm_scene *s, const media_info *mi, shadow_vie
     size_t cn[4] = {c00, c00 + 1, c00 + n0, c00 + n0 + 1};
     float *dg = v->corr_dg + (size_t)c * nk * NP, *fail = scratch + 2 * (size_t)nk;
     uint8_t *on = v->corr_on + (size_t)c * (nk - 1);
+    uint32_t valid = cell_valid(v, ci, cj);
     memset(on, 0, nk - 1);
     for (uint32_t k = 0; k < nk * NP; k++) dg[k] = 0.0f;
     for (uint32_t k = 0; k < nk; k++) fail[k] = 0.0f;
@@ -589,7 +704,7 @@ void brm_od_fill_correction(const brm_scene *s, const media_info *mi, shadow_vie
             return;
         }
         float pre[3];
-        fill_column(s, mi, v, x, y, need, scratch, pre);
+        fill_column(s, mi, v, x, y, need, valid, scratch, pre);
         double wb[4] = {(1.0 - px) * (1.0 - py), px * (1.0 - py), (1.0 - px) * py, px * py}, wc[BRM_OD_CORR_PTS];
         corr_weights(px, py, wc);
         double p_int = 0.0, p_ex = 0.0;
@@ -597,7 +712,7 @@ void brm_od_fill_correction(const brm_scene *s, const media_info *mi, shadow_vie
             for (int m = 0; m < 4; m++) p_int += wb[m] * v->prefix[e * plane + cn[m]];
             p_ex = pre[e];
         }
-        for (uint32_t k = 0; k < nk; k++) {
+        for (uint32_t k = 0; k <= valid; k++) {
             double g_int = 0.0;
             for (int m = 0; m < 4; m++) g_int += wb[m] * v->od[2 * ((size_t)nk * cn[m] + k)];
             double miss = ((double)scratch[2 * k] + p_ex) - (g_int + p_int);
@@ -613,7 +728,7 @@ void brm_od_fill_correction(const brm_scene *s, const media_info *mi, shadow_vie
     /* The flagged intervals whose both nodes pass with the correction stop marching. */
     uint8_t *bad = v->od_bad + (size_t)cell * (nk - 1);
     for (uint32_t k = 0; k + 1 < nk; k++)
-        if (bad[k] && fail[k] == 0.0f && fail[k + 1] == 0.0f) {
+        if (bad[k] == 1 && fail[k] == 0.0f && fail[k + 1] == 0.0f) {
             bad[k] = 0;
             on[k] = 1;
         }

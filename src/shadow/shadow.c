@@ -207,12 +207,14 @@ brm_status brm_shadows_build(const brm_scene *s, const brm_shadow_opts *o, brm_s
                 v->refine = malloc(lat * sizeof *v->refine);
                 v->blk_cell = malloc((size_t)v->blk_cap * sizeof *v->blk_cell);
                 v->corr = malloc(lat * sizeof *v->corr);
+                v->od_last = malloc((size_t)v->og_n[0] * v->og_n[1] * sizeof *v->od_last);
                 (void)r1;
-                if (!v->refine || !v->blk_cell || !v->corr) {
+                if (!v->refine || !v->blk_cell || !v->corr || !v->od_last) {
                     st = brm_diag_error(d, BRM_E_NOMEM, "shadows: out of memory for %s's optical-depth grid",
                                         s->lights[l].json_path);
                     goto fail;
                 }
+                brm_od_plan_reach(s, v);
                 n_od += v->og_n[1];
             }
             if ((ls->has_map && !v->depth) || (ls->has_od && (!v->od || !v->od_bad || (v->kind == BRM_VIEW_ORTHO && !v->prefix)))) {
@@ -350,6 +352,7 @@ void brm_shadows_free(brm_shadow_set *ss)
             free(ss->lights[l].views[k].od);
             free(ss->lights[l].views[k].prefix);
             free(ss->lights[l].views[k].od_bad);
+            free(ss->lights[l].views[k].od_last);
             free(ss->lights[l].views[k].refine);
             free(ss->lights[l].views[k].blk_cell);
             free(ss->lights[l].views[k].blk_od);

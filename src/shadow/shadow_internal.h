@@ -25,6 +25,7 @@
  * twice the centre error) under 1 % in transmittance. */
 #define BRM_OD_CHECK_TAU 0.003
 #define BRM_OD_REFINE 4u
+#define BRM_OD_UNFILLED 2u      /* od_bad / blk_bad value of intervals past a column's reach */
 #define BRM_OD_BLOCK_SHARE 32u  /* at most one lateral cell in 32 gets a block (what is left marches) */
 /* Cell corrections (5·og_n[2] floats + og_n[2] bytes each): a one-view light gets one per
  * BRM_OD_CORR_SHARE lateral cells, a cube's faces together one per BRM_OD_CORR_SHARE_CUBE of
@@ -73,8 +74,15 @@ typedef struct shadow_view {
     bool prefix_axis[3];
     /* per lateral cell and depth interval: 1 where the build found interpolation off by more
      * than BRM_OD_CHECK_TAU (paths grazing a fade or an edge): lookups there march instead;
-     * cleared where a cell correction (below) passed its re-check */
+     * cleared where a cell correction (below) passed its re-check; BRM_OD_UNFILLED beyond
+     * the depth up to which the cell's columns were filled (below): those march too */
     uint8_t *od_bad;            /* (og_n[0] − 1) · (og_n[1] − 1) · (og_n[2] − 1) */
+    /* per column: the last depth node filled (brm_od_plan_reach). Lookups come only from
+     * points inside the fog bounds, so a column is filled up to where the paths of the cells
+     * around it leave the bounds, one node of margin beyond; the nodes after it are 0 and
+     * the intervals they bound are flagged BRM_OD_UNFILLED (a point found there anyway
+     * marches, exactly as in a flagged cell) */
+    uint16_t *od_last;          /* og_n[0] · og_n[1] */
     /* Flagged lateral cells get a block of (R+1)² columns, R = BRM_OD_REFINE per side, checked
      * again at their sub-cell centres; up to blk_cap blocks (a fixed share of the cells: the
      * memory estimate counts them all, the build allocates the ones used); what stays
@@ -181,6 +189,9 @@ double brm_optical_depth_segment(const brm_scene *s, const media_info *mi, brm_v
 /* Plans a light's optical-depth grids (dimensions only), sets has_od. Returns bytes. */
 size_t brm_od_plan(const brm_scene *s, const brm_shadow_opts *o, const media_info *mi, light_shadow *ls,
                    const brm_light *l);
+/* Sets v->od_last (allocated by the caller) from where the paths of each lateral cell leave
+ * the fog bounds. */
+void brm_od_plan_reach(const brm_scene *s, shadow_view *v);
 /* Fills row j of view v's grid. */
 void brm_od_fill_row(const brm_scene *s, const media_info *mi, shadow_view *v, uint32_t j);
 /* Flags the cells of row j (between node rows j and j + 1) whose interpolation is off;
