@@ -383,13 +383,28 @@ double brm_shadowmap_pcf(const shadow_view *v, brm_vec3 p, double r)
     if (x1 <= 0.0 || y1 <= 0.0 || x0 >= res || y0 >= res) return 1.0;
     int64_t i0 = (int64_t)floor(fmax(x0, 0.0)), i1 = (int64_t)ceil(fmin(x1, res)) - 1;
     int64_t j0 = (int64_t)floor(fmax(y0, 0.0)), j1 = (int64_t)ceil(fmin(y1, res)) - 1;
+    /* First the comparisons alone: a footprint all lit (the common case) or all shadowed
+     * inside the map needs no weights, and gives what the weighted sum would (exactly 1;
+     * 0 after the snap below). */
+    int64_t nx = i1 - i0 + 1, hidden = 0, count = nx * (j1 - j0 + 1);
+    for (int64_t j = j0; j <= j1; j++) {
+        const float *row = v->depth + (size_t)j * v->res + i0;
+        for (int64_t i = 0; i < nx; i++) hidden += z > (double)row[i];
+    }
+    if (hidden == 0) return 1.0;
+    if (hidden == count && x0 >= 0.0 && y0 >= 0.0 && x1 <= res && y1 <= res) return 0.0;
+    /* The columns' overlaps with the square, once for every row. */
+    double wxs[32];
+    bool have_w = nx <= 32;
+    if (have_w)
+        for (int64_t i = 0; i < nx; i++) wxs[i] = fmin((double)(i0 + i) + 1.0, x1) - fmax((double)(i0 + i), x0);
     double shadowed = 0.0;
     for (int64_t j = j0; j <= j1; j++) {
         double wy = fmin((double)j + 1.0, y1) - fmax((double)j, y0);
         const float *row = v->depth + (size_t)j * v->res;
         double sx = 0.0;
         for (int64_t i = i0; i <= i1; i++) {
-            if (z > (double)row[i]) sx += fmin((double)i + 1.0, x1) - fmax((double)i, x0);
+            if (z > (double)row[i]) sx += have_w ? wxs[i - i0] : fmin((double)i + 1.0, x1) - fmax((double)i, x0);
         }
         shadowed += sx * wy;
     }
