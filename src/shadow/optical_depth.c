@@ -183,6 +183,7 @@ static void axis_set(shadow_view *v, int a, double lo, double hi, uint32_t n, bo
         v->og_step[a] = st;
         v->og_lo[a] = lo;
     }
+    v->og_inv[a] = 1.0 / v->og_step[a];
 }
 
 static void box_corners(brm_aabb b, brm_vec3 c[8])
@@ -198,7 +199,8 @@ static size_t block_bytes(shadow_view *v)
     v->blk_cap = (uint32_t)((lat + BRM_OD_BLOCK_SHARE - 1) / BRM_OD_BLOCK_SHARE);
     size_t per = r1 * r1 * v->og_n[2] * 2 * sizeof(float) + (size_t)BRM_OD_REFINE * BRM_OD_REFINE * (v->og_n[2] - 1) +
                  sizeof(uint32_t) + (v->kind == BRM_VIEW_ORTHO ? 3 * r1 * r1 * sizeof(float) : 0);
-    return lat * sizeof(int32_t) + v->blk_cap * per + lat * sizeof(int32_t); /* refine, blocks, corr */
+    /* refine, blocks, corr, cell_clean */
+    return lat * sizeof(int32_t) + v->blk_cap * per + lat * sizeof(int32_t) + lat * sizeof(uint16_t);
 }
 
 /* Sets the light's reserved correction pool (any of its views may draw on it: a cube's faces
@@ -734,25 +736,59 @@ void brm_od_fill_correction(const brm_scene *s, const media_info *mi, shadow_vie
         }
 }
 
+void brm_od_finish(shadow_view *v)
+{
+    const uint32_t nk = v->og_n[2];
+    size_t lat = (size_t)(v->og_n[0] - 1) * (v->og_n[1] - 1);
+    v->cell_clean = malloc(lat * sizeof *v->cell_clean);
+    if (!v->cell_clean) return;
+    for (size_t c = 0; c < lat; c++) {
+        uint32_t k = 0;
+        if (v->refine[c] < 0) {
+            const uint8_t *bad = v->od_bad + c * (nk - 1);
+            int32_t cr = v->corr[c];
+            const uint8_t *on = cr >= 0 ? v->corr_on + (size_t)cr * (nk - 1) : NULL;
+            while (k + 1 < nk && !bad[k] && !(on && on[k])) k++;
+        }
+        v->cell_clean[c] = (uint16_t)k;
+    }
+}
+
 /* G (and for face ≥ 0 the prefix P_face) at grid coordinates (x, y, z): cubic Hermite in z
  * (values G, slopes sigma~), bilinear across paths, in the cell's block when it has one.
  * Returns 0 outside the grid or in a flagged cell. */
 static int grid_eval(const shadow_view *v, double x, double y, double z, int face, double *g_out, double *p_out)
 {
-    double f[3] = {(x - v->og_lo[0]) / v->og_step[0], (y - v->og_lo[1]) / v->og_step[1],
-                   (z - v->og_lo[2]) / v->og_step[2]};
+    double f[3] = {(x - v->og_lo[0]) * v->og_inv[0], (y - v->og_lo[1]) * v->og_inv[1], (z - v->og_lo[2]) * v->og_inv[2]};
     uint32_t c[3];
     double w[3];
     for (int a = 0; a < 3; a++) {
         double lim = (double)(v->og_n[a] - 1);
         if (!(f[a] >= 0.0 && f[a] <= lim)) return 0;
-        double fl = floor(f[a]);
+        double fl = (double)(uint32_t)f[a]; /* floor: f ≥ 0 */
         if (fl > lim - 1.0) fl = lim - 1.0;
         c[a] = (uint32_t)fl;
         w[a] = f[a] - fl;
     }
     const uint32_t nk = v->og_n[2], n0 = v->og_n[0];
     size_t lat = c[0] + (size_t)(n0 - 1) * c[1];
+    if (v->cell_clean && c[2] < v->cell_clean[lat]) {
+        /* The common case: the four base columns, nothing else to read. */
+        double t = w[2], t2 = t * t, t3 = t2 * t, hz = v->og_step[2];
+        double h00 = 2 * t3 - 3 * t2 + 1, h10 = (t3 - 2 * t2 + t) * hz, h01 = -2 * t3 + 3 * t2, h11 = (t3 - t2) * hz;
+        size_t c00 = c[0] + (size_t)n0 * c[1], plane = (size_t)n0 * v->og_n[1];
+        size_t cc[4] = {c00, c00 + 1, c00 + n0, c00 + n0 + 1};
+        double g = 0.0, pp = 0.0;
+        for (int q = 0; q < 4; q++) {
+            const float *n = v->od + 2 * ((size_t)nk * cc[q] + c[2]);
+            double wq = (q & 1 ? w[0] : 1.0 - w[0]) * (q >> 1 ? w[1] : 1.0 - w[1]);
+            g += wq * (h00 * n[0] + h10 * n[1] + h01 * n[2] + h11 * n[3]);
+            if (face >= 0) pp += wq * v->prefix[(size_t)face * plane + cc[q]];
+        }
+        *g_out = g;
+        if (p_out) *p_out = pp;
+        return 1;
+    }
     const float *col[4], *pre[4] = {NULL, NULL, NULL, NULL};
     const uint8_t *bad;
     int32_t b = v->refine ? v->refine[lat] : -1;

@@ -310,6 +310,9 @@ brm_status brm_shadows_build(const brm_scene *s, const brm_shadow_opts *o, brm_s
     if ((st = run_per_view(ss, n_blk, blocks_of, block_item, threads, d)) != BRM_OK ||
         (st = run_per_view(ss, n_corr, corrections_of, corr_item, threads, d)) != BRM_OK)
         goto fail;
+    for (uint32_t l = 0; l < s->light_count; l++)
+        for (uint32_t k = 0; k < ss->lights[l].view_count; k++)
+            if (ss->lights[l].has_od) brm_od_finish(&ss->lights[l].views[k]);
 
     /* Sky. */
     ss->sky_present = s->sky.present;
@@ -353,6 +356,7 @@ void brm_shadows_free(brm_shadow_set *ss)
             free(ss->lights[l].views[k].prefix);
             free(ss->lights[l].views[k].od_bad);
             free(ss->lights[l].views[k].od_last);
+            free(ss->lights[l].views[k].cell_clean);
             free(ss->lights[l].views[k].refine);
             free(ss->lights[l].views[k].blk_cell);
             free(ss->lights[l].views[k].blk_od);

@@ -68,6 +68,7 @@ typedef struct shadow_view {
      * og_lo[2] + k·og_step[2] (ortho: f·p; persp: distance from the light) */
     uint32_t og_n[3];           /* nodes per axis, 0 = no grid */
     double og_lo[3], og_step[3];
+    double og_inv[3];           /* 1 / og_step */
     float *od;                  /* 2 floats per node (G, sigma), k fastest, then i, then j */
     /* ortho only: P_a(i, j) per axis a whose fog-bounds face the light can enter through */
     float *prefix;              /* 3 · og_n[0] · og_n[1], axis-major; NULL for persp */
@@ -105,6 +106,11 @@ typedef struct shadow_view {
     int8_t *corr_face;          /* ortho: the entry face the correction was taken with (−1 persp) */
     float *corr_dg;             /* corr_count · og_n[2] · BRM_OD_CORR_PTS, the points fastest */
     uint8_t *corr_on;           /* corr_count · (og_n[2] − 1): 1 where the correction applies */
+    /* Per lateral cell, set once the build is done (brm_od_finish): how many of its depth
+     * intervals, from the light's side, need nothing but the four base columns (no block,
+     * no correction, no flag), so most lookups read this and the columns alone; NULL when
+     * out of memory (every lookup takes the general path) */
+    uint16_t *cell_clean;       /* (og_n[0] − 1) · (og_n[1] − 1) */
 } shadow_view;
 /* The grids store G = ∫ sigma~ along the path from the first depth node (ortho) or from the
  * light (persp), where sigma~(q) = sigma_t(q clamped into the fog bounds): sigma_t continued
@@ -210,6 +216,9 @@ int brm_od_assign_corrections(shadow_view *v);
 void brm_od_fill_correction(const brm_scene *s, const media_info *mi, shadow_view *v, uint32_t c, float *scratch);
 /* Bytes one correction takes. */
 size_t brm_od_corr_bytes(const shadow_view *v);
+/* After the blocks and corrections: allocates and sets v->cell_clean (left NULL when out of
+ * memory, which only slows lookups). */
+void brm_od_finish(shadow_view *v);
 /* Optical depth at p from the grid; returns 0 and leaves *tau when p is outside it. */
 int brm_od_lookup(const brm_scene *s, const shadow_view *v, brm_vec3 p, double *tau);
 
