@@ -256,8 +256,8 @@ size_t brm_od_plan(const brm_scene *s, const brm_shadow_opts *o, const media_inf
          * the finest feature (nothing checks them); across, the build's check and the blocks
          * take care of what a coarse spacing misses. */
         double tot = (double)n[0] * n[1] * n[2];
-        if (tot > BRM_OD_MAX_NODES) {
-            double f = sqrt(BRM_OD_MAX_NODES / tot);
+        if (tot > BRM_OD_MAX_NODES_ORTHO) {
+            double f = sqrt(BRM_OD_MAX_NODES_ORTHO / tot);
             for (int a = 0; a < 2; a++) n[a] = (uint32_t)fmax(8.0, floor(n[a] * f));
         }
         for (int a = 0; a < 3; a++) axis_set(v, a, lo[a], hi[a], n[a], true);
