@@ -106,6 +106,17 @@ static brv_result fetch(brv_sampler *s, uint32_t b, const slot **out)
     return BRV_OK;
 }
 
+/* The slot holding brick b, or NULL; no replacement and no change to the recency. */
+static const slot *peek(const brv_sampler *s, uint32_t b)
+{
+    if (s->direct) return s->slots[b].brick == b ? &s->slots[b] : NULL;
+    uint32_t set = (uint32_t)(((uint64_t)(b * 2654435769u) * s->sets) >> 32);
+    const slot *a = &s->slots[set * (s->count >= 2 ? 2u : 1u)];
+    if (a->brick == b) return a;
+    if (s->count >= 2 && a[1].brick == b) return a + 1;
+    return NULL;
+}
+
 /* Continuous cell coordinate u on an axis of n samples → the two neighbours and the weight. */
 static void axis(double u, uint32_t n, uint32_t *i0, uint32_t *i1, double *t)
 {
@@ -219,43 +230,92 @@ static void world_coords(const brv_grid_info *g, const double pos[3], double u[3
     }
 }
 
+/* Samples points first..first+count of pos in order of the brick that holds their lower
+ * corner (a counting sort), so each brick is fetched once while its points are sampled, out of
+ * the cache's fast levels; every point still gets exactly what brv_sample_world gives it. */
+static brv_result batch_sorted(brv_sampler *s, size_t count, const double *pos, float *out, uint32_t *key,
+                               uint32_t *order, uint32_t *start)
+{
+    const brv_grid_info *g = s->g;
+    uint32_t nc = g->channel_count, bs = g->brick_size, nb = g->brick_count;
+    memset(start, 0, ((size_t)nb + 1) * sizeof *start);
+    for (size_t i = 0; i < count; i++) {
+        double u[3];
+        uint32_t c[3];
+        world_coords(g, pos + 3 * i, u);
+        for (int a = 0; a < 3; a++) {
+            double v = u[a] > 0.0 ? u[a] : 0.0;
+            c[a] = v < (double)(g->cells[a] - 1) ? (uint32_t)v : g->cells[a] - 1;
+        }
+        key[i] = c[0] / bs + g->bricks[0] * (c[1] / bs + g->bricks[1] * (c[2] / bs));
+        start[key[i] + 1]++;
+    }
+    for (uint32_t b = 0; b < nb; b++) start[b + 1] += start[b];
+    for (size_t i = 0; i < count; i++) order[start[key[i]]++] = (uint32_t)i;
+    enum { AHEAD = 12 };
+    for (size_t k = 0; k < count; k++) {
+#if defined(__GNUC__)
+        /* Random points over a large cached volume are bound by memory latency: prefetch the
+         * corner rows of the point AHEAD places on when its brick is cached (a hint only). */
+        if (k + AHEAD < count) {
+            size_t j = order[k + AHEAD];
+            const slot *sl = peek(s, key[j]);
+            if (sl) {
+                double u[3];
+                uint32_t c[3];
+                world_coords(g, pos + 3 * j, u);
+                for (int a = 0; a < 3; a++) {
+                    double v = u[a] > 0.0 ? u[a] : 0.0;
+                    c[a] = v < (double)(g->cells[a] - 1) ? (uint32_t)v : g->cells[a] - 1;
+                }
+                size_t sy = (size_t)nc * sl->ext[0], sz = sy * sl->ext[1];
+                const float *base = sl->data + nc * (size_t)(c[0] % bs) + sy * (c[1] % bs) + sz * (c[2] % bs);
+                __builtin_prefetch(base);
+                __builtin_prefetch(base + sy);
+                __builtin_prefetch(base + sz);
+                __builtin_prefetch(base + sy + sz);
+            }
+        }
+#endif
+        size_t i = order[k];
+        brv_result r = brv_sample_world(s, pos + 3 * i, out + (size_t)nc * i);
+        if (r != BRV_OK) return r;
+    }
+    return BRV_OK;
+}
+
 brv_result brv_sample_world_batch(brv_sampler *s, size_t count, const double *pos, float *out)
 {
     if (!s || (count && (!pos || !out))) return BRV_E_ARGUMENT;
     const brv_grid_info *g = s->g;
     if (g->kind == BRV_GRID_FRUSTUM) return BRV_E_ARGUMENT;
-    uint32_t nc = g->channel_count, bs = g->brick_size;
-    enum { AHEAD = 8 };
-    for (size_t i = 0; i < count; i++) {
-#if defined(__GNUC__)
-        /* Prefetch the corner cells of the sample AHEAD places on, when its brick is cached
-         * already: random points over a large volume are bound by memory latency, and this
-         * keeps several samples' cache misses in flight. A hint only; results are the same. */
-        if (s->direct && i + AHEAD < count) {
-            const double *p = pos + 3 * (i + AHEAD);
-            if (isfinite(p[0]) && isfinite(p[1]) && isfinite(p[2])) {
-                double u[3];
-                uint32_t c[3];
-                world_coords(g, p, u);
-                for (int a = 0; a < 3; a++) {
-                    double v = u[a] > 0.0 ? u[a] : 0.0;
-                    c[a] = v < (double)(g->cells[a] - 1) ? (uint32_t)v : g->cells[a] - 1;
-                }
-                uint32_t b = c[0] / bs + g->bricks[0] * (c[1] / bs + g->bricks[1] * (c[2] / bs));
-                const slot *sl = &s->slots[b];
-                if (sl->brick == b) {
-                    size_t sy = (size_t)nc * sl->ext[0], sz = sy * sl->ext[1];
-                    const float *base = sl->data + nc * (size_t)(c[0] % bs) + sy * (c[1] % bs) + sz * (c[2] % bs);
-                    __builtin_prefetch(base);
-                    __builtin_prefetch(base + sy);
-                    __builtin_prefetch(base + sz);
-                    __builtin_prefetch(base + sy + sz);
-                }
-            }
-        }
-#endif
-        brv_result r = brv_sample_world(s, pos + 3 * i, out + nc * i);
-        if (r != BRV_OK) return r;
+    uint32_t nc = g->channel_count;
+    /* Points up to the first non-finite one are sampled; that one is the fault. */
+    size_t good = 0;
+    while (good < count && isfinite(pos[3 * good]) && isfinite(pos[3 * good + 1]) && isfinite(pos[3 * good + 2]))
+        good++;
+    enum { CHUNK = 1u << 20, SMALL = 256 };
+    size_t chunk = good < CHUNK ? good : CHUNK;
+    const brv_allocator *a = brv_volume_allocator(s->v);
+    uint32_t *key = NULL, *order = NULL, *start = NULL;
+    if (good >= SMALL && g->brick_count > 1) {
+        key = brv_alloc(a, chunk * sizeof *key);
+        order = brv_alloc(a, chunk * sizeof *order);
+        start = brv_alloc(a, ((size_t)g->brick_count + 1) * sizeof *start);
     }
-    return BRV_OK;
+    brv_result r = BRV_OK;
+    if (key && order && start) {
+        for (size_t at = 0; at < good && r == BRV_OK; at += chunk) {
+            size_t m = good - at < chunk ? good - at : chunk;
+            r = batch_sorted(s, m, pos + 3 * at, out + (size_t)nc * at, key, order, start);
+        }
+    } else {
+        /* Few points, one brick, or no memory for the sort: in order. */
+        for (size_t i = 0; i < good && r == BRV_OK; i++) r = brv_sample_world(s, pos + 3 * i, out + (size_t)nc * i);
+    }
+    brv_dealloc(a, key);
+    brv_dealloc(a, order);
+    brv_dealloc(a, start);
+    if (r == BRV_OK && good < count) r = BRV_E_ARGUMENT;
+    return r;
 }

@@ -755,6 +755,11 @@ static void sampling_should_match_direct_evaluation_within_encoding_bound(void *
         assert_memory_equal(one, many, sizeof(float) * 2 * NB);
         assert_int_equal(brv_sample_world_batch(s, NB, pts, many), BRV_OK);
         assert_memory_equal(one, many, sizeof(float) * 2 * NB);
+        /* A non-finite point is the fault; the points before it are sampled (sorted path). */
+        memset(many, 0, sizeof(float) * 2 * NB);
+        pts[3 * 2000 + 1] = NAN;
+        assert_int_equal(brv_sample_world_batch(s, NB, pts, many), BRV_E_ARGUMENT);
+        assert_memory_equal(one, many, sizeof(float) * 2 * 2000);
         brv_sampler_free(all);
         free(pts);
         free(one);
