@@ -5,6 +5,7 @@
 #include <string.h>
 
 #include "bake/kernel.h"
+#include "bake/surface_cache.h"
 #include "base/lds.h"
 #include "base/sh.h"
 #include "base/threads.h"
@@ -84,7 +85,7 @@ static brm_status fog_build(const brm_scene *s, const brm_shadow_set *ss, double
         return brm_diag_error(d, BRM_E_NOMEM, "out of memory for the probes' fog grid");
     }
     for (uint32_t l = 0; l < s->light_count; l++) lights[l] = l;
-    fog_job j = {s, {s, ss}, f, lights, s->light_count};
+    fog_job j = {s, {.scene = s, .shadows = ss}, f, lights, s->light_count};
     brm_parallel_for(f->n[2], threads, fog_slice, &j, NULL);
     free(lights);
     return BRM_OK;
@@ -189,16 +190,18 @@ typedef struct probe_ctx {
     const brm_shadow_set *ss;
     const brm_solid_index *solid;
     fog_grid fog;
+    const brm_surface_cache *surf; /* bounce-hit irradiance; NULL: evaluated per hit */
     double eps;                 /* offset of secondary ray origins, m */
     uint32_t channels;
     uint64_t *rays;             /* per worker: rays traced */
 } probe_ctx;
 
-/* Irradiance at a surface point with normal n: direct light (shadow maps, fog on the way) and
- * the visible sky, band-limited (Ramamoorthi & Hanrahan 2001, bands 0–1). */
-static void surface_irradiance(const probe_ctx *c, brm_vec3 p, brm_vec3 n, uint32_t index, double E[3])
+/* Direct light at a surface point with normal n: every light's illuminance, cosine, shadow map
+ * and fog on the way. With U, also the same without shadows and fog (U may be NULL). */
+static void surface_direct(const probe_ctx *c, brm_vec3 p, brm_vec3 n, double E[3], double *U)
 {
     E[0] = E[1] = E[2] = 0.0;
+    if (U) U[0] = U[1] = U[2] = 0.0;
     for (uint32_t l = 0; l < c->s->light_count; l++) {
         const brm_light *lt = &c->s->lights[l];
         brm_vec3 to;
@@ -206,22 +209,77 @@ static void surface_irradiance(const probe_ctx *c, brm_vec3 p, brm_vec3 n, uint3
         double e = brm_light_illuminance(lt, p, &to, &dist);
         double cosi = brm_dot(n, to);
         if (e <= 0 || cosi <= 0) continue;
+        e *= cosi;
+        if (U) {
+            U[0] += e * lt->color.x;
+            U[1] += e * lt->color.y;
+            U[2] += e * lt->color.z;
+        }
         /* Bounce light: the sharp lookup (its penumbra matters little there). */
         double v = brm_shadow_visibility_sharp(c->ss, l, p);
         if (v <= 0) continue;
-        e *= cosi * v * brm_shadow_transmittance(c->ss, l, p);
+        e *= v * brm_shadow_transmittance(c->ss, l, p);
         E[0] += e * lt->color.x;
         E[1] += e * lt->color.y;
         E[2] += e * lt->color.z;
     }
-    if (c->s->sky.present) {
-        double sky[3][4], y[4];
-        brm_sky_incident(c->ss, p, index, sky);
-        brm_sh4(n, y);
-        for (int ch = 0; ch < 3; ch++) {
-            double e = BRM_PI * sky[ch][0] * y[0] + (2.0 * BRM_PI / 3.0) * (sky[ch][1] * y[1] + sky[ch][2] * y[2] + sky[ch][3] * y[3]);
-            E[ch] += e > 0 ? e : 0;
-        }
+}
+
+/* The direct light's unshadowed part alone (cheap: no map is read). */
+static void surface_unshadowed(const probe_ctx *c, brm_vec3 p, brm_vec3 n, double U[3])
+{
+    U[0] = U[1] = U[2] = 0.0;
+    for (uint32_t l = 0; l < c->s->light_count; l++) {
+        const brm_light *lt = &c->s->lights[l];
+        brm_vec3 to;
+        double dist;
+        double e = brm_light_illuminance(lt, p, &to, &dist);
+        double cosi = brm_dot(n, to);
+        if (e <= 0 || cosi <= 0) continue;
+        e *= cosi;
+        U[0] += e * lt->color.x;
+        U[1] += e * lt->color.y;
+        U[2] += e * lt->color.z;
+    }
+}
+
+/* Sky irradiance at a surface point with normal n, the visible sky band-limited (Ramamoorthi &
+ * Hanrahan 2001, bands 0–1). */
+static void surface_sky(const probe_ctx *c, brm_vec3 p, brm_vec3 n, uint32_t index, double E[3])
+{
+    E[0] = E[1] = E[2] = 0.0;
+    if (!c->s->sky.present) return;
+    double sky[3][4], y[4];
+    brm_sky_incident(c->ss, p, index, sky);
+    brm_sh4(n, y);
+    for (int ch = 0; ch < 3; ch++) {
+        double e = BRM_PI * sky[ch][0] * y[0] + (2.0 * BRM_PI / 3.0) * (sky[ch][1] * y[1] + sky[ch][2] * y[2] + sky[ch][3] * y[3]);
+        E[ch] = e > 0 ? e : 0;
+    }
+}
+
+/* Irradiance at a surface point with normal n: direct light and the visible sky. */
+static void surface_irradiance(const probe_ctx *c, brm_vec3 p, brm_vec3 n, uint32_t index, double E[3])
+{
+    double sky[3];
+    surface_direct(c, p, n, E, NULL);
+    surface_sky(c, p, n, index, sky);
+    for (int ch = 0; ch < 3; ch++) E[ch] += sky[ch];
+}
+
+/* The surface cache's node values (surface_cache.h): per channel, the share of the unshadowed
+ * direct light that arrives (tested: it jumps at a shadow's edge; 1 where no light falls), then
+ * the sky irradiance (smooth). A hit multiplies the share by its own unshadowed light, so the
+ * falloff and cosine of near lights stay exact and only shadows and fog are interpolated. */
+static void surf_eval(const void *ctx, brm_vec3 p, brm_vec3 n, uint32_t index, double v[BRM_SURFACE_VALUES])
+{
+    const probe_ctx *c = ctx;
+    double E[3], U[3], sky[3];
+    surface_direct(c, p, n, E, U);
+    surface_sky(c, p, n, index, sky);
+    for (int ch = 0; ch < 3; ch++) {
+        v[ch] = U[ch] > 0 ? E[ch] / U[ch] : 1.0;
+        v[3 + ch] = sky[ch];
     }
 }
 
@@ -263,9 +321,14 @@ static double bake_probe(const probe_ctx *c, brm_vec3 p, uint64_t key, uint32_t 
             back++;
         } else if (h) {
             const brm_object *ob = &s->objects[hit.object];
+            double E[3], sv[BRM_SURFACE_VALUES];
             brm_vec3 hp = brm_madd(brm_madd(p, dir, hit.t), hit.normal, c->eps);
-            double E[3];
-            surface_irradiance(c, hp, hit.normal, (uint32_t)(key * 31 + r), E);
+            if (c->surf && hit.tri != UINT32_MAX && brm_surface_cache_lookup(c->surf, hit.tri, hp, sv)) {
+                surface_unshadowed(c, hp, hit.normal, E);
+                for (int ch = 0; ch < 3; ch++) E[ch] = E[ch] * sv[ch] + sv[3 + ch];
+            } else {
+                surface_irradiance(c, hp, hit.normal, (uint32_t)(key * 31 + r), E);
+            }
             /* Lambertian: outgoing radiance = albedo/π × irradiance. */
             rad[0] = ob->albedo.x / BRM_PI * E[0];
             rad[1] = ob->albedo.y / BRM_PI * E[1];
@@ -293,6 +356,10 @@ static int probe_invalid(const probe_ctx *c, brm_vec3 p, double back_fraction)
     if (back_fraction > 0.25) return 1;
     return c->solid ? brm_solid_index_query(c->solid, p) : brm_point_in_solid(c->s, p);
 }
+
+/* Largest difference of the share of direct light arriving between the four nodes of a cell
+ * that still interpolates. */
+#define SURF_TOL 0.05
 
 enum { P_SH = 0, P_VALID = 27, P_EXT = 28, P_OFF = 29, PROBE_CH_MAX = 32 };
 
@@ -372,11 +439,24 @@ brm_status brm_bake_probes(const brm_scene *s, uint32_t t, const brm_bake_opts *
     c.eps = 1e-4 * (ext.x + ext.y + ext.z) + 1e-4;
     c.rays = calloc((size_t)threads, sizeof *c.rays);
     brm_solid_index *solid = NULL;
+    brm_surface_cache *surf = NULL;
     brm_status st = BRM_OK;
     if (!c.rays) return brm_diag_error(d, BRM_E_NOMEM, "%s: out of memory", tg->json_path);
     if ((st = brm_solid_index_build(s, &solid, d)) != BRM_OK) goto done;
     c.solid = solid;
     if ((st = fog_build(s, ss, tg->spacing_m, threads, &c.fog, d)) != BRM_OK) goto done;
+    /* Bounce hits read their shadows and sky from the surface cache (surface_cache.h, surf_eval),
+     * nodes half a probe spacing apart, where the four nodes around the hit agree on the share
+     * of light arriving within SURF_TOL (elsewhere, at shadow edges, the hit is evaluated as
+     * without the cache). Only when it pays,
+     * with fewer nodes than a quarter of the lattice's rays (most rays of an enclosed lattice
+     * hit something), and never in the reference bake, which stays exact. */
+    double surf_h = 0.5 * tg->spacing_m;
+    uint64_t rays_total = (uint64_t)g->n[0] * g->n[1] * g->n[2] * tg->rays;
+    if (!o->reference && s->tri_count && brm_surface_cache_nodes(s, surf_h) <= rays_total / 4) {
+        if ((st = brm_surface_cache_build(s, surf_h, c.eps, SURF_TOL, threads, surf_eval, &c, &surf, d)) != BRM_OK) goto done;
+        c.surf = surf;
+    }
 
     brm_plan pl;
     memset(&pl, 0, sizeof pl);
@@ -398,6 +478,7 @@ brm_status brm_bake_probes(const brm_scene *s, uint32_t t, const brm_bake_opts *
     st = brm_run_plan(s, t, o, g, &pl, out_path, stats, d);
     for (int i = 0; i < threads; i++) stats->rays += c.rays[i];
 done:
+    brm_surface_cache_free(surf);
     fog_free(&c.fog);
     brm_solid_index_free(solid);
     free(c.rays);

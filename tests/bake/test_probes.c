@@ -4,6 +4,7 @@
 #include <stdio.h>
 
 #include "bake_util.h"
+#include "bake/surface_cache.h"
 #include "base/sh.h"
 
 
@@ -112,6 +113,35 @@ static void probe_facing_a_lit_white_wall_should_see_its_exitance(void **state)
     brv_free(v);
 }
 
+static void probe_lattice_facing_a_lit_white_wall_should_see_its_exitance_through_the_surface_cache(void **state)
+{
+    (void)state;
+    /* The wall above with a 9 × 9 lattice 0.5 m in front of it, enough rays that the bake uses
+     * the surface cache for the bounce (nodes at half the 1 m spacing). */
+    const char *json =
+        "{\"brume\": 1, \"name\": \"wall\", \"fog_bounds\": {\"min\": [-1,-21,-21], \"max\": [6,21,21]},"
+        " \"geometry\": [{\"shape\": \"box\", \"min\": [-0.4,-20,-20], \"max\": [0,20,20], \"albedo\": [1,1,1]}],"
+        " \"lights\": [{\"type\": \"directional\", \"direction\": [-1,0,0], \"illuminance_lux\": 100}],"
+        " \"targets\": [{\"name\": \"p\", \"grid\": \"probes\", \"min\": [0.5,-4,-4], \"max\": [0.5,4,4], \"spacing_m\": 1,"
+        "   \"rays\": 2048, \"encoding\": \"f32\"}]}";
+    brm_scene *s = load_json(json);
+    /* The bake caches when the nodes number at most a quarter of the rays. */
+    assert_true(brm_surface_cache_nodes(s, 0.5) <= 81 * 2048 / 4);
+    brm_scene_free(s);
+    brv_volume *v = bake_json(json, "wall-lattice", 2);
+    assert_int_equal(brv_channel_size(v), 81);
+    const double E = 100.0;
+    for (size_t c = 0; c < 81; c++) {
+        double L[9];
+        probe_sh(v, 'g', c, L);
+        /* Source: as in the single-probe case above — exitance M = albedo·E from a plane filling
+         * the hemisphere, plus the sun's band-limited ringing E/16 from behind (REFERENCES.md
+         * §3); the wall's edges, 16 m away or more, hide under 0.1 % of the hemisphere. */
+        assert_rel(brm_sh9_irradiance(L, brm_v3(-1, 0, 0)), E * 1.0 + E / 16.0, 0.05);
+    }
+    brv_free(v);
+}
+
 static void probe_under_a_roof_should_get_no_sun_and_probe_in_a_box_is_invalid(void **state)
 {
     (void)state;
@@ -186,6 +216,7 @@ int main(void)
         cmocka_unit_test(uniform_sky_should_project_to_band_zero_and_irradiance_pi),
         cmocka_unit_test(directional_light_should_project_as_a_delta),
         cmocka_unit_test(probe_facing_a_lit_white_wall_should_see_its_exitance),
+        cmocka_unit_test(probe_lattice_facing_a_lit_white_wall_should_see_its_exitance_through_the_surface_cache),
         cmocka_unit_test(probe_under_a_roof_should_get_no_sun_and_probe_in_a_box_is_invalid),
         cmocka_unit_test(probes_should_be_identical_across_thread_counts_and_relocate_out_of_solids),
     };

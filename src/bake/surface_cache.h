@@ -1,0 +1,45 @@
+/* A cache of surface irradiance for bounce hits: values per node of a small grid laid on each
+ * of the scene's triangles, interpolated bilinearly between the four nodes around a hit.
+ *
+ * Each triangle's grid runs along its longest edge (u) and across it (v), nodes at most h apart,
+ * so a long thin triangle gets a long thin grid. A node off the triangle is evaluated at the
+ * triangle's nearest point (lifted by eps along the winding normal like every node), so a
+ * lookup never reads light from beyond the triangle's edges.
+ *
+ * A node holds BRM_SURFACE_VALUES numbers; the first BRM_SURFACE_TESTED are tested: a cell
+ * whose four nodes differ in one of them by more than a tolerance (a shadow's edge crosses it)
+ * does not interpolate, and the caller evaluates that hit itself. Nodes are evaluated once, in
+ * parallel, each by a call that depends only on the node (its point, normal and index): the
+ * cache is the same whatever the thread count. Spheres are not cached. */
+#ifndef BRM_SURFACE_CACHE_H
+#define BRM_SURFACE_CACHE_H
+
+#include "base/diag.h"
+#include "scene/scene.h"
+
+enum { BRM_SURFACE_VALUES = 6, BRM_SURFACE_TESTED = 3 };
+
+/* The values at point p with unit normal n; index is the node's index (for deterministic
+ * per-node sampling). Called from several threads at once. */
+typedef void (*brm_surface_eval)(const void *ctx, brm_vec3 p, brm_vec3 n, uint32_t index,
+                                 double v[BRM_SURFACE_VALUES]);
+
+typedef struct brm_surface_cache brm_surface_cache;
+
+/* Nodes the cache of s at spacing h would hold (for the caller's is-it-worth-it test). */
+uint64_t brm_surface_cache_nodes(const brm_scene *s, double h);
+
+/* Builds the cache with nodes at most h apart, lifted eps off their triangle; a cell
+ * interpolates when max − min of its four nodes is at most tol in every tested value.
+ * BRM_E_INTERRUPTED if brm_interrupted is raised meanwhile. */
+brm_status brm_surface_cache_build(const brm_scene *s, double h, double eps, double tol, int threads,
+                                   brm_surface_eval eval, const void *ctx, brm_surface_cache **out, brm_diag *d);
+
+/* The values at point q on (or next to) scene triangle tri, bilinear between the four nodes of
+ * the cell around q: returns 1, or 0 when that cell's nodes disagree (the caller evaluates q
+ * itself; out is then partly written). */
+int brm_surface_cache_lookup(const brm_surface_cache *sc, uint32_t tri, brm_vec3 q, double out[BRM_SURFACE_VALUES]);
+
+void brm_surface_cache_free(brm_surface_cache *sc);
+
+#endif
