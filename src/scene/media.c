@@ -17,8 +17,17 @@
 
 /* Per scene: which media are densities and which are noise, and one permutation table per
  * noise medium (Perlin's improved noise keeps a doubled 256-entry table). */
+/* A density medium's coefficients, packed for the density sums (the same values as in its
+ * brm_medium, contiguous so the inner loops read a few cache lines). */
+typedef struct density_term {
+    brm_medium_type type;
+    double sigma_t, base_y, inv_scale_height, inv_edge_fade;
+    brm_aabb box;
+} density_term;
+
 struct brm_noise_table {
     uint32_t density_count, noise_count;
+    density_term term[BRM_MAX_MEDIA];       /* the density media, in density_idx order */
     uint8_t density_idx[BRM_MAX_MEDIA];
     uint8_t noise_idx[BRM_MAX_MEDIA];
     double fbm_norm[BRM_MAX_MEDIA];         /* 1 / Σ amplitudes, per medium index */
@@ -149,6 +158,8 @@ brm_status brm_media_prepare(brm_scene *s, brm_diag *d)
             /* Σ_{o<n} 0.5^o = 2 − 2^{1−n} */
             t->fbm_norm[i] = 1.0 / (2.0 - ldexp(1.0, 1 - (int)oct));
         } else if (m->type != BRM_MEDIUM_INVALID) {
+            t->term[t->density_count] = (density_term){m->type, m->sigma_t, m->base_y, m->inv_scale_height,
+                                                       m->inv_edge_fade, m->box};
             t->density_idx[t->density_count++] = (uint8_t)i;
         }
     }
@@ -162,7 +173,7 @@ brm_status brm_media_prepare(brm_scene *s, brm_diag *d)
  * minima are plain comparisons (the coordinates are finite), not calls to fmin. */
 static inline double min2(double a, double b) { return b < a ? b : a; }
 
-static inline double density(const brm_medium *m, brm_vec3 p)
+static inline double density(const density_term *m, brm_vec3 p)
 {
     switch (m->type) {
     case BRM_MEDIUM_UNIFORM: return m->sigma_t;
@@ -175,19 +186,19 @@ static inline double density(const brm_medium *m, brm_vec3 p)
         if (m->inv_edge_fade <= 0.0) return m->sigma_t;
         double e = min2(min2(min2(p.x - m->box.min.x, m->box.max.x - p.x), min2(p.y - m->box.min.y, m->box.max.y - p.y)),
                         min2(p.z - m->box.min.z, m->box.max.z - p.z));
-        double t = e * m->inv_edge_fade;
-        if (t >= 1.0) return m->sigma_t;
-        return m->sigma_t * t * t * (3.0 - 2.0 * t);   /* smoothstep(0, edge_fade_m, e) */
+        double f = e * m->inv_edge_fade;
+        if (f >= 1.0) return m->sigma_t;
+        return m->sigma_t * f * f * (3.0 - 2.0 * f);   /* smoothstep(0, edge_fade_m, e) */
     }
     default: return 0.0;
     }
 }
 
 /* Σ density over the density media at p, p inside the fog bounds. */
-static inline double density_sum_inside(const brm_scene *s, const brm_noise_table *t, brm_vec3 p)
+static inline double density_sum_inside(const brm_noise_table *t, brm_vec3 p)
 {
     double sum = 0.0;
-    for (uint32_t k = 0; k < t->density_count; k++) sum += density(&s->media[t->density_idx[k]], p);
+    for (uint32_t k = 0; k < t->density_count; k++) sum += density(&t->term[k], p);
     return sum;
 }
 
@@ -216,8 +227,7 @@ double brm_media_extinction(const brm_scene *s, brm_vec3 p)
     assert(s->media_ready);
     if (!brm_aabb_contains(s->fog_bounds, p)) return 0.0;
     const brm_noise_table *t = s->noise;
-    double sum = 0.0;
-    for (uint32_t k = 0; k < t->density_count; k++) sum += density(&s->media[t->density_idx[k]], p);
+    double sum = density_sum_inside(t, p);
     if (sum <= 0.0 || t->noise_count == 0) return sum;
     return sum * noise_factor(s, p);
 }
@@ -233,7 +243,7 @@ void brm_media_eval(const brm_scene *s, brm_vec3 p, brm_media_point *out)
     double sum = 0.0;
     for (uint32_t k = 0; k < t->density_count; k++) {
         uint32_t i = t->density_idx[k];
-        double st = density(&s->media[i], p);
+        double st = density(&t->term[k], p);
         if (st > 0.0) {
             out->medium[out->count] = (uint16_t)i;
             out->sigma_t_each[out->count] = st;
@@ -294,7 +304,7 @@ double brm_media_density_sum(const brm_scene *s, brm_vec3 p)
 {
     assert(s->media_ready);
     if (!brm_aabb_contains(s->fog_bounds, p)) return 0.0;
-    return density_sum_inside(s, s->noise, p);
+    return density_sum_inside(s->noise, p);
 }
 
 static double noise_grid_spacing(const brm_scene *s, uint32_t n[3])
@@ -449,7 +459,7 @@ double brm_media_extinction_tabulated(const brm_scene *s, const brm_noise_grid *
 {
     if (!g || !g->f) return brm_media_extinction(s, p);
     if (!brm_aabb_contains(s->fog_bounds, p)) return 0.0;
-    double sum = density_sum_inside(s, s->noise, p);
+    double sum = density_sum_inside(s->noise, p);
     if (sum <= 0.0) return 0.0;
     double cx, cy, cz;
     const uint32_t ix = lattice_axis((p.x - g->lo.x) * g->inv_step.x, g->n[0], &cx);
