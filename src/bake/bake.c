@@ -374,6 +374,7 @@ typedef struct bake_ctx {
     uint64_t seed;
     int threads;
     uint32_t *light_lists;      /* per worker: light indices after culling */
+    uint32_t *sub_lists;        /* per worker: the same, refined for a part of the box */
     uint64_t *light_samples;    /* per worker counters */
     double (*scratch)[3];       /* per worker: BRM_MAX_CELL_SAMPLES points */
     double *column;             /* per worker: frustum column scratch */
@@ -394,6 +395,36 @@ static uint32_t cull_lights(const bake_ctx *c, brm_aabb b, int worker, uint32_t 
     }
     *out = lights;
     return nl;
+}
+
+/* The list of lights for box b inside the box the list was culled for: lights whose range or
+ * cone misses b are dropped, and the lights the maps called mixed there are classified again
+ * on b (smaller boxes are more often wholly lit or wholly dark). Exact like cull_lights: a
+ * dropped light gives 0 at every point of b, a light marked lit has visibility exactly 1. */
+static uint32_t refine_lights(const bake_ctx *c, brm_aabb b, const uint32_t *in, uint32_t n, int worker, uint32_t **out)
+{
+    uint32_t *lights = c->sub_lists + (size_t)worker * (c->scene->light_count + 1);
+    uint32_t m = 0;
+    for (uint32_t i = 0; i < n; i++) {
+        const uint32_t l = in[i] & ~BRM_KERNEL_LIT;
+        if (!brm_light_reaches(&c->scene->lights[l], b)) continue;
+        if (in[i] & BRM_KERNEL_LIT) {
+            lights[m++] = in[i];
+            continue;
+        }
+        int cls = brm_shadow_classify(c->shadows, l, b);
+        if (cls == 0) continue;
+        lights[m++] = cls == 1 ? (l | BRM_KERNEL_LIT) : l;
+    }
+    *out = lights;
+    return m;
+}
+
+static bool any_mixed(const uint32_t *lights, uint32_t n)
+{
+    for (uint32_t i = 0; i < n; i++)
+        if (!(lights[i] & BRM_KERNEL_LIT)) return true;
+    return false;
 }
 
 static uint32_t sample_count(const brm_target *t)
@@ -417,6 +448,42 @@ static void world_plan(brm_plan *pl, const brm_target *tg)
     for (int i = 0; i < 12; i++) brm_plan_channel(pl, dirn[i], "cd/m2/m", enc_for(tg->encoding, false));
 }
 
+/* One cell of a world brick: the averages of its samples over its free part. */
+static void world_cell(bake_ctx *j, uint32_t i, uint32_t jj, uint32_t k, const uint32_t lo[3], uint32_t nx, uint32_t ny,
+                       size_t nc, const uint32_t *lights, uint32_t nl, int worker, float *out, uint64_t *evals)
+{
+    const brm_grid *g = j->grid;
+    const uint32_t S = sample_count(j->target);
+    double (*u)[3] = j->scratch + (size_t)worker * BRM_MAX_CELL_SAMPLES;
+    size_t gi = brm_grid_index(g, i, jj, k);
+    size_t li = (size_t)(i - lo[0]) + nx * ((size_t)(jj - lo[1]) + ny * (size_t)(k - lo[2]));
+    double occ = j->occ->fraction[gi];
+    double free_frac = 1.0 - occ;
+    double ext = 0.0, ins[3] = {0, 0, 0}, dir[3][4] = {{0}};
+    if (free_frac > 0.0) {
+        brm_cell_samples(j->seed ^ (uint64_t)gi * 0x9e3779b97f4a7c15ull, S, u);
+        for (uint32_t si = 0; si < S; si++) {
+            brm_vec3 p = brm_grid_point(g, i + u[si][0], jj + u[si][1], k + u[si][2]);
+            brm_kernel_out ko;
+            brm_kernel_eval(&j->kernel, p, lights, nl, (uint32_t)(gi * S + si), NULL, &ko);
+            *evals += ko.light_evals;
+            ext += ko.sigma_t;
+            for (int c = 0; c < 3; c++) {
+                ins[c] += ko.inscatter[c];
+                for (int m = 0; m < 4; m++) dir[c][m] += ko.dir[c][m];
+            }
+        }
+    }
+    /* Cell averages over the free part: solid parts carry no fog. */
+    double w = free_frac / (double)S;
+    out[W_EXT * nc + li] = (float)(ext * w);
+    out[W_OCC * nc + li] = (float)occ;
+    for (int c = 0; c < 3; c++) {
+        out[(W_INS + c) * nc + li] = (float)(ins[c] * w);
+        for (int m = 0; m < 4; m++) out[(W_DIR + 4 * c + m) * nc + li] = (float)(dir[c][m] * w);
+    }
+}
+
 static void world_unit(void *ctx, uint32_t b, int worker, float *out)
 {
     bake_ctx *j = ctx;
@@ -428,39 +495,33 @@ static void world_unit(void *ctx, uint32_t b, int worker, float *out)
     brm_aabb bb = {brm_grid_point(g, lo[0], lo[1], lo[2]), brm_grid_point(g, hi[0], hi[1], hi[2])};
     uint32_t *lights;
     uint32_t nl = cull_lights(j, bb, worker, &lights);
-    const uint32_t S = sample_count(j->target);
-    double (*u)[3] = j->scratch + (size_t)worker * BRM_MAX_CELL_SAMPLES;
     uint64_t evals = 0;
-    for (uint32_t k = lo[2]; k < hi[2]; k++)
-        for (uint32_t jj = lo[1]; jj < hi[1]; jj++)
-            for (uint32_t i = lo[0]; i < hi[0]; i++) {
-                size_t gi = brm_grid_index(g, i, jj, k);
-                size_t li = (size_t)(i - lo[0]) + nx * ((size_t)(jj - lo[1]) + ny * (size_t)(k - lo[2]));
-                double occ = j->occ->fraction[gi];
-                double free_frac = 1.0 - occ;
-                double ext = 0.0, ins[3] = {0, 0, 0}, dir[3][4] = {{0}};
-                if (free_frac > 0.0) {
-                    brm_cell_samples(j->seed ^ (uint64_t)gi * 0x9e3779b97f4a7c15ull, S, u);
-                    for (uint32_t si = 0; si < S; si++) {
-                        brm_vec3 p = brm_grid_point(g, i + u[si][0], jj + u[si][1], k + u[si][2]);
-                        brm_kernel_out ko;
-                        brm_kernel_eval(&j->kernel, p, lights, nl, (uint32_t)(gi * S + si), NULL, &ko);
-                        evals += ko.light_evals;
-                        ext += ko.sigma_t;
-                        for (int c = 0; c < 3; c++) {
-                            ins[c] += ko.inscatter[c];
-                            for (int m = 0; m < 4; m++) dir[c][m] += ko.dir[c][m];
-                        }
-                    }
+    /* Where the maps left a light mixed over the brick, each octant of it is culled again. */
+    const bool split = any_mixed(lights, nl);
+    const uint32_t parts = split ? 2 : 1;
+    for (uint32_t oz = 0; oz < parts; oz++)
+        for (uint32_t oy = 0; oy < parts; oy++)
+            for (uint32_t ox = 0; ox < parts; ox++) {
+                const uint32_t o[3] = {ox, oy, oz};
+                uint32_t a[3], e[3];
+                for (int ax = 0; ax < 3; ax++) {
+                    uint32_t mid = lo[ax] + (hi[ax] - lo[ax] + 1) / 2;
+                    a[ax] = !split ? lo[ax] : o[ax] ? mid : lo[ax];
+                    e[ax] = !split ? hi[ax] : o[ax] ? hi[ax] : mid;
                 }
-                /* Cell averages over the free part: solid parts carry no fog. */
-                double w = free_frac / (double)S;
-                out[W_EXT * nc + li] = (float)(ext * w);
-                out[W_OCC * nc + li] = (float)occ;
-                for (int c = 0; c < 3; c++) {
-                    out[(W_INS + c) * nc + li] = (float)(ins[c] * w);
-                    for (int m = 0; m < 4; m++) out[(W_DIR + 4 * c + m) * nc + li] = (float)(dir[c][m] * w);
+                if (a[0] >= e[0] || a[1] >= e[1] || a[2] >= e[2]) continue;
+                const uint32_t *ls = lights;
+                uint32_t n = nl;
+                if (split) {
+                    brm_aabb ob = {brm_grid_point(g, a[0], a[1], a[2]), brm_grid_point(g, e[0], e[1], e[2])};
+                    uint32_t *sub;
+                    n = refine_lights(j, ob, lights, nl, worker, &sub);
+                    ls = sub;
                 }
+                for (uint32_t k = a[2]; k < e[2]; k++)
+                    for (uint32_t jj = a[1]; jj < e[1]; jj++)
+                        for (uint32_t i = a[0]; i < e[0]; i++)
+                            world_cell(j, i, jj, k, lo, nx, ny, nc, ls, n, worker, out, &evals);
             }
     j->light_samples[worker] += evals;
 }
@@ -506,7 +567,7 @@ static void froxel_average(bake_ctx *j, uint32_t i, uint32_t jj, uint32_t k, con
         double depth = brm_dot(v, g->fwd);
         brm_vec3 view = brm_norm(v);
         brm_kernel_out ko;
-        brm_kernel_eval(&j->kernel, p, lights, nl, (uint32_t)(gi * S + si), &view, &ko);
+        brm_kernel_eval_view(&j->kernel, p, lights, nl, (uint32_t)(gi * S + si), view, &ko);
         *evals += ko.light_evals;
         double w = depth * depth;
         wsum += w;
@@ -573,7 +634,7 @@ static void frustum_unit(void *ctx, uint32_t unit, int worker, float *out)
                 for (uint32_t si = 0; si < S; si++) {
                     brm_vec3 p = brm_madd(g->cam.position, ray, g->cam.near * u[si][2]);
                     brm_kernel_out ko;
-                    brm_kernel_eval(&j->kernel, p, lights, nl, si, &view, &ko);
+                    brm_kernel_eval_view(&j->kernel, p, lights, nl, si, view, &ko);
                     evals += ko.light_evals;
                     ext += ko.sigma_t;
                     for (int c = 0; c < 3; c++) sc[c] += ko.toward_view[c];
@@ -653,10 +714,11 @@ static brm_status bake_grid(const brm_scene *s, uint32_t t, const brm_bake_opts 
         memcpy(&c.seed, dg, sizeof c.seed);
     }
     c.light_lists = calloc((size_t)threads * (s->light_count + 1), sizeof *c.light_lists);
+    c.sub_lists = calloc((size_t)threads * (s->light_count + 1), sizeof *c.sub_lists);
     c.light_samples = calloc((size_t)threads, sizeof *c.light_samples);
     c.scratch = malloc((size_t)threads * BRM_MAX_CELL_SAMPLES * sizeof *c.scratch);
     if (tg->grid == BRM_GRID_FRUSTUM) c.column = malloc((size_t)threads * ((size_t)g.n[2] + 1) * COL_FIELDS * sizeof(double));
-    if (!c.light_lists || !c.light_samples || !c.scratch || (tg->grid == BRM_GRID_FRUSTUM && !c.column)) {
+    if (!c.light_lists || !c.sub_lists || !c.light_samples || !c.scratch || (tg->grid == BRM_GRID_FRUSTUM && !c.column)) {
         st = brm_diag_error(d, BRM_E_NOMEM, "%s: out of memory", tg->json_path);
         goto done;
     }
@@ -681,6 +743,7 @@ static brm_status bake_grid(const brm_scene *s, uint32_t t, const brm_bake_opts 
 
 done:
     free(c.light_lists);
+    free(c.sub_lists);
     free(c.light_samples);
     free(c.scratch);
     free(c.column);

@@ -6,8 +6,9 @@
 #include "scene/light.h"
 #include "scene/phase.h"
 
-void brm_kernel_eval(const brm_kernel *k, brm_vec3 p, const uint32_t *lights, uint32_t light_count,
-                     uint32_t sample_index, const brm_vec3 *view, brm_kernel_out *out)
+/* iso: fill inscatter and dir (the view-independent outputs). */
+static inline void kernel_eval(const brm_kernel *k, brm_vec3 p, const uint32_t *lights, uint32_t light_count,
+                               uint32_t sample_index, const brm_vec3 *view, bool iso, brm_kernel_out *out)
 {
     memset(out, 0, sizeof *out);
     const brm_scene *s = k->scene;
@@ -36,12 +37,14 @@ void brm_kernel_eval(const brm_kernel *k, brm_vec3 p, const uint32_t *lights, ui
         /* A light is a delta in direction: its radiance integrates to its illuminance e, and its
          * projection onto Y_lm is e·Y_lm(toward the light). */
         const double rgb[3] = {e * l->color.x, e * l->color.y, e * l->color.z};
-        double y[4];
-        brm_sh4(to_light, y);
-        for (int c = 0; c < 3; c++) {
-            double a = ss[c] * rgb[c];
-            out->inscatter[c] += a * (1.0 / (4.0 * BRM_PI));
-            for (int m = 0; m < 4; m++) out->dir[c][m] += a * y[m];
+        if (iso) {
+            double y[4];
+            brm_sh4(to_light, y);
+            for (int c = 0; c < 3; c++) {
+                double a = ss[c] * rgb[c];
+                out->inscatter[c] += a * (1.0 / (4.0 * BRM_PI));
+                for (int m = 0; m < 4; m++) out->dir[c][m] += a * y[m];
+            }
         }
         if (view) {
             brm_vec3 sp = brm_media_scatter_phase(s, &mp, brm_dot(*view, to_light));
@@ -54,7 +57,7 @@ void brm_kernel_eval(const brm_kernel *k, brm_vec3 p, const uint32_t *lights, ui
     if (s->sky.present) {
         double sky[3][4];
         brm_sky_incident(k->shadows, p, sample_index, sky);
-        for (int c = 0; c < 3; c++) {
+        for (int c = 0; iso && c < 3; c++) {
             /* ∫ L dω = L_00 / Y00, so sigma_s/(4π)·∫L dω = sigma_s·L_00·Y00 (4π·Y00² = 1). */
             out->inscatter[c] += ss[c] * sky[c][0] * BRM_SH_C0;
             for (int m = 0; m < 4; m++) out->dir[c][m] += ss[c] * sky[c][m];
@@ -76,4 +79,16 @@ void brm_kernel_eval(const brm_kernel *k, brm_vec3 p, const uint32_t *lights, ui
             }
         }
     }
+}
+
+void brm_kernel_eval(const brm_kernel *k, brm_vec3 p, const uint32_t *lights, uint32_t light_count,
+                     uint32_t sample_index, const brm_vec3 *view, brm_kernel_out *out)
+{
+    kernel_eval(k, p, lights, light_count, sample_index, view, true, out);
+}
+
+void brm_kernel_eval_view(const brm_kernel *k, brm_vec3 p, const uint32_t *lights, uint32_t light_count,
+                          uint32_t sample_index, brm_vec3 view, brm_kernel_out *out)
+{
+    kernel_eval(k, p, lights, light_count, sample_index, &view, false, out);
 }

@@ -32,4 +32,9 @@ typedef struct brm_kernel_out {
 void brm_kernel_eval(const brm_kernel *k, brm_vec3 p, const uint32_t *lights, uint32_t light_count,
                      uint32_t sample_index, const brm_vec3 *view, brm_kernel_out *out);
 
+/* The same with a view direction, filling only sigma_t, sigma_s, toward_view and light_evals
+ * (inscatter and dir stay 0): what the frustum baker reads. Same bits in those fields. */
+void brm_kernel_eval_view(const brm_kernel *k, brm_vec3 p, const uint32_t *lights, uint32_t light_count,
+                          uint32_t sample_index, brm_vec3 view, brm_kernel_out *out);
+
 #endif
