@@ -4,7 +4,8 @@
  * most 4 primitives), single-threaded and driven only by the primitive order of the scene, so
  * the same scene always gives the same tree. Nodes are a flat array; the two children of an
  * interior node sit next to each other. Traversal is iterative with a fixed stack, nearer child
- * first. Primitives are copied in leaf order so a leaf reads one contiguous run. */
+ * first. Primitives are copied in leaf order so a leaf reads one contiguous run, triangles as a
+ * vertex and two edges. */
 #include "voxel/bvh.h"
 
 #include <float.h>
@@ -16,15 +17,19 @@
 #define FORCE_MEDIAN_DEPTH 40   /* past this depth split by count: bounds the tree depth */
 #define STACK_MAX 128           /* > FORCE_MEDIAN_DEPTH + log2(UINT32_MAX) */
 
+/* 32 bytes, two to a cache line. The bounds are floats rounded outward from the exact double
+ * boxes: a box can only grow, so the traversal may visit a little more but never misses, and
+ * every primitive is still tested in double precision. */
 typedef struct node {
-    double lo[3], hi[3];
+    float b[6];         /* lo x, y, z, then hi x, y, z */
     uint32_t index;     /* leaf: first primitive; interior: first of the two children */
     uint16_t count;     /* leaf: primitive count (> 0); interior: 0 */
     uint16_t axis;      /* interior: split axis, for the front-to-back order */
 } node;
 
 typedef struct prim {
-    brm_vec3 v[3];      /* triangle vertices; sphere: v[0] centre, v[1].x radius */
+    brm_vec3 v[3];      /* triangle: v[0] and the edges v1 − v0, v2 − v0; sphere: v[0] centre,
+                           v[1].x radius */
     uint32_t object;
     uint32_t tri;       /* UINT32_MAX for a sphere */
 } prim;
@@ -38,18 +43,18 @@ struct brm_bvh {
 
 /* ---- primitive tests ---------------------------------------------------------------- */
 
-int brm_ray_triangle(brm_vec3 o, brm_vec3 dir, const brm_vec3 v[3], double tmin, double tmax, double *t,
-                     int *near_edge)
+/* Möller, T. and Trumbore, B., "Fast, Minimum Storage Ray/Triangle Intersection", Journal of
+ * Graphics Tools 2(1), 1997: solve o + t·d = (1−u−v)·v0 + u·v1 + v·v2 by Cramer's rule with
+ * scalar triple products. The edges come precomputed (the same doubles brm_ray_triangle
+ * computes, so both give the same bits). */
+static inline int tri_test(brm_vec3 o, brm_vec3 dir, brm_vec3 v0, brm_vec3 e1, brm_vec3 e2, double tmin, double tmax,
+                           double *t, int *near_edge)
 {
-    /* Möller, T. and Trumbore, B., "Fast, Minimum Storage Ray/Triangle Intersection",
-     * Journal of Graphics Tools 2(1), 1997: solve o + t·d = (1−u−v)·v0 + u·v1 + v·v2 by
-     * Cramer's rule with scalar triple products. */
-    brm_vec3 e1 = brm_sub(v[1], v[0]), e2 = brm_sub(v[2], v[0]);
     brm_vec3 p = brm_cross(dir, e2);
     double det = brm_dot(e1, p);
     if (det == 0.0) return 0;   /* ray parallel to the plane */
     double inv = 1.0 / det;
-    brm_vec3 s = brm_sub(o, v[0]);
+    brm_vec3 s = brm_sub(o, v0);
     double u = brm_dot(s, p) * inv;
     const double eps = BRM_TRI_EDGE_EPS;
     if (u < -eps || u > 1.0 + eps) return 0;
@@ -66,6 +71,12 @@ int brm_ray_triangle(brm_vec3 o, brm_vec3 dir, const brm_vec3 v[3], double tmin,
         *near_edge = u < e || w < e || u + w > 1.0 - e;
     }
     return 1;
+}
+
+int brm_ray_triangle(brm_vec3 o, brm_vec3 dir, const brm_vec3 v[3], double tmin, double tmax, double *t,
+                     int *near_edge)
+{
+    return tri_test(o, dir, v[0], brm_sub(v[1], v[0]), brm_sub(v[2], v[0]), tmin, tmax, t, near_edge);
 }
 
 int brm_ray_sphere(brm_vec3 o, brm_vec3 dir, brm_vec3 c, double r, double tmin, double tmax, double *t,
@@ -90,6 +101,7 @@ int brm_ray_sphere(brm_vec3 o, brm_vec3 dir, brm_vec3 c, double r, double tmin, 
 
 /* ---- build -------------------------------------------------------------------------- */
 
+/* Bounds of a primitive given as the scene has it (triangle vertices, not edges). */
 static brm_aabb prim_bounds(const prim *p)
 {
     brm_aabb b;
@@ -102,6 +114,29 @@ static brm_aabb prim_bounds(const prim *p)
         b.max = brm_vmax(p->v[0], brm_vmax(p->v[1], p->v[2]));
     }
     return b;
+}
+
+/* x rounded to a float no greater (down) or no smaller (up) than x. */
+static float float_down(double x)
+{
+    float f = (float)x;
+    return (double)f > x ? nextafterf(f, -HUGE_VALF) : f;
+}
+
+static float float_up(double x)
+{
+    float f = (float)x;
+    return (double)f < x ? nextafterf(f, HUGE_VALF) : f;
+}
+
+static void node_set_box(node *nd, brm_aabb box)
+{
+    for (int a = 0; a < 3; a++) {
+        double lo = brm_vget(box.min, a), hi = brm_vget(box.max, a);
+        /* An empty box (lo > hi: the empty scene's root) stays empty. */
+        nd->b[a] = lo <= hi ? float_down(lo) : HUGE_VALF;
+        nd->b[3 + a] = lo <= hi ? float_up(hi) : -HUGE_VALF;
+    }
 }
 
 static double area(brm_aabb b)
@@ -159,7 +194,7 @@ static brm_status build(brm_bvh *b, build_item *it, brm_diag *d)
     b->node_count = 1;
     if (n == 0) {
         node *root = &b->nodes[0];
-        for (int a = 0; a < 3; a++) { root->lo[a] = HUGE_VAL; root->hi[a] = -HUGE_VAL; }
+        node_set_box(root, brm_aabb_empty());
         root->count = 0;
         root->index = 0;
         free(stack);
@@ -175,8 +210,7 @@ static brm_status build(brm_bvh *b, build_item *it, brm_diag *d)
             brm_aabb_union(&box, it[i].box);
             brm_aabb_grow(&cbox, it[i].centroid);
         }
-        nd->lo[0] = box.min.x; nd->lo[1] = box.min.y; nd->lo[2] = box.min.z;
-        nd->hi[0] = box.max.x; nd->hi[1] = box.max.y; nd->hi[2] = box.max.z;
+        node_set_box(nd, box);
         uint32_t cnt = tk.end - tk.begin;
         if (cnt <= LEAF_MAX) {
             nd->index = tk.begin;
@@ -312,6 +346,13 @@ brm_status brm_bvh_build_subset(const brm_scene *s, const uint8_t *object_mask, 
     }
     brm_status st = build(b, it, d);
     free(it);
+    /* The tree is built on the vertices; the traversal wants the edges. */
+    for (uint32_t i = 0; i < k; i++) {
+        prim *p = &b->prims[i];
+        if (p->tri == UINT32_MAX) continue;
+        p->v[1] = brm_sub(p->v[1], p->v[0]);
+        p->v[2] = brm_sub(p->v[2], p->v[0]);
+    }
     if (st != BRM_OK) {
         brm_bvh_free(b);
         return st;
@@ -348,6 +389,7 @@ size_t brm_bvh_memory(const brm_scene *s)
 typedef struct ray {
     double o[3], inv[3];
     int neg[3];
+    int near[3], far[3];    /* index into node.b of the slab each axis enters and leaves by */
 } ray;
 
 static void ray_setup(ray *r, brm_vec3 o, brm_vec3 dir)
@@ -359,28 +401,28 @@ static void ray_setup(ray *r, brm_vec3 o, brm_vec3 dir)
          * never the NaN of 0·inf. */
         r->inv[a] = dv != 0.0 ? 1.0 / dv : (signbit(dv) ? -1e300 : 1e300);
         r->neg[a] = r->inv[a] < 0.0;
+        r->near[a] = r->neg[a] ? 3 + a : a;
+        r->far[a] = r->neg[a] ? a : 3 + a;
     }
 }
 
 static inline int slab(const ray *r, const node *n, double tmin, double tmax, double *tnear)
 {
     for (int a = 0; a < 3; a++) {
-        double t0 = (n->lo[a] - r->o[a]) * r->inv[a];
-        double t1 = (n->hi[a] - r->o[a]) * r->inv[a];
-        if (r->neg[a]) { double t = t0; t0 = t1; t1 = t; }
-        if (t0 > tmin) tmin = t0;
-        if (t1 < tmax) tmax = t1;
-        if (tmin > tmax) return 0;
+        double t0 = ((double)n->b[r->near[a]] - r->o[a]) * r->inv[a];
+        double t1 = ((double)n->b[r->far[a]] - r->o[a]) * r->inv[a];
+        tmin = t0 > tmin ? t0 : tmin;
+        tmax = t1 < tmax ? t1 : tmax;
     }
     *tnear = tmin;
-    return 1;
+    return tmin <= tmax;
 }
 
 static inline int prim_hit(const prim *p, brm_vec3 o, brm_vec3 dir, double tmin, double tmax, double *t,
                            int *near_edge)
 {
     if (p->tri == UINT32_MAX) return brm_ray_sphere(o, dir, p->v[0], p->v[1].x, tmin, tmax, t, near_edge);
-    return brm_ray_triangle(o, dir, p->v, tmin, tmax, t, near_edge);
+    return tri_test(o, dir, p->v[0], p->v[1], p->v[2], tmin, tmax, t, near_edge);
 }
 
 static void fill_hit(const prim *p, brm_vec3 o, brm_vec3 dir, double t, brm_hit *hit)
@@ -389,7 +431,7 @@ static void fill_hit(const prim *p, brm_vec3 o, brm_vec3 dir, double t, brm_hit 
     if (p->tri == UINT32_MAX) {
         n = brm_norm(brm_sub(brm_madd(o, dir, t), p->v[0]));
     } else {
-        n = brm_norm(brm_cross(brm_sub(p->v[1], p->v[0]), brm_sub(p->v[2], p->v[0])));
+        n = brm_norm(brm_cross(p->v[1], p->v[2]));
     }
     hit->t = t;
     hit->object = p->object;
@@ -413,7 +455,7 @@ int brm_bvh_intersect(const brm_bvh *b, brm_vec3 o, brm_vec3 dir, double tmin, d
     int sp = 0;
     uint32_t ni = 0;
     const prim *best = NULL;
-    double best_t = tmax;
+    double best_t = tmax, lim = tmax;
     uint64_t best_key = UINT64_MAX;
     double tn;
     if (!slab(&r, &b->nodes[0], tmin, tmax, &tn)) return 0;
@@ -422,14 +464,15 @@ int brm_bvh_intersect(const brm_bvh *b, brm_vec3 o, brm_vec3 dir, double tmin, d
         if (n->count) {
             for (uint32_t i = n->index; i < n->index + n->count; i++) {
                 double t;
-                /* Accept t == best_t too, so ties go to the lowest key whatever the order. */
-                double lim = best ? nextafter(best_t, HUGE_VAL) : tmax;
+                /* Accept t == best_t too (lim is just past it), so ties go to the lowest key
+                 * whatever the order. */
                 if (prim_hit(&b->prims[i], o, dir, tmin, lim, &t, NULL)) {
                     uint64_t key = prim_key(&b->prims[i]);
                     if (t < best_t || key < best_key) {
                         best_t = t;
                         best_key = key;
                         best = &b->prims[i];
+                        lim = nextafter(best_t, HUGE_VAL);
                     }
                 }
             }
@@ -463,22 +506,35 @@ int brm_bvh_occluded(const brm_bvh *b, brm_vec3 o, brm_vec3 dir, double tmin, do
     ray_setup(&r, o, dir);
     uint32_t stack[STACK_MAX];
     int sp = 0;
-    stack[sp++] = 0;
-    while (sp > 0) {
-        const node *n = &b->nodes[stack[--sp]];
-        double tn;
-        if (!slab(&r, n, tmin, tmax, &tn)) continue;
+    uint32_t ni = 0;
+    double tn;
+    if (!slab(&r, &b->nodes[0], tmin, tmax, &tn)) return 0;
+    for (;;) {
+        const node *n = &b->nodes[ni];
         if (n->count) {
             for (uint32_t i = n->index; i < n->index + n->count; i++) {
                 double t;
                 if (prim_hit(&b->prims[i], o, dir, tmin, tmax, &t, NULL)) return 1;
             }
         } else {
+            /* Both children's boxes tested here: only boxes the ray crosses are visited, the
+             * nearer first (the likelier blocker for a ray leaving a surface). */
             uint32_t first = n->index, second = n->index + 1;
             if (r.neg[n->axis]) { uint32_t tmp = first; first = second; second = tmp; }
-            stack[sp++] = second;
-            stack[sp++] = first;
+            double t0, t1;
+            int h0 = slab(&r, &b->nodes[first], tmin, tmax, &t0);
+            int h1 = slab(&r, &b->nodes[second], tmin, tmax, &t1);
+            if (h0 && h1) {
+                if (t1 < t0) { uint32_t tmp = first; first = second; second = tmp; }
+                stack[sp++] = second;
+                ni = first;
+                continue;
+            }
+            if (h0) { ni = first; continue; }
+            if (h1) { ni = second; continue; }
         }
+        if (sp == 0) break;
+        ni = stack[--sp];
     }
     return 0;
 }
@@ -513,7 +569,7 @@ void brm_bvh_all_hits(const brm_bvh *b, brm_vec3 o, brm_vec3 dir, double tmin, d
                             visit(ctx, &h, ne);
                         }
                     }
-                } else if (brm_ray_triangle(o, dir, p->v, tmin, tmax, &t, &ne)) {
+                } else if (tri_test(o, dir, p->v[0], p->v[1], p->v[2], tmin, tmax, &t, &ne)) {
                     brm_hit h;
                     fill_hit(p, o, dir, t, &h);
                     visit(ctx, &h, ne);

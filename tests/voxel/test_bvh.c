@@ -218,6 +218,46 @@ static void rays_through_shared_edges_and_vertices_should_hit(void **state)
     fx_free(&f);
 }
 
+static void bvh_should_hit_at_box_edges_that_floats_cannot_hold(void **state)
+{
+    (void)state;
+    /* Tiles whose edges lie at decimal coordinates no float holds exactly (0.1 rounds up to
+     * 0.10000000149 in float): rays straight down within 1e-12 m inside a tile's edge must hit
+     * it, so the tree's float boxes have to round outward. Every hit is checked against brute
+     * force. */
+    fx_scene f;
+    fx_init(&f);
+    uint32_t o = fx_object(&f, BRM_SHAPE_MESH);
+    for (int i = 0; i < 40; i++)
+        for (int k = 0; k < 4; k++) {
+            double x0 = 0.1 + 0.3 * i, x1 = x0 + 0.2, z0 = 0.7 + 1.1 * k, z1 = z0 + 0.9, y = 0.3 + 0.01 * k;
+            fx_tri(&f, o, brm_v3(x0, y, z0), brm_v3(x0, y, z1), brm_v3(x1, y, z1));
+            fx_tri(&f, o, brm_v3(x0, y, z0), brm_v3(x1, y, z1), brm_v3(x1, y, z0));
+        }
+    brm_bvh *b = NULL;
+    assert_int_equal(brm_bvh_build(&f.s, &b, NULL), BRM_OK);
+    int hits = 0;
+    for (int i = 0; i < 40; i++)
+        for (int k = 0; k < 4; k++)
+            for (int e = 0; e < 4; e++) {
+                double x0 = 0.1 + 0.3 * i, x1 = x0 + 0.2, z0 = 0.7 + 1.1 * k, z1 = z0 + 0.9;
+                brm_vec3 p = e == 0 ? brm_v3(x0 + 1e-12, 5, z0 + 0.45) : e == 1 ? brm_v3(x1 - 1e-12, 5, z0 + 0.45)
+                           : e == 2 ? brm_v3(x0 + 0.1, 5, z0 + 1e-12) : brm_v3(x0 + 0.1, 5, z1 - 1e-12);
+                brm_hit h;
+                double bt = 0;
+                uint32_t btri = 0, bobj = 0;
+                assert_int_equal(brute_intersect(&f.s, p, brm_v3(0, -1, 0), 0, HUGE_VAL, &bt, &btri, &bobj), 1);
+                assert_int_equal(brm_bvh_intersect(b, p, brm_v3(0, -1, 0), 0, HUGE_VAL, &h), 1);
+                assert_true(h.t == bt);
+                assert_int_equal(h.tri, btri);
+                assert_true(brm_bvh_occluded(b, p, brm_v3(0, -1, 0), 0, HUGE_VAL));
+                hits++;
+            }
+    assert_int_equal(hits, 640);
+    brm_bvh_free(b);
+    fx_free(&f);
+}
+
 static void bvh_should_handle_empty_and_degenerate_scenes(void **state)
 {
     (void)state;
@@ -295,6 +335,7 @@ int main(void)
         cmocka_unit_test(ray_from_inside_sphere_should_report_back_face),
         cmocka_unit_test(bvh_should_match_brute_force_on_random_rays),
         cmocka_unit_test(rays_through_shared_edges_and_vertices_should_hit),
+        cmocka_unit_test(bvh_should_hit_at_box_edges_that_floats_cannot_hold),
         cmocka_unit_test(bvh_should_handle_empty_and_degenerate_scenes),
         cmocka_unit_test(all_hits_should_cross_closed_shapes_twice),
     };
