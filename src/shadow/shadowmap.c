@@ -186,6 +186,10 @@ static inline void store(shadow_view *v, uint32_t i, uint32_t j, double depth)
     if (d < *t) *t = d;
 }
 
+/* The edge test of raster_tri2d at texel centre cx, written once so the run search and
+ * the original per-texel form agree bit for bit: A·cx + (B·cy) + C not below tol. */
+static inline bool edge_ok(double a, double bc, double c, double tol, double cx) { return !(a * cx + bc + c < tol); }
+
 /* Coverage: the texels whose centres the triangle's 2-D projection contains (edges count
  * for both sides, so shared edges leave no cracks); for thin triangles every texel it
  * touches, by edge functions shifted by the texel's half-extent along each edge normal.
@@ -223,13 +227,43 @@ static void raster_tri2d(shadow_view *v, uint32_t row0, uint32_t row1, const rve
     /* Flat (edge-on) triangles: their nearest point for every texel they touch. */
     double qflat = persp ? qhi : qlo;
     double tol = -1e-9 * (1.0 + fabs(area2));
+    /* Per row, the texels that pass all three edge tests form one run: each computed edge
+     * value A·cx + B·cy + C is monotone in cx (rounded products and sums are monotone), so
+     * each test passes on a prefix or a suffix of the row. Each edge's end of the run is
+     * guessed from its crossing and confirmed with the very test at the texels either side
+     * (or found by bisection with it when the guess is off), so the run holds exactly the
+     * texels the test passes, and only those are visited. */
     for (int64_t j = j0; j <= j1; j++) {
         double cy = (double)j + 0.5;
-        for (int64_t i = i0; i <= i1; i++) {
-            double cx = (double)i + 0.5;
-            if (A[0] * cx + B[0] * cy + C[0] < tol || A[1] * cx + B[1] * cy + C[1] < tol ||
-                A[2] * cx + B[2] * cy + C[2] < tol)
+        int64_t lo = i0, hi = i1;
+        for (int k = 0; k < 3 && lo <= hi; k++) {
+            double bc = B[k] * cy;
+            if (A[k] == 0.0) {
+                if (!edge_ok(A[k], bc, C[k], tol, (double)lo)) hi = lo - 1;
                 continue;
+            }
+            bool rising = A[k] > 0.0; /* passes on a suffix; else on a prefix */
+            double x = (tol - bc - C[k]) / A[k] - 0.5; /* the crossing, in texel indices */
+            /* g: the first texel of the suffix (rising) or one past the prefix */
+            double gd = rising ? ceil(x) : floor(x) + 1.0;
+            int64_t g = gd == gd ? (int64_t)fmin(fmax(gd, (double)i0), (double)i1 + 1.0) : i0;
+            bool below = g == i0 || edge_ok(A[k], bc, C[k], tol, (double)(g - 1) + 0.5) != rising;
+            bool at = g == i1 + 1 || edge_ok(A[k], bc, C[k], tol, (double)g + 0.5) == rising;
+            if (!(below && at)) { /* bisect: the first texel whose test says "rising" */
+                int64_t a = i0, b = i1 + 1;
+                while (a < b) {
+                    int64_t m = a + (b - a) / 2;
+                    if (edge_ok(A[k], bc, C[k], tol, (double)m + 0.5) == rising) b = m;
+                    else a = m + 1;
+                }
+                g = a;
+            }
+            if (rising) lo = g > lo ? g : lo;
+            else hi = g - 1 < hi ? g - 1 : hi;
+        }
+        if (lo > hi) continue;
+        for (int64_t i = lo; i <= hi; i++) {
+            double cx = (double)i + 0.5;
             double q = flat ? qflat : brm_clamp(t[0].q + gx * (cx - t[0].x) + gy * (cy - t[0].y), qlo, qhi);
             double depth = persp ? (1.0 / q) * (1.0 + bias * v->texel) : q + bias * v->texel;
             store(v, (uint32_t)i, (uint32_t)j, depth);
