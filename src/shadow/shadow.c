@@ -135,6 +135,52 @@ static void od_check_item(void *ctx, uint32_t item, int worker)
     free(scratch);
 }
 
+/* One item per view: the depth reach of its grid columns, or its map's depth-range tiles. */
+typedef struct view_job {
+    const brm_scene *s;
+    shadow_view **views;
+    int *ok;
+} view_job;
+
+static void reach_item(void *ctx, uint32_t item, int worker)
+{
+    (void)worker;
+    view_job *j = ctx;
+    brm_od_plan_reach(j->s, j->views[item]);
+}
+
+static void tiles_item(void *ctx, uint32_t item, int worker)
+{
+    (void)worker;
+    view_job *j = ctx;
+    j->ok[item] = brm_shadowmap_tiles(j->views[item]);
+}
+
+/* Runs fn once per view (with od_only, per view that has a grid); 0 when interrupted or
+ * when an item reported failure in ok. */
+static int run_views(brm_shadow_set *ss, bool od_only, brm_item_fn fn, int threads)
+{
+    uint32_t n = 0;
+    for (uint32_t l = 0; l < ss->light_count; l++) n += ss->lights[l].view_count;
+    shadow_view **views = malloc(((size_t)n + 1) * sizeof *views);
+    int *ok = malloc(((size_t)n + 1) * sizeof *ok);
+    if (!views || !ok) {
+        free(views);
+        free(ok);
+        return 0;
+    }
+    n = 0;
+    for (uint32_t l = 0; l < ss->light_count; l++)
+        for (uint32_t k = 0; k < ss->lights[l].view_count; k++)
+            if (!od_only || ss->lights[l].has_od) views[n] = &ss->lights[l].views[k], ok[n++] = 1;
+    view_job j = {ss->scene, views, ok};
+    int good = brm_parallel_for(n, threads, fn, &j, &brm_interrupted) == n;
+    for (uint32_t i = 0; i < n; i++) good = good && ok[i];
+    free(views);
+    free(ok);
+    return good;
+}
+
 static uint32_t blocks_of(const shadow_view *v) { return v->blk_count; }
 static uint32_t corrections_of(const shadow_view *v) { return v->corr_count; }
 
@@ -155,6 +201,9 @@ static brm_status run_per_view(brm_shadow_set *ss, uint32_t total, uint32_t (*co
     if (ran != total) return brm_diag_error(d, BRM_E_INTERRUPTED, "shadows: interrupted while building the light maps");
     return BRM_OK;
 }
+
+const char *const brm_shadow_phase_names[BRM_SHADOW_PHASES] = {
+    "noise table", "plan", "rasterize", "grid rows", "grid checks", "map tiles", "blocks", "corrections", "sky"};
 
 brm_status brm_shadows_build(const brm_scene *s, const brm_shadow_opts *o, brm_shadow_set **out, brm_diag *d)
 {
@@ -180,6 +229,14 @@ brm_status brm_shadows_build(const brm_scene *s, const brm_shadow_opts *o, brm_s
         if (st != BRM_OK) goto fail;
         if (ss->noise_grid.f) ss->media.noise_grid = &ss->noise_grid;
     }
+    double t_phase = brm_now();
+    ss->phase_seconds[0] = t_phase - t_start;
+#define PHASE_END(i)                                   \
+    do {                                               \
+        double t_now_ = brm_now();                     \
+        ss->phase_seconds[i] += t_now_ - t_phase;      \
+        t_phase = t_now_;                              \
+    } while (0)
     if (s->light_count) {
         ss->lights = calloc(s->light_count, sizeof *ss->lights);
         if (!ss->lights) {
@@ -214,7 +271,6 @@ brm_status brm_shadows_build(const brm_scene *s, const brm_shadow_opts *o, brm_s
                                         s->lights[l].json_path);
                     goto fail;
                 }
-                brm_od_plan_reach(s, v);
                 n_od += v->og_n[1];
             }
             if ((ls->has_map && !v->depth) || (ls->has_od && (!v->od || !v->od_bad || (v->kind == BRM_VIEW_ORTHO && !v->prefix)))) {
@@ -241,20 +297,31 @@ brm_status brm_shadows_build(const brm_scene *s, const brm_shadow_opts *o, brm_s
 
     build_ctx ctx = {ss, items};
     int threads = o->threads > 0 ? o->threads : 1;
-    if (brm_parallel_for(n_raster, threads, raster_item, &ctx, &brm_interrupted) != n_raster ||
-        brm_parallel_for(n_od, threads, od_item, &(build_ctx){ss, items + n_raster}, &brm_interrupted) != n_od ||
-        brm_parallel_for(n_od, threads, od_check_item, &(build_ctx){ss, items + n_raster}, &brm_interrupted) != n_od) {
+    if (!run_views(ss, true, reach_item, threads)) {
+        st = atomic_load(&brm_interrupted) ? brm_diag_error(d, BRM_E_INTERRUPTED, "shadows: interrupted while planning the light maps")
+                                           : brm_diag_error(d, BRM_E_NOMEM, "shadows: out of memory");
+        goto fail;
+    }
+    PHASE_END(1);
+    bool ran_all = brm_parallel_for(n_raster, threads, raster_item, &ctx, &brm_interrupted) == n_raster;
+    PHASE_END(2);
+    ran_all = ran_all && brm_parallel_for(n_od, threads, od_item, &(build_ctx){ss, items + n_raster}, &brm_interrupted) == n_od;
+    PHASE_END(3);
+    ran_all = ran_all &&
+              brm_parallel_for(n_od, threads, od_check_item, &(build_ctx){ss, items + n_raster}, &brm_interrupted) == n_od;
+    PHASE_END(4);
+    if (!ran_all) {
         st = brm_diag_error(d, BRM_E_INTERRUPTED, "shadows: interrupted while building the light maps");
         goto fail;
     }
     free(items);
     items = NULL;
-    for (uint32_t l = 0; l < s->light_count; l++)
-        for (uint32_t k = 0; k < ss->lights[l].view_count; k++)
-            if (!brm_shadowmap_tiles(&ss->lights[l].views[k])) {
-                st = brm_diag_error(d, BRM_E_NOMEM, "shadows: out of memory");
-                goto fail;
-            }
+    if (!run_views(ss, false, tiles_item, threads)) {
+        st = atomic_load(&brm_interrupted) ? brm_diag_error(d, BRM_E_INTERRUPTED, "shadows: interrupted while building the light maps")
+                                           : brm_diag_error(d, BRM_E_NOMEM, "shadows: out of memory");
+        goto fail;
+    }
+    PHASE_END(5);
 
     /* Blocks for the flagged cells, then fill them (one item per block). */
     uint32_t n_blk = 0, n_corr = 0;
@@ -307,9 +374,11 @@ brm_status brm_shadows_build(const brm_scene *s, const brm_shadow_opts *o, brm_s
         /* The estimate counted corr_pool corrections: count the difference (≤ spare). */
         ss->bytes = ss->bytes + used * cb - (size_t)ls->corr_pool * cb;
     }
-    if ((st = run_per_view(ss, n_blk, blocks_of, block_item, threads, d)) != BRM_OK ||
-        (st = run_per_view(ss, n_corr, corrections_of, corr_item, threads, d)) != BRM_OK)
-        goto fail;
+    PHASE_END(1);
+    if ((st = run_per_view(ss, n_blk, blocks_of, block_item, threads, d)) != BRM_OK) goto fail;
+    PHASE_END(6);
+    if ((st = run_per_view(ss, n_corr, corrections_of, corr_item, threads, d)) != BRM_OK) goto fail;
+    PHASE_END(7);
     for (uint32_t l = 0; l < s->light_count; l++)
         for (uint32_t k = 0; k < ss->lights[l].view_count; k++)
             if (ss->lights[l].has_od) brm_od_finish(&ss->lights[l].views[k]);
@@ -334,6 +403,8 @@ brm_status brm_shadows_build(const brm_scene *s, const brm_shadow_opts *o, brm_s
         if (st != BRM_OK) goto fail;
         ss->bytes += brm_sky_cache_memory(s, o);
     }
+    PHASE_END(8);
+#undef PHASE_END
     ss->build_seconds = brm_now() - t_start;
     *out = ss;
     return BRM_OK;

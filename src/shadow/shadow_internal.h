@@ -172,6 +172,11 @@ typedef struct sky_cache {
     uint8_t *ok;                /* 1 where the node is in free space */
 } sky_cache;
 
+#define BRM_SHADOW_PHASES 9
+/* "noise table", "plan", "rasterize", "grid rows", "grid checks", "map tiles", "blocks",
+ * "corrections", "sky" */
+extern const char *const brm_shadow_phase_names[BRM_SHADOW_PHASES];
+
 struct brm_shadow_set {
     const brm_scene *scene;
     brm_shadow_opts opts;
@@ -190,6 +195,8 @@ struct brm_shadow_set {
     brm_noise_grid noise_grid;  /* fast path only (media.noise_grid points here) */         /* both paths: the reference checks lights, not the sky */
     size_t bytes;
     double build_seconds;
+    /* wall seconds of the build's phases, in the order of brm_shadow_phase_names */
+    double phase_seconds[BRM_SHADOW_PHASES];
 };
 
 /* ---- media integration (optical_depth.c) ---- */
