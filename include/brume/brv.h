@@ -245,12 +245,18 @@ typedef struct brv_sampler brv_sampler;
  * Returns a static string; "unknown result" for a value outside the list. */
 BRV_API const char *brv_result_text(brv_result r);
 
-/* Opens a volume file: reads it whole and checks its structure (header, tables, brick ranges,
- * header and table CRCs). Each brick's zstd content checksum is checked whenever the brick is
+/* Opens a volume file: reads its header and tables and checks its structure (header, tables,
+ * brick ranges against the file's size, header and table CRCs). On POSIX systems the bricks
+ * stay on disk and are read (pread, no shared file position, so threads with their own
+ * decoders may read at once) each time one is decoded; the file stays open until brv_free.
+ * If the file is shortened after open, a decode gives BRV_E_TRUNCATED; if it is changed, the
+ * checks below give BRV_E_BRICK_CORRUPT. Elsewhere the whole file is read at open. Each brick's zstd content checksum is checked whenever the brick is
  * decoded, so changed data is never returned; brv_verify checks every brick and also the
  * CRC-32 of its stored bytes (which catches changes that leave the decoded data intact).
  * Returns BRV_OK and *out, or a fault code with *out untouched.
- * Notes: safe on untrusted files; allocates at most the file size plus O(channels + bricks).
+ * Notes: safe on untrusted files; allocates at most the header and tables (the whole file
+ * where bricks cannot be read on demand) plus O(channels + bricks), and each decoder one
+ * stored brick.
  * path: a file name. alloc: NULL for malloc/free; the volume keeps a copy. */
 BRV_API brv_result brv_open_file(const char *path, const brv_allocator *alloc, brv_volume **out);
 
@@ -298,11 +304,20 @@ BRV_API void brv_decoder_free(brv_decoder *d);
 BRV_API brv_result brv_decode_brick(const brv_volume *v, brv_decoder *dec, uint32_t b, float *out,
                                     size_t out_count);
 
+/* brv_decode_brick as binary16 words (IEEE 754, round to nearest even), same layout. An f16
+ * channel stored without scale (scale_exp 0, the usual case) is copied as its stored halves,
+ * with no conversion; others are decoded and rounded as brv_f32_to_f16 would.
+ * Returns as brv_decode_brick, and BRV_E_UNREPRESENTABLE when a value is beyond binary16's
+ * range (65504) or is an infinity or NaN (every word is still written). */
+BRV_API brv_result brv_decode_brick_f16(const brv_volume *v, brv_decoder *dec, uint32_t b, uint16_t *out,
+                                        size_t out_count);
+
 /* Decodes one channel of the whole grid into out (x fastest, then y, then z).
  * Returns as brv_decode_brick. out_count ≥ brv_channel_size(v). */
 BRV_API brv_result brv_decode_channel(const brv_volume *v, uint32_t channel, float *out, size_t out_count);
 
 /* The same as binary16 (IEEE 754, round to nearest even) words: out_count ≥ brv_channel_size.
+ * Unscaled f16 channels are copied without conversion (see brv_decode_brick_f16).
  * Returns BRV_E_UNREPRESENTABLE when a decoded value is beyond binary16's range (65504). */
 BRV_API brv_result brv_decode_channel_f16(const brv_volume *v, uint32_t channel, uint16_t *out,
                                           size_t out_count);

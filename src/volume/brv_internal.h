@@ -132,6 +132,9 @@ void brv_unshuffle(const uint8_t *src, uint8_t *dst, size_t n, unsigned word_byt
  * planes of n). simd = 0 forces the scalar reference, which the tests compare against. */
 void brv_unfilter_f16(const uint8_t *src, size_t n, uint32_t nx, int ex, float *out, int simd);
 void brv_unfilter_w32(const uint8_t *src, size_t n, uint32_t nx, int ex, uint32_t code, float *out, int simd);
+/* An f16 group stored without scale (scale_exp 0) kept as halves: the words themselves to out.
+ * Returns nonzero when a word is an infinity or NaN (all-ones exponent). */
+int brv_unfilter_f16_halves(const uint8_t *src, size_t n, uint32_t nx, uint16_t *out, int simd);
 
 /* Allocator defaults. */
 void *brv_alloc(const brv_allocator *a, size_t size);

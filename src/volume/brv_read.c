@@ -1,6 +1,9 @@
 /* .brv reader: open checks every size, offset and count against the file before using it;
  * bricks are checked each time they are decoded (zstd frame and content checksum, payload
  * structure), and brv_verify also checks the CRC-32 of each brick's stored bytes. Layout: brv.h. */
+#if !defined(_POSIX_C_SOURCE) && (defined(__unix__) || defined(__APPLE__))
+#define _POSIX_C_SOURCE 200809L /* pread, fstat */
+#endif
 #include <math.h>
 #include <stdbool.h>
 #include <stdio.h>
@@ -8,6 +11,14 @@
 #include <zstd.h>
 
 #include "brv_internal.h"
+
+#if defined(_POSIX_VERSION) || defined(__unix__) || defined(__APPLE__)
+#include <errno.h>
+#include <fcntl.h>
+#include <sys/stat.h>
+#include <unistd.h>
+#define BRV_LAZY_FILE 1
+#endif
 
 typedef struct rgroup {
     uint32_t first, count;
@@ -18,9 +29,11 @@ typedef struct rgroup {
 struct brv_volume {
     brv_allocator alloc;
     bool has_alloc;
-    const uint8_t *data;
+    const uint8_t *data; /* the whole file; NULL when bricks are read from fd on demand */
     size_t size;
-    void *owned; /* file contents for brv_open_file */
+    void *owned; /* file contents (whole-file path) or the tables section (read on demand) */
+    int fd;      /* bricks read on demand: the open file; -1 otherwise */
+    uint32_t stored_max; /* largest stored brick, bytes */
     brv_grid_info grid;
     brv_channel_info ch[BRV_MAX_CHANNELS];
     char names[BRV_MAX_CHANNELS][32], units[BRV_MAX_CHANNELS][16];
@@ -40,6 +53,8 @@ struct brv_decoder {
     ZSTD_DCtx *dctx;
     uint8_t *payload;
     float *scratch; /* one full brick, every channel */
+    uint8_t *stored; /* bricks read on demand: one brick's stored bytes */
+    uint16_t *half;  /* one full brick as halves */
 };
 
 const brv_allocator *brv_volume_allocator(const brv_volume *v) { return v->has_alloc ? &v->alloc : NULL; }
@@ -60,6 +75,9 @@ void brv_free(brv_volume *v)
     if (!v) return;
     const brv_allocator *a = brv_volume_allocator(v);
     brv_dealloc(a, v->owned);
+#if defined(BRV_LAZY_FILE)
+    if (v->fd >= 0) close(v->fd);
+#endif
     brv_dealloc(a, v->slice_depths);
     brv_dealloc(a, v->metadata);
     brv_allocator copy = v->alloc;
@@ -88,10 +106,32 @@ static bool str_ok(const uint8_t *p, size_t cap, bool nonempty)
     return true;
 }
 
-/* Parses and checks everything but the bricks' contents. */
-static brv_result parse(brv_volume *v)
+/* Reads size bytes at offset off of an on-demand volume's file: BRV_E_TRUNCATED when the file
+ * has become shorter than it was at open, BRV_E_IO on a read error. Safe from any thread. */
+static brv_result read_at(const brv_volume *v, uint64_t off, size_t size, uint8_t *dst)
 {
-    const uint8_t *d = v->data;
+#if defined(BRV_LAZY_FILE)
+    while (size) {
+        if (off > (uint64_t)INT64_MAX) return BRV_E_IO;
+        ssize_t got = pread(v->fd, dst, size, (off_t)off);
+        if (got < 0 && errno == EINTR) continue;
+        if (got < 0) return BRV_E_IO;
+        if (got == 0) return BRV_E_TRUNCATED;
+        dst += got;
+        off += (uint64_t)got;
+        size -= (size_t)got;
+    }
+    return BRV_OK;
+#else
+    (void)v, (void)off, (void)size, (void)dst;
+    return BRV_E_IO;
+#endif
+}
+
+/* Parses and checks everything but the bricks' contents. d: the file's first
+ * min(size, BRV_HEADER_MAX) bytes; the tables come from memory or from the file. */
+static brv_result parse(brv_volume *v, const uint8_t *d)
+{
     size_t size = v->size;
     size_t m = size < 8 ? size : 8;
     if (memcmp(d, BRV_MAGIC, m) != 0) return BRV_E_MAGIC;
@@ -133,7 +173,18 @@ static brv_result parse(brv_volume *v)
     if (toff < hs || tsize < BRV_TABLES_FIXED || toff > UINT64_MAX - tsize) return BRV_E_LAYOUT;
     if (toff + tsize > size) return BRV_E_TRUNCATED;
     if (toff + tsize < size) return BRV_E_LAYOUT; /* bytes after the tables */
-    const uint8_t *t = d + toff;
+    const uint8_t *t;
+    if (v->data) {
+        t = v->data + toff;
+    } else {
+        /* The tables are at most the file's size, which is known to be real. */
+        if (tsize > SIZE_MAX) return BRV_E_NOMEM;
+        v->owned = brv_alloc(brv_volume_allocator(v), (size_t)tsize);
+        if (!v->owned) return BRV_E_NOMEM;
+        brv_result rr = read_at(v, toff, (size_t)tsize, v->owned);
+        if (rr != BRV_OK) return rr;
+        t = v->owned;
+    }
     if (brv_crc32(0, t, (size_t)tsize) != brv_rd32(d + 48)) return BRV_E_HEADER_CRC;
 
     uint32_t sd = brv_rd32(t + 152), msize = brv_rd32(t + 156);
@@ -228,6 +279,7 @@ static brv_result parse(brv_volume *v)
         sp[b].off = off;
         sp[b].end = off + cs;
         total += cs;
+        if (cs > v->stored_max) v->stored_max = cs;
     }
     if (r == BRV_OK) {
         qsort(sp, g->brick_count, sizeof *sp, span_cmp);
@@ -251,15 +303,21 @@ static brv_result parse(brv_volume *v)
     return BRV_OK;
 }
 
-static brv_result open_common(const void *data, size_t size, const brv_allocator *alloc, void *owned,
+/* data: the whole file (owned: to free with the volume), or NULL to read from fd on demand
+ * (the volume closes fd). */
+static brv_result open_common(const void *data, size_t size, const brv_allocator *alloc, void *owned, int fd,
                               brv_volume **out)
 {
     brv_volume *v = brv_alloc(alloc, sizeof *v);
     if (!v) {
         brv_dealloc(alloc, owned);
+#if defined(BRV_LAZY_FILE)
+        if (fd >= 0) close(fd);
+#endif
         return BRV_E_NOMEM;
     }
     memset(v, 0, sizeof *v);
+    v->fd = fd;
     if (alloc) {
         v->alloc = *alloc;
         v->has_alloc = true;
@@ -267,7 +325,15 @@ static brv_result open_common(const void *data, size_t size, const brv_allocator
     v->data = data;
     v->size = size;
     v->owned = owned;
-    brv_result r = parse(v);
+    brv_result r;
+    if (data) {
+        r = parse(v, data);
+    } else {
+        uint8_t head[BRV_HEADER_MAX];
+        size_t h = size < BRV_HEADER_MAX ? size : BRV_HEADER_MAX;
+        r = read_at(v, 0, h, head);
+        if (r == BRV_OK) r = parse(v, head);
+    }
     if (r != BRV_OK) {
         brv_free(v);
         return r;
@@ -281,13 +347,29 @@ brv_result brv_open_memory(const void *data, size_t size, const brv_allocator *a
     if ((!data && size) || !out) return BRV_E_ARGUMENT;
     if (alloc && (!alloc->alloc || !alloc->free)) return BRV_E_ARGUMENT;
     static const uint8_t empty[1] = {0};
-    return open_common(size ? data : empty, size, alloc, NULL, out);
+    return open_common(size ? data : empty, size, alloc, NULL, -1, out);
 }
 
 brv_result brv_open_file(const char *path, const brv_allocator *alloc, brv_volume **out)
 {
     if (!path || !out) return BRV_E_ARGUMENT;
     if (alloc && (!alloc->alloc || !alloc->free)) return BRV_E_ARGUMENT;
+#if defined(BRV_LAZY_FILE)
+    /* Header and tables now, each brick when it is decoded (pread: no shared file position). */
+    int fd = open(path, O_RDONLY);
+    if (fd < 0) return BRV_E_IO;
+    struct stat st;
+    if (fstat(fd, &st) != 0 || !S_ISREG(st.st_mode) || st.st_size < 0 || (uint64_t)st.st_size > SIZE_MAX) {
+        close(fd); /* a folder or a device is not a volume file */
+        return BRV_E_IO;
+    }
+    static const uint8_t empty[1] = {0};
+    if (st.st_size == 0) { /* nothing to read on demand: fault as an empty buffer does */
+        close(fd);
+        return open_common(empty, 0, alloc, NULL, -1, out);
+    }
+    return open_common(NULL, (size_t)st.st_size, alloc, NULL, fd, out);
+#else
     FILE *f = fopen(path, "rb");
     if (!f) return BRV_E_IO;
     brv_result r = BRV_E_IO;
@@ -296,7 +378,7 @@ brv_result brv_open_file(const char *path, const brv_allocator *alloc, brv_volum
     if (fseek(f, 0, SEEK_END) == 0) n = ftell(f);
     /* One byte first: a folder opens and seeks "fine" on some systems, but cannot be read. */
     if (n >= 0 && fseek(f, 0, SEEK_SET) == 0 && (n == 0 || fgetc(f) != EOF) && fseek(f, 0, SEEK_SET) == 0) {
-        buf = brv_alloc(alloc, (size_t)n);
+        buf = brv_alloc(alloc, n ? (size_t)n : 1);
         if (!buf) r = BRV_E_NOMEM;
         else if (n == 0 || fread(buf, 1, (size_t)n, f) == (size_t)n) r = BRV_OK;
     }
@@ -305,7 +387,8 @@ brv_result brv_open_file(const char *path, const brv_allocator *alloc, brv_volum
         brv_dealloc(alloc, buf);
         return r;
     }
-    return open_common(buf, (size_t)n, alloc, buf, out);
+    return open_common(buf, (size_t)n, alloc, buf, -1, out);
+#endif
 }
 
 const brv_grid_info *brv_grid(const brv_volume *v) { return v ? &v->grid : NULL; }
@@ -366,7 +449,9 @@ brv_result brv_decoder_create(const brv_volume *v, brv_decoder **out)
     d->dctx = ZSTD_createDCtx();
     d->payload = brv_alloc(a, v->payload_max);
     d->scratch = brv_alloc(a, brv_brick_size(v) * sizeof(float));
-    if (!d->dctx || !d->payload || !d->scratch) {
+    d->half = brv_alloc(a, brv_brick_size(v) * sizeof(uint16_t));
+    if (!v->data) d->stored = brv_alloc(a, v->stored_max);
+    if (!d->dctx || !d->payload || !d->scratch || !d->half || (!v->data && !d->stored)) {
         brv_decoder_free(d);
         return BRV_E_NOMEM;
     }
@@ -381,6 +466,8 @@ void brv_decoder_free(brv_decoder *d)
     ZSTD_freeDCtx(d->dctx);
     brv_dealloc(a, d->payload);
     brv_dealloc(a, d->scratch);
+    brv_dealloc(a, d->stored);
+    brv_dealloc(a, d->half);
     brv_dealloc(a, d);
 }
 
@@ -399,10 +486,55 @@ static void decode_constant(const uint8_t *w, size_t n, uint32_t code, float sc,
         for (size_t i = 0; i < n; i++) out[c * n + i] = val[c];
 }
 
+/* The stored bytes of a brick whose range open checked: in memory, or read into the decoder. */
+static brv_result brick_bytes(const brv_volume *v, brv_decoder *dec, uint64_t off, size_t cs, const uint8_t **src)
+{
+    if (v->data) {
+        *src = v->data + off;
+        return BRV_OK;
+    }
+    *src = dec->stored;
+    return read_at(v, off, cs, dec->stored);
+}
+
+/* One group's words as binary16 into dst (channel-major, n each; only ≥ 0: that channel alone).
+ * An f16 group stored without scale is its own halves; any other goes through floats and the
+ * rounding of brv_f32_to_f16. Returns BRV_E_UNREPRESENTABLE for a value beyond binary16's range
+ * (after writing every word). */
+static brv_result group_to_f16(brv_decoder *dec, const rgroup *g, unsigned mode, unsigned wb, int ex,
+                               const uint8_t *p, size_t n, uint32_t nx, int only, uint16_t *dst)
+{
+    if (g->code == BRV_ENCODING_F16 && ex == 0) {
+        int special;
+        if (mode == BRV_MODE_CONSTANT) {
+            uint16_t h = brv_rd16(p);
+            for (size_t i = 0; i < n; i++) dst[i] = h;
+            special = (h & 0x7C00u) == 0x7C00u;
+        } else {
+            special = brv_unfilter_f16_halves(p, n, nx, dst, 1);
+        }
+        return special ? BRV_E_UNREPRESENTABLE : BRV_OK;
+    }
+    float *tmp = dec->scratch, sc = ldexpf(1.0f, ex);
+    if (mode == BRV_MODE_CONSTANT) decode_constant(p, n, g->code, sc, tmp);
+    else if (wb == 2) brv_unfilter_f16(p, n, nx, ex, tmp, 1);
+    else brv_unfilter_w32(p, n, nx, ex, g->code, tmp, 1);
+    uint32_t c0 = only < 0 ? 0 : (uint32_t)only - g->first, c1 = only < 0 ? g->count : c0 + 1;
+    unsigned special = 0;
+    for (uint32_t c = c0; c < c1; c++)
+        for (size_t i = 0; i < n; i++) {
+            uint16_t h = brv_f32_to_f16(tmp[c * n + i]);
+            special |= (h & 0x7C00u) == 0x7C00u;
+            dst[(c - c0) * n + i] = h;
+        }
+    return special ? BRV_E_UNREPRESENTABLE : BRV_OK;
+}
+
 /* Decodes brick b. only < 0: every channel into out (channel-major, n cells each);
- * only ≥ 0: that channel alone into out (n floats). */
+ * only ≥ 0: that channel alone into out (n values). Floats to out, or (out is NULL) binary16
+ * words to out16. */
 static brv_result decode_brick(const brv_volume *v, brv_decoder *dec, uint32_t b, int only, float *out,
-                               size_t out_count, bool check_crc)
+                               uint16_t *out16, size_t out_count, bool check_crc)
 {
     uint32_t o[3], e[3];
     if (brv_brick_extent(v, b, o, e) != BRV_OK) return BRV_E_ARGUMENT;
@@ -410,8 +542,10 @@ static brv_result decode_brick(const brv_volume *v, brv_decoder *dec, uint32_t b
     size_t need = only < 0 ? n * v->grid.channel_count : n;
     if (out_count < need) return BRV_E_BUFFER;
     const uint8_t *ent = v->brick_table + (size_t)b * v->brick_entry;
-    const uint8_t *src = v->data + brv_rd64(ent);
+    const uint8_t *src;
     size_t cs = brv_rd32(ent + 8);
+    brv_result fr = brick_bytes(v, dec, brv_rd64(ent), cs, &src);
+    if (fr != BRV_OK) return fr;
     /* Decoding trusts zstd's content checksum (XXH64 of the payload) to reject any change to
      * the data; the CRC of the stored bytes, which also catches changes that leave the
      * payload intact, is for brv_verify (it would cost a third of zstd's own time here). */
@@ -429,6 +563,7 @@ static brv_result decode_brick(const brv_volume *v, brv_decoder *dec, uint32_t b
 
     const uint8_t *p = dec->payload, *end = dec->payload + got;
     int want_group = only >= 0 ? v->channel_group[only] : -1;
+    brv_result range = BRV_OK; /* a half out of range: reported once the payload checks out */
     for (uint32_t gi = 0; gi < v->group_count; gi++) {
         const rgroup *g = &v->groups[gi];
         if ((size_t)(end - p) < BRV_GROUP_HEADER) return BRV_E_BRICK_CORRUPT;
@@ -441,8 +576,11 @@ static brv_result decode_brick(const brv_volume *v, brv_decoder *dec, uint32_t b
         size_t len = mode == BRV_MODE_CONSTANT ? wb : n * wb;
         if ((size_t)(end - p) < len) return BRV_E_BRICK_CORRUPT;
         bool wanted = only < 0 || (int)gi == want_group;
-        if (wanted) {
-            if (!g->wb) return BRV_E_VERSION; /* a newer minor's encoding */
+        if (wanted && !g->wb) return BRV_E_VERSION; /* a newer minor's encoding */
+        if (wanted && !out) {
+            uint16_t *dst = only < 0 ? out16 + (size_t)g->first * n : out16;
+            if (group_to_f16(dec, g, mode, wb, ex, p, n, e[0], only, dst) != BRV_OK) range = BRV_E_UNREPRESENTABLE;
+        } else if (wanted) {
             float sc = ldexpf(1.0f, ex);
             float *dst = only < 0 ? out + (size_t)g->first * n : (g->count == 1 ? out : dec->scratch);
             if (mode == BRV_MODE_CONSTANT) decode_constant(p, n, g->code, sc, dst);
@@ -454,7 +592,7 @@ static brv_result decode_brick(const brv_volume *v, brv_decoder *dec, uint32_t b
         p += len;
     }
     if (p != end) return BRV_E_BRICK_CORRUPT;
-    return BRV_OK;
+    return range;
 }
 
 static brv_result with_decoder(const brv_volume *v, brv_decoder **dec, brv_decoder **tmp)
@@ -471,12 +609,23 @@ brv_result brv_decode_brick(const brv_volume *v, brv_decoder *dec, uint32_t b, f
     if (!v || !out) return BRV_E_ARGUMENT;
     brv_decoder *tmp;
     brv_result r = with_decoder(v, &dec, &tmp);
-    if (r == BRV_OK) r = decode_brick(v, dec, b, -1, out, out_count, false);
+    if (r == BRV_OK) r = decode_brick(v, dec, b, -1, out, NULL, out_count, false);
     brv_decoder_free(tmp);
     return r;
 }
 
-/* Decodes every brick's requested channel (or all) through the scratch into the grid. */
+brv_result brv_decode_brick_f16(const brv_volume *v, brv_decoder *dec, uint32_t b, uint16_t *out, size_t out_count)
+{
+    if (!v || !out) return BRV_E_ARGUMENT;
+    brv_decoder *tmp;
+    brv_result r = with_decoder(v, &dec, &tmp);
+    if (r == BRV_OK) r = decode_brick(v, dec, b, -1, NULL, out, out_count, false);
+    brv_decoder_free(tmp);
+    return r;
+}
+
+/* Decodes every brick's requested channel (or all) through the decoder's brick buffers into
+ * the grid: floats to out, or (out NULL) halves to out16. */
 static brv_result decode_grid(const brv_volume *v, int only, float *out, uint16_t *out16, size_t out_count)
 {
     const brv_grid_info *g = &v->grid;
@@ -485,33 +634,32 @@ static brv_result decode_grid(const brv_volume *v, int only, float *out, uint16_
     brv_decoder *dec = NULL, *tmp;
     brv_result r = with_decoder(v, &dec, &tmp);
     uint32_t nch = only < 0 ? g->channel_count : 1;
+    brv_result range = BRV_OK;
     for (uint32_t b = 0; b < g->brick_count && r == BRV_OK; b++) {
         uint32_t o[3], e[3];
         brv_brick_extent(v, b, o, e);
         size_t n = (size_t)e[0] * e[1] * e[2];
         float *s = dec->scratch;
+        uint16_t *h = dec->half;
         /* A channel alone decodes into the scratch's tail, clear of the rgb9e5 staging at its head. */
         if (only >= 0) s = dec->scratch + brv_brick_size(v) - n;
-        r = decode_brick(v, dec, b, only, s, n * nch, false);
+        r = decode_brick(v, dec, b, only, out ? s : NULL, h, n * nch, false);
+        if (r == BRV_E_UNREPRESENTABLE) { /* every word was written: go on, report it at the end */
+            range = r;
+            r = BRV_OK;
+        }
         if (r != BRV_OK) break;
         for (uint32_t c = 0; c < nch; c++)
             for (uint32_t z = 0; z < e[2]; z++)
                 for (uint32_t y = 0; y < e[1]; y++) {
-                    const float *row = s + c * n + (size_t)e[0] * (y + (size_t)e[1] * z);
+                    size_t from = c * n + (size_t)e[0] * (y + (size_t)e[1] * z);
                     size_t at = (size_t)c * cells + o[0] + (size_t)g->cells[0] * ((o[1] + y) + (size_t)g->cells[1] * (o[2] + z));
-                    if (out) {
-                        memcpy(out + at, row, e[0] * sizeof(float));
-                    } else {
-                        for (uint32_t x = 0; x < e[0]; x++) {
-                            uint16_t h = brv_f32_to_f16(row[x]);
-                            if ((h & 0x7C00u) == 0x7C00u) r = BRV_E_UNREPRESENTABLE;
-                            out16[at + x] = h;
-                        }
-                    }
+                    if (out) memcpy(out + at, s + from, e[0] * sizeof(float));
+                    else memcpy(out16 + at, h + from, e[0] * sizeof(uint16_t));
                 }
     }
     brv_decoder_free(tmp);
-    return r;
+    return r != BRV_OK ? r : range;
 }
 
 brv_result brv_decode_channel(const brv_volume *v, uint32_t channel, float *out, size_t out_count)
@@ -542,7 +690,7 @@ brv_result brv_verify(const brv_volume *v, uint32_t *brick)
     brv_result r = brv_decoder_create(v, &dec);
     if (r != BRV_OK) return r;
     for (uint32_t b = 0; b < v->grid.brick_count; b++) {
-        r = decode_brick(v, dec, b, -1, dec->scratch, brv_brick_size(v), true);
+        r = decode_brick(v, dec, b, -1, dec->scratch, NULL, brv_brick_size(v), true);
         if (r == BRV_E_VERSION) r = BRV_OK; /* a newer encoding: its frame and checksum were sound */
         if (r != BRV_OK) {
             if (brick) *brick = b;

@@ -33,6 +33,23 @@ static void f16_scalar(const uint8_t *restrict src, size_t n, uint32_t nx, float
     }
 }
 
+/* Halves kept as halves (a group stored without scale): merge and prefix sum only. Returns
+ * nonzero when a word has the all-ones exponent (infinity or NaN). */
+static int f16h_scalar(const uint8_t *restrict src, size_t n, uint32_t nx, uint16_t *restrict out)
+{
+    const uint8_t *lo = src, *hi = src + n;
+    unsigned special = 0;
+    for (size_t row = 0; row < n; row += nx) {
+        uint16_t prev = 0;
+        for (size_t i = row; i < row + nx; i++) {
+            prev = (uint16_t)(prev + (uint16_t)(lo[i] | (hi[i] << 8)));
+            special |= (prev & 0x7C00u) == 0x7C00u;
+            out[i] = prev;
+        }
+    }
+    return special != 0;
+}
+
 static void w32_scalar(const uint8_t *restrict src, size_t n, uint32_t nx, float sc, uint32_t code,
                        float *restrict out)
 {
@@ -128,6 +145,38 @@ static int f16_sse2(const uint8_t *restrict src, size_t n, uint32_t nx, int ex, 
     return _mm_movemask_epi8(special) != 0;
 }
 
+static int f16h_sse2(const uint8_t *restrict src, size_t n, uint32_t nx, uint16_t *restrict out)
+{
+    const uint8_t *lo = src, *hi = src + n;
+    const __m128i expm = _mm_set1_epi16(0x7C00);
+    __m128i special = _mm_setzero_si128();
+    if (nx == 16) {
+        for (size_t row = 0; row < n; row += 16) {
+            __m128i l = _mm_loadu_si128((const __m128i *)(const void *)(lo + row));
+            __m128i h = _mm_loadu_si128((const __m128i *)(const void *)(hi + row));
+            __m128i v0 = prefix16(_mm_unpacklo_epi8(l, h));
+            __m128i v1 = _mm_add_epi16(prefix16(_mm_unpackhi_epi8(l, h)), last16(v0));
+            special = _mm_or_si128(special, _mm_cmpeq_epi16(_mm_and_si128(v0, expm), expm));
+            special = _mm_or_si128(special, _mm_cmpeq_epi16(_mm_and_si128(v1, expm), expm));
+            _mm_storeu_si128((__m128i *)(void *)(out + row), v0);
+            _mm_storeu_si128((__m128i *)(void *)(out + row + 8), v1);
+        }
+    } else {
+        for (size_t row = 0; row < n; row += nx) {
+            __m128i carry = _mm_setzero_si128();
+            for (size_t i = row; i < row + nx; i += 8) {
+                __m128i l = _mm_loadl_epi64((const __m128i *)(const void *)(lo + i));
+                __m128i h = _mm_loadl_epi64((const __m128i *)(const void *)(hi + i));
+                __m128i v = _mm_add_epi16(prefix16(_mm_unpacklo_epi8(l, h)), carry);
+                carry = last16(v);
+                special = _mm_or_si128(special, _mm_cmpeq_epi16(_mm_and_si128(v, expm), expm));
+                _mm_storeu_si128((__m128i *)(void *)(out + i), v);
+            }
+        }
+    }
+    return _mm_movemask_epi8(special) != 0;
+}
+
 /* 16 words from 4 byte planes at index i: four vectors of 4 words each, in order. */
 static inline void words16(const uint8_t *b0, const uint8_t *b1, const uint8_t *b2, const uint8_t *b3, size_t i,
                            __m128i w[4])
@@ -213,6 +262,16 @@ void brv_unfilter_f16(const uint8_t *src, size_t n, uint32_t nx, int ex, float *
     (void)simd;
 #endif
     f16_scalar(src, n, nx, ldexpf(1.0f, ex), out);
+}
+
+int brv_unfilter_f16_halves(const uint8_t *src, size_t n, uint32_t nx, uint16_t *out, int simd)
+{
+#if defined(__SSE2__)
+    if (simd && nx % 8 == 0) return f16h_sse2(src, n, nx, out);
+#else
+    (void)simd;
+#endif
+    return f16h_scalar(src, n, nx, out);
 }
 
 void brv_unfilter_w32(const uint8_t *src, size_t n, uint32_t nx, int ex, uint32_t code, float *out, int simd)

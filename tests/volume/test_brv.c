@@ -1,7 +1,9 @@
 /* The .brv writer and reader: round trips, error bounds, hostile files, golden bytes,
  * sampling and threads. */
+#define _POSIX_C_SOURCE 200809L /* mkstemp, truncate */
 #include <pthread.h>
 #include <stdlib.h>
+#include <unistd.h>
 
 #include "check.h"
 #include "fixture.h"
@@ -871,6 +873,250 @@ static void distinct_bricks_should_decode_from_two_threads_at_once(void **state)
     free(buf);
 }
 
+/* ---- halves straight from the stored words ---------------------------------------------- */
+
+/* brv_decode_brick_f16 and brv_decode_channel_f16 give, for every encoding (unscaled f16
+ * copied, f32 and rgb9e5 rounded, scaled f16 rescaled), exactly the binary16 rounding of what
+ * the float calls give: brv_f32_to_f16 is the reference, checked against IEEE 754 values in
+ * test_codec.c. Beyond 65504 the value is BRV_E_UNREPRESENTABLE, never a clamp. */
+static void decode_to_halves_should_equal_rounded_floats(void **state)
+{
+    (void)state;
+    static const brv_channel_desc ch[6] = {{"extinction", "1/m", BRV_ENCODING_F16},
+                                           {"occupancy", "", BRV_ENCODING_F32},
+                                           {"inscatter.r", "", BRV_ENCODING_RGB9E5},
+                                           {"inscatter.g", "", BRV_ENCODING_RGB9E5},
+                                           {"inscatter.b", "", BRV_ENCODING_RGB9E5},
+                                           {"sun", "cd/m2", BRV_ENCODING_F16}};
+    for (int bright = 0; bright < 2; bright++) {
+        brv_write_desc d = fixture_world(37, 21, 18, ch, 6);
+        size_t size;
+        uint8_t *buf = write_or_fail(&d, bright ? bright_field : fixture_smooth, NULL, &size);
+        brv_volume *v = open_or_fail(buf, size);
+        const brv_grid_info *g = brv_grid(v);
+        size_t per = brv_brick_size(v), n = brv_channel_size(v);
+        float *f = malloc(per * sizeof *f);
+        uint16_t *h = malloc(per * sizeof *h);
+        brv_decoder *dec;
+        assert_int_equal(brv_decoder_create(v, &dec), BRV_OK);
+        int over = 0;
+        for (uint32_t b = 0; b < g->brick_count; b++) {
+            assert_int_equal(brv_decode_brick(v, dec, b, f, per), BRV_OK);
+            brv_result r = brv_decode_brick_f16(v, dec, b, h, per);
+            uint32_t o[3], e[3];
+            brv_brick_extent(v, b, o, e);
+            int brick_over = 0;
+            for (size_t i = 0; i < 6 * (size_t)e[0] * e[1] * e[2]; i++) {
+                uint16_t want = brv_f32_to_f16(f[i]);
+                assert_int_equal(h[i], want);
+                brick_over |= (want & 0x7C00u) == 0x7C00u;
+            }
+            assert_int_equal(r, brick_over ? BRV_E_UNREPRESENTABLE : BRV_OK);
+            over |= brick_over;
+        }
+        assert_int_equal(over, bright); /* the sun (2.75e5) is out of range, the smooth field is not */
+        if (bright) assert_true(brv_channel(v, 5)->scale_exp_max > 0);
+        float *cf = malloc(n * sizeof *cf);
+        uint16_t *ch16 = malloc(n * sizeof *ch16);
+        for (uint32_t c = 0; c < 6; c++) {
+            assert_int_equal(brv_decode_channel(v, c, cf, n), BRV_OK);
+            brv_result r = brv_decode_channel_f16(v, c, ch16, n);
+            int ch_over = 0;
+            for (size_t i = 0; i < n; i++) {
+                uint16_t want = brv_f32_to_f16(cf[i]);
+                assert_int_equal(ch16[i], want);
+                ch_over |= (want & 0x7C00u) == 0x7C00u;
+            }
+            assert_int_equal(r, ch_over ? BRV_E_UNREPRESENTABLE : BRV_OK);
+        }
+        brv_decoder_free(dec);
+        free(cf);
+        free(ch16);
+        free(f);
+        free(h);
+        brv_free(v);
+        free(buf);
+    }
+}
+
+/* ---- files read on demand ----------------------------------------------------------------- */
+
+static char disk_path[64];
+
+static void disk_write(const uint8_t *buf, size_t size)
+{
+    FILE *f = fopen(disk_path, "wb");
+    assert_non_null(f);
+    if (size) assert_int_equal(fwrite(buf, 1, size, f), size);
+    assert_int_equal(fclose(f), 0);
+}
+
+static void disk_make(void)
+{
+    strcpy(disk_path, "brv_disk_XXXXXX"); /* in the test's working folder */
+    int fd = mkstemp(disk_path);
+    assert_true(fd >= 0);
+    close(fd);
+}
+
+/* open_and_read through brv_open_file of the bytes written to disk. */
+static brv_result disk_open_and_read(const uint8_t *src, size_t size, counting *cnt)
+{
+    disk_write(src, size);
+    brv_allocator a = {count_alloc, count_free, cnt};
+    brv_volume *v = NULL;
+    brv_result r = brv_open_file(disk_path, &a, &v);
+    if (r == BRV_OK) {
+        r = brv_verify(v, NULL);
+        float *all = malloc(brv_all_size(v) * sizeof(float));
+        brv_result r2 = brv_decode_all(v, all, brv_all_size(v));
+        if (r2 == BRV_OK && original_values)
+            assert_memory_equal(all, original_values, brv_all_size(v) * sizeof(float));
+        if (r == BRV_OK) assert_int_equal(r2, BRV_OK);
+        free(all);
+        brv_free(v);
+    }
+    assert_true(r >= BRV_OK && r < BRV_RESULT_MAX_ENUM);
+    return r;
+}
+
+/* A file opened from disk holds only its header and tables; its bricks are read when decoded,
+ * give what the whole file in memory gives, from two threads at once too. */
+static void open_file_should_read_bricks_on_demand(void **state)
+{
+    (void)state;
+    brv_channel_desc ch[2] = {{"a", "", BRV_ENCODING_F16}, {"b", "", BRV_ENCODING_F32}};
+    brv_write_desc d = fixture_world(48, 40, 33, ch, 2);
+    size_t size;
+    uint8_t *buf = write_or_fail(&d, fixture_smooth, NULL, &size);
+    disk_make();
+    disk_write(buf, size);
+    brv_volume *mem = open_or_fail(buf, size), *v = NULL;
+    counting cnt = {0};
+    brv_allocator a = {count_alloc, count_free, &cnt};
+    assert_int_equal(brv_open_file(disk_path, &a, &v), BRV_OK);
+    const brv_grid_info *g = brv_grid(v);
+    uint64_t tables = brv_rd64(buf + 40);
+    print_message("opened from disk: %zu bytes held for a %zu-byte file (tables %llu bytes)\n", cnt.live, size,
+                  (unsigned long long)tables);
+    /* The tables and the fixed description (about 8 KiB: 64 channel slots); no brick data
+     * (the file is 158 KB). */
+    assert_true(cnt.live < tables + 9000);
+    assert_true(cnt.live < size / 4);
+    assert_int_equal(g->file_size, size);
+    assert_int_equal(g->brick_bytes, brv_grid(mem)->brick_bytes);
+    assert_int_equal(brv_verify(v, NULL), BRV_OK);
+    size_t all = brv_all_size(v);
+    float *x = malloc(all * sizeof *x), *y = malloc(all * sizeof *y);
+    assert_int_equal(brv_decode_all(v, x, all), BRV_OK);
+    assert_int_equal(brv_decode_all(mem, y, all), BRV_OK);
+    assert_memory_equal(x, y, all * sizeof *x);
+    size_t total = brv_brick_size(v) * g->brick_count;
+    float *one = calloc(total, sizeof(float)), *two = calloc(total, sizeof(float));
+    job j0 = {mem, 0, 1, one, BRV_OK};
+    decode_job(&j0);
+    job ja = {v, 0, 2, two, BRV_OK}, jb = {v, 1, 2, two, BRV_OK};
+    pthread_t ta, tb;
+    pthread_create(&ta, NULL, decode_job, &ja);
+    pthread_create(&tb, NULL, decode_job, &jb);
+    pthread_join(ta, NULL);
+    pthread_join(tb, NULL);
+    assert_int_equal(ja.r, BRV_OK);
+    assert_int_equal(jb.r, BRV_OK);
+    assert_memory_equal(one, two, total * sizeof(float));
+    brv_free(v);
+    assert_int_equal(cnt.live, 0);
+    /* A folder is not a volume file. */
+    assert_int_equal(brv_open_file(".", NULL, &v), BRV_E_IO);
+    assert_int_equal(brv_open_file("no such file.brv", NULL, &v), BRV_E_IO);
+    free(one);
+    free(two);
+    free(x);
+    free(y);
+    brv_free(mem);
+    free(buf);
+    remove(disk_path);
+}
+
+/* Every truncation length and a thousand byte flips of a real file on disk are faults, with
+ * the same code as the same bytes in memory get. */
+static void open_file_should_reject_every_truncation_and_flip_on_disk(void **state)
+{
+    (void)state;
+    size_t size;
+    uint8_t *buf = small_file(&size);
+    float *orig = decode_small(buf, size);
+    original_values = orig;
+    disk_make();
+    counting cnt = {0};
+    assert_int_equal(disk_open_and_read(buf, size, &cnt), BRV_OK);
+    for (size_t len = 0; len < size; len++) {
+        brv_result r = disk_open_and_read(buf, len, &cnt);
+        assert_int_not_equal(r, BRV_OK);
+        assert_int_equal(r, open_and_read(buf, len, &cnt));
+    }
+    uint8_t *mod = malloc(size);
+    srand(777);
+    for (int k = 0; k < 1000; k++) {
+        memcpy(mod, buf, size);
+        size_t at = (size_t)rand() % size;
+        mod[at] ^= (uint8_t)(1 + rand() % 255);
+        brv_result r = disk_open_and_read(mod, size, &cnt);
+        assert_int_not_equal(r, BRV_OK);
+        assert_int_equal(r, open_and_read(mod, size, &cnt));
+    }
+    assert_int_equal(cnt.live, 0);
+    original_values = NULL;
+    free(mod);
+    free(orig);
+    free(buf);
+    remove(disk_path);
+}
+
+/* A file shortened or changed on disk after open: the bricks that are gone are BRV_E_TRUNCATED,
+ * a changed brick BRV_E_BRICK_CORRUPT, and the bricks still intact decode. */
+static void file_changed_after_open_should_be_a_named_fault(void **state)
+{
+    (void)state;
+    size_t size;
+    uint8_t *buf = small_file(&size);
+    disk_make();
+    disk_write(buf, size);
+    brv_volume *v = NULL;
+    assert_int_equal(brv_open_file(disk_path, NULL, &v), BRV_OK);
+    const brv_grid_info *g = brv_grid(v);
+    const uint8_t *bt = buf + brv_rd64(buf + 32) + BRV_TABLES_FIXED + 4 * BRV_CHANNEL_ENTRY;
+    uint32_t last = g->brick_count - 1;
+    uint64_t last_off = brv_rd64(bt + 16 * (size_t)last);
+    size_t per = brv_brick_size(v), all = brv_all_size(v);
+    float *brick = malloc(per * sizeof *brick), *grid = malloc(all * sizeof *grid);
+    /* Cut inside the last brick (the bricks are written in order). */
+    assert_int_equal(truncate(disk_path, (off_t)last_off + 3), 0);
+    assert_int_equal(brv_decode_brick(v, NULL, last, brick, per), BRV_E_TRUNCATED);
+    assert_int_equal(brv_decode_brick(v, NULL, 0, brick, per), BRV_OK);
+    assert_int_equal(brv_decode_all(v, grid, all), BRV_E_TRUNCATED);
+    uint32_t bad = 0;
+    assert_int_equal(brv_verify(v, &bad), BRV_E_TRUNCATED);
+    assert_int_equal(bad, last);
+    /* Same length, one byte of brick 0 changed. */
+    uint8_t *mod = malloc(size);
+    memcpy(mod, buf, size);
+    mod[BRV_HEADER_SIZE + 5] ^= 0x40;
+    FILE *f = fopen(disk_path, "r+b");
+    assert_non_null(f);
+    assert_int_equal(fwrite(mod, 1, size, f), size);
+    assert_int_equal(fclose(f), 0);
+    assert_int_equal(brv_verify(v, &bad), BRV_E_BRICK_CORRUPT);
+    assert_int_equal(bad, 0);
+    assert_int_equal(brv_decode_brick(v, NULL, last, brick, per), BRV_OK);
+    brv_free(v);
+    free(mod);
+    free(brick);
+    free(grid);
+    free(buf);
+    remove(disk_path);
+}
+
 static void result_texts_should_come_from_one_list(void **state)
 {
     (void)state;
@@ -935,6 +1181,10 @@ int main(int argc, char **argv)
         cmocka_unit_test(frustum_sampling_should_interpolate_pixels_and_depth),
         cmocka_unit_test(distinct_bricks_should_decode_from_two_threads_at_once),
         cmocka_unit_test(result_texts_should_come_from_one_list),
+        cmocka_unit_test(decode_to_halves_should_equal_rounded_floats),
+        cmocka_unit_test(open_file_should_read_bricks_on_demand),
+        cmocka_unit_test(open_file_should_reject_every_truncation_and_flip_on_disk),
+        cmocka_unit_test(file_changed_after_open_should_be_a_named_fault),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }

@@ -206,6 +206,43 @@ static void unfilter_should_match_scalar_reference_bit_for_bit(void **state)
     free(b);
 }
 
+/* The halves path gives back every stored 16-bit word itself, the same from the SSE2 and the
+ * scalar code, and flags exactly the words with the all-ones exponent (infinities and NaNs,
+ * IEEE 754-2008 binary16: exponent field 31). Source: IEEE 754-2008, 3.6 (binary16). */
+static void halves_unfilter_should_return_the_stored_words(void **state)
+{
+    (void)state;
+    enum { N = 65536 };
+    uint8_t *words = malloc(2u * N), *planes = malloc(2u * N);
+    uint16_t *a = malloc(2u * N), *b = malloc(2u * N);
+    static const uint32_t nxs[] = {16, 8, 32, 5};
+    for (size_t i = 0; i < sizeof nxs / sizeof nxs[0]; i++) {
+        for (uint32_t w = 0; w < N; w++) brv_wr16(words + 2 * w, (uint16_t)(w * 40503u)); /* every word */
+        size_t n = N - N % nxs[i];
+        shuffle_delta(words, n, 2, nxs[i], planes);
+        assert_int_equal(brv_unfilter_f16_halves(planes, n, nxs[i], a, 1), 1); /* 0x7C00.. are there */
+        assert_int_equal(brv_unfilter_f16_halves(planes, n, nxs[i], b, 0), 1);
+        assert_memory_equal(a, b, n * sizeof(uint16_t));
+        for (size_t j = 0; j < n; j++) assert_int_equal(a[j], brv_rd16(words + 2 * j));
+        /* Only finite words: no flag. */
+        for (uint32_t w = 0; w < N; w++) brv_wr16(words + 2 * w, (uint16_t)((w * 40503u) % 0x7C00u));
+        shuffle_delta(words, n, 2, nxs[i], planes);
+        assert_int_equal(brv_unfilter_f16_halves(planes, n, nxs[i], a, 1), 0);
+        assert_int_equal(brv_unfilter_f16_halves(planes, n, nxs[i], b, 0), 0);
+        assert_memory_equal(a, b, n * sizeof(uint16_t));
+        /* One infinity at the end of the last row is noticed by both paths. */
+        brv_wr16(words + 2 * (n - 1), 0xFC00u);
+        shuffle_delta(words, n, 2, nxs[i], planes);
+        assert_int_equal(brv_unfilter_f16_halves(planes, n, nxs[i], a, 1), 1);
+        assert_int_equal(brv_unfilter_f16_halves(planes, n, nxs[i], b, 0), 1);
+        assert_int_equal(a[n - 1], 0xFC00u);
+    }
+    free(words);
+    free(planes);
+    free(a);
+    free(b);
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
@@ -216,6 +253,7 @@ int main(void)
         cmocka_unit_test(crc32_should_match_check_value),
         cmocka_unit_test(filters_should_be_lossless),
         cmocka_unit_test(unfilter_should_match_scalar_reference_bit_for_bit),
+        cmocka_unit_test(halves_unfilter_should_return_the_stored_words),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }

@@ -4,6 +4,8 @@
  * Each input is read twice: as it is, and "resealed" — a copy whose brick, table and header
  * CRC-32s are recomputed — because almost every mutation breaks a CRC, and without resealing
  * the fuzzer would never get past the header's checksum to the parsing behind it.
+ * The resealed copy is also written to a temporary file and opened with brv_open_file, whose
+ * bricks are read from the file on demand (pread) rather than from memory.
  * A third pass reaches the brick payload parser behind zstd's own content checksum: the input
  * itself becomes the payload of the single brick of a small template volume (5 x 3 x 2 cells,
  * channels f16, f32 and an rgb9e5 triplet), compressed as a proper frame and sealed.
@@ -15,9 +17,11 @@
  *   build-fuzz/tests/fuzz/volume/fuzz_brv -dict=tests/fuzz/volume/brv.dict -max_len=65536 \
  *       -max_total_time=600 fuzz-work
  * The test suite replays tests/fuzz/volume/corpus/ through the same function (replay.c). */
+#define _POSIX_C_SOURCE 200809L /* mkstemp */
 #include <stdint.h>
 #include <stdlib.h>
 #include <string.h>
+#include <unistd.h>
 
 #include "brume/brv.h"
 #include "volume/brv_internal.h"
@@ -47,6 +51,36 @@ static void reseal(uint8_t *d, size_t size)
 }
 
 static void read_volume(const uint8_t *data, size_t size);
+static void read_opened(brv_volume *v);
+
+static char disk_path[32];
+static void remove_disk_file(void) { remove(disk_path); }
+
+/* The bytes as a file on disk, opened with brv_open_file (one temporary file, rewritten). */
+static void read_from_disk(const uint8_t *data, size_t size)
+{
+    char *path = disk_path;
+    if (!path[0]) {
+        strcpy(path, "fuzz_brv_XXXXXX"); /* in the working folder, removed at exit */
+        int fd = mkstemp(path);
+        if (fd < 0) abort();
+        close(fd);
+        atexit(remove_disk_file);
+    }
+    FILE *f = fopen(path, "wb");
+    if (!f) abort();
+    if (size && fwrite(data, 1, size, f) != size) abort();
+    if (fclose(f) != 0) abort();
+    brv_volume *v = NULL;
+    brv_result r = brv_open_file(path, NULL, &v);
+    if ((unsigned)r >= BRV_RESULT_MAX_ENUM) abort();
+    /* The same bytes in memory open the same way. */
+    brv_volume *m = NULL;
+    brv_result rm = brv_open_memory(data, size, NULL, &m);
+    brv_free(m);
+    if (rm != r) abort();
+    if (r == BRV_OK) read_opened(v);
+}
 
 static uint8_t *template_file;
 static size_t template_size;
@@ -127,6 +161,7 @@ int LLVMFuzzerTestOneInput(const uint8_t *data, size_t size)
     if (size) memcpy(copy, data, size);
     reseal(copy, size);
     read_volume(copy, size);
+    read_from_disk(copy, size);
     free(copy);
     if (size <= (1u << 16)) read_as_payload(data, size);
     return 0;
@@ -138,6 +173,12 @@ static void read_volume(const uint8_t *data, size_t size)
     brv_result r = brv_open_memory(data, size, NULL, &v);
     if ((unsigned)r >= BRV_RESULT_MAX_ENUM) abort();
     if (r != BRV_OK) return;
+    read_opened(v);
+}
+
+/* Everything a reader does with an open volume; frees it. */
+static void read_opened(brv_volume *v)
+{
     const brv_grid_info *g = brv_grid(v);
     volatile size_t sink = 0;
     for (uint32_t c = 0; c < g->channel_count; c++) {
@@ -170,6 +211,10 @@ static void read_volume(const uint8_t *data, size_t size)
     brv_decoder *dec = NULL;
     if (brick && brv_decoder_create(v, &dec) == BRV_OK) {
         for (uint32_t b = 0; b < g->brick_count && b < 4; b++) (void)brv_decode_brick(v, dec, b, brick, brv_brick_size(v));
+        uint16_t *h = malloc(brv_brick_size(v) * sizeof *h);
+        for (uint32_t b = 0; h && b < g->brick_count && b < 4; b++)
+            (void)brv_decode_brick_f16(v, dec, b, h, brv_brick_size(v));
+        free(h);
     }
     brv_decoder_free(dec);
     free(brick);
