@@ -1,8 +1,11 @@
 /* Speed and size of the .brv reader and writer (a benchmark program, not a test):
- *   bench_brv [N [random]]   N³ cells (default 256), 4 channels (extinction + in-scatter r, g, b);
- *                            "random": only the random-access part
+ *   bench_brv [N [random|decode]]   N³ cells (default 256), 4 channels (extinction + in-scatter
+ *                            r, g, b); "random" or "decode": only that part
  * 1. decode throughput of the whole volume, f16 and f32, at one and two threads, next to
- *    ZSTD_decompressDCtx alone on the same brick frames (the floor any reader pays);
+ *    ZSTD_decompressDCtx alone on the same brick frames: fair (zstd writes each brick's payload
+ *    into its place in a whole-volume buffer, the reader decodes to the same encoding into the
+ *    same kind of buffer) and strict (zstd into one small reused buffer, which pays no memory
+ *    traffic; the reader into the whole volume or into one reused brick buffer);
  * 2. size per encoding on a smooth synthetic field, against raw f16 and against plain zstd of
  *    the raw float32 array;
  * 3. random access: 1 million trilinear samples at random points, one thread.
@@ -96,11 +99,31 @@ static vol write_volume(brv_encoding main_enc, brv_encoding rgb_enc, int level)
     return out;
 }
 
+/* What a job does with every step-th brick from first. */
+enum {
+    ZSTD_HOT,      /* ZSTD_decompressDCtx into one reused 32 KiB-class buffer (strict floor) */
+    ZSTD_PLACED,   /* ZSTD_decompressDCtx, each payload into its place in a whole-volume buffer */
+    READER_F32,    /* brv_decode_brick, floats into a whole-volume array */
+    READER_F32_HOT,/* brv_decode_brick into one reused brick buffer */
+    READER_F16,    /* brv_decode_brick_f16, halves into a whole-volume array */
+    READER_F16_HOT,/* brv_decode_brick_f16 into one reused brick buffer */
+    MODES
+};
+static const char *const mode_name[MODES] = {"zstd alone, into one reused buffer",
+                                             "zstd alone, each brick into its place in the volume",
+                                             "reader, floats into the whole volume",
+                                             "reader, floats into one reused brick buffer",
+                                             "reader, halves into the whole volume",
+                                             "reader, halves into one reused brick buffer"};
+
 typedef struct job {
     const brv_volume *v;
     uint32_t first, step;
-    float *out;
-    int zstd_only; /* 1: zstd alone; 2: the reader into one reused brick buffer */
+    int mode;
+    float *out;          /* READER_F32: brick b at out + b·per */
+    uint16_t *out16;     /* READER_F16: brick b at out16 + b·per */
+    uint8_t *placed;     /* ZSTD_PLACED: brick b's payload at placed + place[b] */
+    const size_t *place; /* brick_count + 1 offsets */
     const uint8_t *file;
 } job;
 
@@ -109,13 +132,15 @@ static void *run_job(void *arg)
     job *j = arg;
     const brv_grid_info *g = brv_grid(j->v);
     size_t per = brv_brick_size(j->v);
-    if (j->zstd_only == 1) {
+    const uint8_t *bt = j->file + brv_rd64(j->file + 32) + BRV_TABLES_FIXED + g->channel_count * BRV_CHANNEL_ENTRY;
+    if (j->mode == ZSTD_HOT || j->mode == ZSTD_PLACED) {
         ZSTD_DCtx *dctx = ZSTD_createDCtx();
-        uint8_t *payload = malloc(per * 4 + 64);
-        const uint8_t *bt = j->file + brv_rd64(j->file + 32) + BRV_TABLES_FIXED + 4 * BRV_CHANNEL_ENTRY;
+        size_t cap = per * 4 + 64;
+        uint8_t *payload = malloc(cap);
         for (uint32_t b = j->first; b < g->brick_count; b += j->step) {
-            size_t r = ZSTD_decompressDCtx(dctx, payload, per * 4 + 64, j->file + brv_rd64(bt + 16 * b),
-                                           brv_rd32(bt + 16 * b + 8));
+            uint8_t *dst = j->mode == ZSTD_HOT ? payload : j->placed + j->place[b];
+            size_t room = j->mode == ZSTD_HOT ? cap : j->place[b + 1] - j->place[b];
+            size_t r = ZSTD_decompressDCtx(dctx, dst, room, j->file + brv_rd64(bt + 16 * b), brv_rd32(bt + 16 * b + 8));
             if (ZSTD_isError(r)) exit(1);
         }
         free(payload);
@@ -124,65 +149,108 @@ static void *run_job(void *arg)
     }
     brv_decoder *dec;
     if (brv_decoder_create(j->v, &dec) != BRV_OK) exit(1);
-    float *hot = j->zstd_only == 2 ? malloc(per * sizeof(float)) : NULL;
-    for (uint32_t b = j->first; b < g->brick_count; b += j->step)
-        if (brv_decode_brick(j->v, dec, b, hot ? hot : j->out + (size_t)b * per, per) != BRV_OK) exit(1);
+    float *hot = malloc(per * sizeof(float));
+    uint16_t *hot16 = malloc(per * sizeof(uint16_t));
+    for (uint32_t b = j->first; b < g->brick_count; b += j->step) {
+        brv_result r = BRV_OK;
+        if (j->mode == READER_F32) r = brv_decode_brick(j->v, dec, b, j->out + (size_t)b * per, per);
+        else if (j->mode == READER_F32_HOT) r = brv_decode_brick(j->v, dec, b, hot, per);
+        else if (j->mode == READER_F16) r = brv_decode_brick_f16(j->v, dec, b, j->out16 + (size_t)b * per, per);
+        else r = brv_decode_brick_f16(j->v, dec, b, hot16, per);
+        if (r != BRV_OK) exit(1);
+    }
     free(hot);
+    free(hot16);
     brv_decoder_free(dec);
     return NULL;
 }
 
-/* Best of 5 wall-clock times; *cpu gets the CPU time of that run (all threads), which the
- * other programs sharing the machine disturb less than the wall clock. */
-static double timed(const brv_volume *v, const uint8_t *file, float *out, int threads, int zstd_only, double *cpu)
+static int cmp_double(const void *a, const void *b)
 {
-    double best = 1e30;
-    for (int rep = 0; rep < 5; rep++) {
-        double c0 = cpu_now();
-        job j[2];
-        pthread_t t[2];
-        double t0 = now();
-        for (int k = 0; k < threads; k++) {
-            j[k] = (job){v, (uint32_t)k, (uint32_t)threads, out, zstd_only, file};
-            pthread_create(&t[k], NULL, run_job, &j[k]);
-        }
-        for (int k = 0; k < threads; k++) pthread_join(t[k], NULL);
-        double dt = now() - t0, dc = cpu_now() - c0;
-        if (dt < best) {
-            best = dt;
-            *cpu = dc;
-        }
-    }
-    return best;
+    double x = *(const double *)a, y = *(const double *)b;
+    return x < y ? -1 : x > y;
 }
 
-static void decode_bench(const char *label, const vol *f)
+enum { REPS = 7 };
+
+/* One run of a mode at a thread count: wall and CPU time (all threads). */
+static void run_once(job proto, int threads, double *wall, double *cpu)
+{
+    job j[2];
+    pthread_t t[2];
+    double c0 = cpu_now(), t0 = now();
+    for (int k = 0; k < threads; k++) {
+        j[k] = proto;
+        j[k].first = (uint32_t)k;
+        j[k].step = (uint32_t)threads;
+        pthread_create(&t[k], NULL, run_job, &j[k]);
+    }
+    for (int k = 0; k < threads; k++) pthread_join(t[k], NULL);
+    *wall = now() - t0;
+    *cpu = cpu_now() - c0;
+}
+
+/* Every mode, REPS rounds with the modes interleaved (so a burst of load from other programs
+ * falls on all of them alike); medians of wall and of CPU time. The CPU time is what the
+ * comparison rests on: other programs sharing the machine stretch the wall clock, not it. */
+static void decode_bench(const char *label, const vol *f, int is_f16)
 {
     brv_volume *v;
     if (brv_open_memory(f->bytes, f->size, NULL, &v) != BRV_OK) exit(1);
-    size_t floats = brv_brick_size(v) * brv_grid(v)->brick_count;
+    const brv_grid_info *g = brv_grid(v);
+    size_t per = brv_brick_size(v), floats = per * g->brick_count;
     float *out = malloc(floats * sizeof(float));
+    uint16_t *out16 = malloc(floats * sizeof(uint16_t));
+    size_t *place = malloc((g->brick_count + 1) * sizeof *place);
+    const uint8_t *bt = f->bytes + brv_rd64(f->bytes + 32) + BRV_TABLES_FIXED + g->channel_count * BRV_CHANNEL_ENTRY;
+    place[0] = 0;
+    for (uint32_t b = 0; b < g->brick_count; b++)
+        place[b + 1] = place[b] + (size_t)ZSTD_getFrameContentSize(f->bytes + brv_rd64(bt + 16 * b), brv_rd32(bt + 16 * b + 8));
+    uint8_t *placed = malloc(place[g->brick_count]);
+    /* Touch every destination once, so no run pays the first page faults. */
     memset(out, 0, floats * sizeof(float));
-    double mb = floats * 4.0 / (1 << 20);
+    memset(out16, 0, floats * sizeof(uint16_t));
+    memset(placed, 0, place[g->brick_count]);
+    printf("  %s: payload %.1f MiB (%s words), floats %.1f MiB; medians of %d interleaved runs\n", label,
+           place[g->brick_count] / 1048576.0, is_f16 ? "2-byte" : "4-byte", floats * 4.0 / 1048576.0, REPS);
     for (int th = 1; th <= 2; th++) {
-        double cz, cr;
-        double tz = timed(v, f->bytes, out, th, 1, &cz), tr = timed(v, f->bytes, out, th, 0, &cr);
-        printf("  %-4s %d thread%s: reader %6.3f s wall %6.3f s cpu (%5.0f MiB/s of floats)  zstd alone %6.3f s wall "
-               "%6.3f s cpu  reader at %5.1f %% of zstd's speed (cpu %5.1f %%)\n",
-               label, th, th > 1 ? "s" : " ", tr, cr, mb / tr, tz, cz, 100.0 * tz / tr, 100.0 * cz / cr);
+        double wall[MODES][REPS], cpu[MODES][REPS], mw[MODES], mc[MODES];
+        for (int rep = 0; rep < REPS; rep++)
+            for (int m = 0; m < MODES; m++) {
+                if (!is_f16 && (m == READER_F16 || m == READER_F16_HOT)) continue;
+                job proto = {v, 0, 1, m, out, out16, placed, place, f->bytes};
+                run_once(proto, th, &wall[m][rep], &cpu[m][rep]);
+            }
+        for (int m = 0; m < MODES; m++) {
+            if (!is_f16 && (m == READER_F16 || m == READER_F16_HOT)) continue;
+            qsort(wall[m], REPS, sizeof(double), cmp_double);
+            qsort(cpu[m], REPS, sizeof(double), cmp_double);
+            mw[m] = wall[m][REPS / 2];
+            mc[m] = cpu[m][REPS / 2];
+            printf("    %d thread%s %-52s %6.3f s wall %6.3f s cpu\n", th, th > 1 ? "s" : " ", mode_name[m], mw[m], mc[m]);
+        }
+        int same = is_f16 ? READER_F16 : READER_F32, same_hot = is_f16 ? READER_F16_HOT : READER_F32_HOT;
+        printf("    %d thread%s fair   (same encoding, same kind of destination): reader at %5.1f %% of zstd's speed "
+               "(cpu; wall %5.1f %%)\n", th, th > 1 ? "s" : " ", 100.0 * mc[ZSTD_PLACED] / mc[same],
+               100.0 * mw[ZSTD_PLACED] / mw[same]);
+        printf("    %d thread%s strict (zstd into one reused buffer): reader floats into the whole volume at %5.1f %%; "
+               "reader %s into one reused brick buffer at %5.1f %% (cpu)\n", th, th > 1 ? "s" : " ",
+               100.0 * mc[ZSTD_HOT] / mc[READER_F32], is_f16 ? "halves" : "floats", 100.0 * mc[ZSTD_HOT] / mc[same_hot]);
+        if (is_f16)
+            printf("    %d thread%s strict: reader halves into the whole volume at %5.1f %%, floats into one reused "
+                   "brick buffer at %5.1f %% (cpu)\n", th, th > 1 ? "s" : " ", 100.0 * mc[ZSTD_HOT] / mc[READER_F16],
+                   100.0 * mc[ZSTD_HOT] / mc[READER_F32_HOT]);
     }
-    double ch, th = timed(v, f->bytes, out, 1, 2, &ch), cz0;
-    double tz0 = timed(v, f->bytes, out, 1, 1, &cz0);
-    printf("  %-4s 1 thread, into one reused brick buffer (no memory-bandwidth cost): reader %.3f s, zstd alone "
-           "%.3f s: reader at %.1f %% of zstd's speed\n",
-           label, th, tz0, 100.0 * tz0 / th);
     float *grid = malloc(brv_all_size(v) * sizeof(float));
     double t0 = now();
     if (brv_decode_all(v, grid, brv_all_size(v)) != BRV_OK) exit(1);
     double ta = now() - t0;
-    printf("  %-4s brv_decode_all (grid order, 1 thread): %.3f s (%.0f MiB/s)\n", label, ta, mb / ta);
+    printf("    brv_decode_all (grid order, 1 thread): %.3f s (%.0f MiB/s of floats)\n", ta, floats * 4.0 / 1048576.0 / ta);
     free(grid);
+    free(placed);
+    free(place);
     free(out);
+    free(out16);
     brv_free(v);
 }
 
@@ -250,8 +318,8 @@ int main(int argc, char **argv)
         vol f32 = write_volume(BRV_ENCODING_F32, BRV_ENCODING_F32, 9);
         vol f16 = write_volume(BRV_ENCODING_F16, BRV_ENCODING_F16, 9);
         printf("decode of the whole volume, %u^3 cells, 4 channels\n", N);
-        decode_bench("f32", &f32);
-        decode_bench("f16", &f16);
+        decode_bench("f32", &f32, 0);
+        decode_bench("f16", &f16, 1);
         free(f32.bytes);
         free(f16.bytes);
         return 0;
@@ -291,10 +359,10 @@ int main(int argc, char **argv)
                encs[e].name, vols[e].size / 1048576.0, raw_f16 / vols[e].size, raw_f32 / vols[e].size,
                (double)zraw / vols[e].size, vols[e].write_s);
     }
-    printf("\ndecode of the whole volume (best of 3; 'zstd alone' = ZSTD_decompressDCtx on the same frames)\n");
-    decode_bench("f32", &vols[0]);
-    decode_bench("f16", &vols[1]);
-    decode_bench("cmp", &vols[2]);
+    printf("\ndecode of the whole volume ('zstd alone' = ZSTD_decompressDCtx on the same frames)\n");
+    decode_bench("f32", &vols[0], 0);
+    decode_bench("f16", &vols[1], 1);
+    decode_bench("cmp", &vols[2], 0);
     printf("\nrandom access (trilinear, all 4 channels, f16 volume, 1 thread)\n");
     uint32_t all = (N / 16) * (N / 16) * (N / 16);
     random_access(&vols[1], all, "random");
