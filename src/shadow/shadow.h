@@ -63,8 +63,9 @@ double brm_shadow_transmittance(const brm_shadow_set *ss, uint32_t l, brm_vec3 p
 /* (Fast path: per light, a light-space grid of optical depth along the light's paths — an
  * orthographic column per lateral node for directional lights, rays in (cube-face or spot)
  * projection × distance for point and spot lights — with Hermite steps along paths, the
- * fog-bounds entry solved exactly per query, cells checked at build time, refined 4 × 4
- * where interpolation is off by more than 0.003 and marched where even that is not enough.
+ * fog-bounds entry solved exactly per query, cells checked at build time, corrected (or
+ * refined 4 × 4) where interpolation is off by more than 0.003 and marched where even that
+ * is not enough.
  * Lookups: tens to a few hundred nanoseconds; see bench/bench_shadow.c.) */
 
 /* Texel size (m) of light l's map near p; 0 for lights without a map (for warnings). */

@@ -35,9 +35,8 @@
 #define BRM_OD_BLOCK_SHARE 32u  /* at most one lateral cell in 32 gets a block (what is left marches) */
 /* Cell corrections (5·og_n[2] floats + og_n[2] bytes each): a one-view light gets one per
  * BRM_OD_CORR_SHARE lateral cells, a cube's faces together one per BRM_OD_CORR_SHARE_CUBE of
- * all their cells, reserved by the estimate, plus as many as the memory its views' unused
- * blocks leave would hold (reserved too). Common practice, no source: the caps bound the
- * memory estimate; flagged cells beyond them keep marching. */
+ * all their cells, reserved by the estimate. Common practice, no source: the caps bound the
+ * memory estimate; flagged cells beyond them (and beyond the blocks) keep marching. */
 #define BRM_OD_CORR_SHARE 8u
 #define BRM_OD_CORR_SHARE_CUBE 12u
 #define BRM_OD_CORR_PTS 5u     /* misses stored per node: centre and four edge midpoints */
@@ -90,22 +89,26 @@ typedef struct shadow_view {
      * the intervals they bound are flagged BRM_OD_UNFILLED (a point found there anyway
      * marches, exactly as in a flagged cell) */
     uint16_t *od_last;          /* og_n[0] · og_n[1] */
-    /* Flagged lateral cells get a block of (R+1)² columns, R = BRM_OD_REFINE per side, checked
-     * again at their sub-cell centres; up to blk_cap blocks (a fixed share of the cells: the
-     * memory estimate counts them all, the build allocates the ones used); what stays
-     * flagged marches. */
+    double cone_tan;            /* a one-view spot: tan of its outer half-angle (cells wholly
+                                   outside the cone are left unfilled: the kernel never asks
+                                   there); HUGE_VAL otherwise */
+    /* Cells still flagged after the corrections (below) get a block of (R+1)² columns,
+     * R = BRM_OD_REFINE per side, checked again at their sub-cell centres; up to blk_cap
+     * blocks (a fixed share of the cells: the memory estimate counts them all, the build
+     * allocates the ones used); what stays flagged marches. A cell's block, when it has
+     * one, is all its lookups read. */
     int32_t *refine;            /* per lateral cell: its block, or −1 */
     uint32_t blk_cap, blk_count;
     uint32_t *blk_cell;         /* per block: its lateral cell */
     float *blk_od;              /* blk_cap · (R+1)² columns · og_n[2] · 2 */
     float *blk_pre;             /* ortho: blk_cap · 3 · (R+1)² */
     uint8_t *blk_bad;           /* blk_cap · R² · (og_n[2] − 1) */
-    /* Flagged cells left without a block get a correction (brm_od_fill_correction): per
-     * depth node what bilinear interpolation misses at the cell's centre and edge midpoints,
-     * interpolated biquadratically across the cell and added at lookup in the flagged
-     * intervals where it passed a re-check at the four quarter points; those are cleared in
-     * od_bad, the others keep marching. Up to corr_cap (what the light's pool has left
-     * when the view's turn comes). */
+    /* Flagged cells get a correction first (brm_od_fill_correction): per depth node what
+     * bilinear interpolation misses at the cell's centre and edge midpoints, interpolated
+     * biquadratically across the cell and added at lookup in the flagged intervals where it
+     * passed a re-check at the four quarter points; those are cleared in od_bad, the others
+     * stay flagged (for a block, or the march). Up to corr_cap (what the light's pool has
+     * left when the view's turn comes). */
     int32_t *corr;              /* per lateral cell: its correction, or −1 */
     uint32_t corr_cap, corr_count;
     uint32_t *corr_cell;        /* per correction: its lateral cell */
@@ -216,13 +219,14 @@ void brm_od_fill_row(const brm_scene *s, const media_info *mi, shadow_view *v, u
 /* Flags the cells of row j (between node rows j and j + 1) whose interpolation is off;
  * scratch holds 2·og_n[2] floats. Needs rows j and j + 1 filled. */
 void brm_od_check_row(const brm_scene *s, const media_info *mi, shadow_view *v, uint32_t j, float *scratch);
-/* After every row is checked: hands blocks to flagged cells, in row order (deterministic). */
+/* After the corrections are filled: hands blocks to the cells still flagged, in row order
+ * (deterministic), and sets refine (−1 for the others). */
 void brm_od_assign_blocks(shadow_view *v);
 /* Fills and checks block b. scratch holds 2·og_n[2] floats. */
 void brm_od_fill_block(const brm_scene *s, const media_info *mi, shadow_view *v, uint32_t b, float *scratch);
-/* After every view's blocks are assigned: hands up to corr_cap corrections to the flagged
- * cells that have no block, in row order (deterministic), and allocates them. Returns 0 when
- * out of memory. */
+/* After every row is checked: hands up to corr_cap corrections to the flagged cells (those
+ * with refine[c] ≥ 0 excepted; the build sets refine to −1 first), in row order
+ * (deterministic), and allocates them. Returns 0 when out of memory. */
 int brm_od_assign_corrections(shadow_view *v);
 /* Fills and re-checks correction c (clears the od_bad intervals it fixes). scratch holds
  * 3·og_n[2] floats. */
