@@ -5,6 +5,7 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <time.h>
 
 #include "base/lds.h"
 #include "base/sh.h"
@@ -26,6 +27,14 @@
 /* The world march stops once the transmittance is below this: what lies behind adds less
  * than this fraction of its own radiance. */
 #define MARCH_T_MIN 1e-6
+
+/* Process CPU seconds, every thread (benches: wall time on a shared machine says little). */
+static double cpu_now(void)
+{
+    struct timespec ts;
+    if (clock_gettime(CLOCK_PROCESS_CPUTIME_ID, &ts) != 0) return 0.0;
+    return (double)ts.tv_sec + 1e-9 * (double)ts.tv_nsec;
+}
 
 /* ---- camera ---------------------------------------------------------------------------- */
 
@@ -218,7 +227,13 @@ typedef struct probe_set {
 
 /* ---- the job ------------------------------------------------------------------------------ */
 
-#define SKY_RAYS 8u     /* sky rays per pixel, before the filter (sky_irradiance) */
+/* The sky's occlusion is estimated at every SKY_STRIDE-th pixel of every SKY_STRIDE-th row
+ * (SKY_RAYS rays each) and spread to the pixels between by compose_row's filter: occlusion by
+ * the scene's geometry varies slowly across a surface except at its edges, which the filter's
+ * tests keep. A quarter of the rays: the sky rays were about half the pixel time. */
+#define SKY_RAYS 8u     /* sky rays per estimate (sky_blocked) */
+#define SKY_STRIDE 2u
+#define SKY_FILTER 8u    /* the filter's half width (pixels), compose_row */
 
 typedef struct job {
     const brm_scene *s;
@@ -235,7 +250,10 @@ typedef struct job {
     float *fog, *plain;
     uint8_t *marker;
     struct gpix *g;         /* first pass, one per pixel */
-    double sky_dir[SKY_RAYS][2]; /* cos, sin of the sky rays' base azimuths */
+    uint32_t sky_rays;      /* rays per estimate */
+    uint32_t sky_stride;    /* estimates at pixels (x, y) with x, y multiples of this */
+    uint32_t sky_radius;    /* the filter's half width (pixels); 0: each pixel its own */
+    double (*sky_dir)[2];   /* sky_rays: cos, sin of the rays' base azimuths */
 } job;
 
 /* ∫ max(a·ω, 0)·max(b·ω, 0) dω over the sphere for unit a, b at angle theta: the overlap of two
@@ -248,49 +266,52 @@ static double cosine_overlap(double cos_theta)
     return (2.0 / 3.0) * ((BRM_PI - th) * c + sin(th));
 }
 
-/* Sky irradiance on a surface at q with normal n: the open sky's in closed form, minus what
- * geometry blocks, estimated by SKY_RAYS cosine-distributed rays over n's hemisphere.
- * Open sky (SPEC.md: L = H + (Z − H)·max(y, 0) + (G − H)·max(−y, 0)):
- *   E_open(n) = π·H + (Z − H)·I(n·y) + (G − H)·I(−n·y), I the clamped-cosine overlap above.
- * Blocked: with directions ω_k distributed as cos/π (Malley: uniform on the disk, lifted), each
- * carries π/N of ∫ L·cos dω, so E = E_open − (π/N)·Σ_blocked L(ω_k): exact for an open surface
- * and unbiased under occluders. The rays are a stratified set (equal-area rings in the disk,
- * the golden angle apart), rotated per pixel by a hashed offset; the noise left (a room lit
- * through its windows) is averaged away across pixels by compose_row's filter. */
-static brm_vec3 sky_irradiance(const job *j, brm_vec3 q, brm_vec3 n, uint32_t pixel)
+/* Sky irradiance on a surface with normal n open to the whole sky, in closed form (SPEC.md:
+ * L = H + (Z − H)·max(y, 0) + (G − H)·max(−y, 0)):
+ *   E_open(n) = π·H + (Z − H)·I(n·y) + (G − H)·I(−n·y), I the clamped-cosine overlap above. */
+static brm_vec3 sky_open(const brm_sky *sky, brm_vec3 n)
 {
-    const brm_sky *sky = &j->s->sky;
     brm_vec3 a = brm_sub(sky->zenith, sky->horizon), b = brm_sub(sky->ground, sky->horizon);
     double iu = cosine_overlap(n.y), id = cosine_overlap(-n.y);
-    brm_vec3 E = brm_add(brm_scale(sky->horizon, BRM_PI), brm_add(brm_scale(a, iu), brm_scale(b, id)));
-    if (j->bvh) {
-        brm_vec3 t1 = brm_norm(brm_cross(fabs(n.x) < 0.9 ? brm_v3(1, 0, 0) : brm_v3(0, 1, 0), n));
-        brm_vec3 t2 = brm_cross(n, t1);
-        /* A hashed offset per pixel: neighbouring pixels decorrelate (white noise, no pattern). */
-        uint64_t key = brm_hash64(0x70726576ull /* "prev" */ ^ (uint64_t)pixel * 0x9e3779b97f4a7c15ull);
-        double shift[2] = {brm_hash_unit(key), brm_hash_unit(key ^ 0x5851f42d4c957f2dull)};
-        /* Azimuths 2π·frac(k·golden) (j->sky_dir) turned by the pixel's offset. */
-        double cd = cos(2.0 * BRM_PI * shift[1]), sd = sin(2.0 * BRM_PI * shift[1]);
-        brm_vec3 blocked = brm_v3(0, 0, 0);
-        for (uint32_t k = 0; k < SKY_RAYS; k++) {
-            double u1 = ((double)k + shift[0]) / (double)SKY_RAYS;
-            double ca = j->sky_dir[k][0], sa = j->sky_dir[k][1];
-            double cp = ca * cd - sa * sd, sp = sa * cd + ca * sd;
-            double r = sqrt(u1);
-            brm_vec3 w = brm_add(brm_add(brm_scale(t1, r * cp), brm_scale(t2, r * sp)),
-                                 brm_scale(n, sqrt(fmax(0.0, 1.0 - u1))));
-            w = brm_norm(w);
-            if (brm_bvh_occluded(j->bvh, q, w, j->eps, HUGE_VAL)) blocked = brm_add(blocked, brm_sky_radiance(sky, w));
-        }
-        E = brm_madd(E, blocked, -BRM_PI / (double)SKY_RAYS);
+    return brm_add(brm_scale(sky->horizon, BRM_PI), brm_add(brm_scale(a, iu), brm_scale(b, id)));
+}
+
+/* What geometry takes from E_open at q (normal n), estimated by j->sky_rays cosine-distributed
+ * rays over n's hemisphere. With directions ω_k distributed as cos/π (Malley: uniform on the
+ * disk, lifted), each carries π/N of ∫ L·cos dω, so the blocked part is (π/N)·Σ_blocked L(ω_k)
+ * and E = E_open − blocked: exact for an open surface and unbiased under occluders. The rays
+ * are a stratified set (equal-area rings in the disk, the golden angle apart), rotated per
+ * pixel by a hashed offset; the noise left (a room lit through its windows) is averaged away
+ * across pixels by compose_row's filter. */
+static brm_vec3 sky_blocked(const job *j, brm_vec3 q, brm_vec3 n, uint32_t pixel)
+{
+    const brm_sky *sky = &j->s->sky;
+    brm_vec3 t1 = brm_norm(brm_cross(fabs(n.x) < 0.9 ? brm_v3(1, 0, 0) : brm_v3(0, 1, 0), n));
+    brm_vec3 t2 = brm_cross(n, t1);
+    /* A hashed offset per pixel: neighbouring pixels decorrelate (white noise, no pattern). */
+    uint64_t key = brm_hash64(0x70726576ull /* "prev" */ ^ (uint64_t)pixel * 0x9e3779b97f4a7c15ull);
+    double shift[2] = {brm_hash_unit(key), brm_hash_unit(key ^ 0x5851f42d4c957f2dull)};
+    /* Azimuths 2π·frac(k·golden) (j->sky_dir) turned by the pixel's offset. */
+    double cd = cos(2.0 * BRM_PI * shift[1]), sd = sin(2.0 * BRM_PI * shift[1]);
+    brm_vec3 blocked = brm_v3(0, 0, 0);
+    const uint32_t nr = j->sky_rays;
+    for (uint32_t k = 0; k < nr; k++) {
+        double u1 = ((double)k + shift[0]) / (double)nr;
+        double ca = j->sky_dir[k][0], sa = j->sky_dir[k][1];
+        double cp = ca * cd - sa * sd, sp = sa * cd + ca * sd;
+        double r = sqrt(u1);
+        brm_vec3 w = brm_add(brm_add(brm_scale(t1, r * cp), brm_scale(t2, r * sp)), brm_scale(n, sqrt(fmax(0.0, 1.0 - u1))));
+        w = brm_norm(w);
+        if (brm_bvh_occluded(j->bvh, q, w, j->eps, HUGE_VAL)) blocked = brm_add(blocked, brm_sky_radiance(sky, w));
     }
-    return brm_v3(fmax(E.x, 0.0), fmax(E.y, 0.0), fmax(E.z, 0.0));
+    return brm_scale(blocked, BRM_PI / (double)nr);
 }
 
 /* What the first pass keeps per pixel; the second filters the sky term and composes. */
 typedef struct gpix {
     float base[3];      /* radiance without the sky term (direct light; or sky, probe) */
-    float esky[3];      /* surfaces: the noisy sky irradiance estimate */
+    float eopen[3];     /* surfaces: the open sky's irradiance E_open(n) */
+    float blk[3];       /* surfaces at estimate pixels: the blocked part's estimate */
     float alb[3];       /* surfaces: albedo/π */
     float n[3];         /* surfaces: normal */
     float t;            /* surfaces: distance along the ray */
@@ -298,11 +319,10 @@ typedef struct gpix {
     float S[3], T;      /* fog along the ray */
 } gpix;
 
-/* Direct light at a surface point (irradiance from every light), and the sky irradiance. */
-static void light_surface(const job *j, brm_vec3 p, brm_vec3 n, uint32_t pixel, double e[3], brm_vec3 *sky)
+/* Direct light at a surface point q (irradiance from every light). */
+static void light_surface(const job *j, brm_vec3 q, brm_vec3 n, double e[3])
 {
     const brm_scene *s = j->s;
-    brm_vec3 q = brm_madd(p, n, j->eps);
     e[0] = e[1] = e[2] = 0.0;
     for (uint32_t l = 0; l < s->light_count; l++) {
         const brm_light *lt = &s->lights[l];
@@ -317,7 +337,11 @@ static void light_surface(const job *j, brm_vec3 p, brm_vec3 n, uint32_t pixel, 
         double a = E * cs * v * brm_shadow_transmittance(j->ss, l, q);
         e[0] += a * lt->color.x, e[1] += a * lt->color.y, e[2] += a * lt->color.z;
     }
-    *sky = s->sky.present ? sky_irradiance(j, q, n, pixel) : brm_v3(0, 0, 0);
+}
+
+static bool sky_sample_pixel(const job *j, uint32_t x, uint32_t y)
+{
+    return x % j->sky_stride == 0 && y % j->sky_stride == 0;
 }
 
 static void trace_row(void *ctx, uint32_t y, int worker)
@@ -325,6 +349,7 @@ static void trace_row(void *ctx, uint32_t y, int worker)
     (void)worker;
     job *j = ctx;
     const cam *c = &j->c;
+    const bool sky = j->s->sky.present;
     for (uint32_t x = 0; x < c->w; x++) {
         size_t px = (size_t)y * c->w + x;
         gpix *g = j->g + px;
@@ -352,13 +377,21 @@ static void trace_row(void *ctx, uint32_t y, int worker)
                 marker = fabs(brm_dot(n, c->right)) < 0.2 || fabs(brm_dot(n, c->up)) < 0.2;
             }
         } else if (hit_any) {
-            brm_vec3 p = brm_madd(c->pos, dir, hit.t), n = hit.normal, sky;
+            brm_vec3 p = brm_madd(c->pos, dir, hit.t), n = hit.normal;
+            brm_vec3 q = brm_madd(p, n, j->eps);
             brm_vec3 al = j->s->objects[hit.object].albedo;
             double e[3];
-            light_surface(j, p, n, (uint32_t)px, e, &sky);
+            light_surface(j, q, n, e);
             g->alb[0] = (float)(al.x / BRM_PI), g->alb[1] = (float)(al.y / BRM_PI), g->alb[2] = (float)(al.z / BRM_PI);
             L = brm_v3(al.x / BRM_PI * e[0], al.y / BRM_PI * e[1], al.z / BRM_PI * e[2]);
-            g->esky[0] = (float)sky.x, g->esky[1] = (float)sky.y, g->esky[2] = (float)sky.z;
+            if (sky) {
+                brm_vec3 eo = sky_open(&j->s->sky, n);
+                g->eopen[0] = (float)eo.x, g->eopen[1] = (float)eo.y, g->eopen[2] = (float)eo.z;
+                if (j->bvh && sky_sample_pixel(j, x, y)) {
+                    brm_vec3 b = sky_blocked(j, q, n, (uint32_t)px);
+                    g->blk[0] = (float)b.x, g->blk[1] = (float)b.y, g->blk[2] = (float)b.z;
+                }
+            }
             g->n[0] = (float)n.x, g->n[1] = (float)n.y, g->n[2] = (float)n.z;
             g->t = (float)hit.t;
             g->obj = hit.object;
@@ -380,36 +413,52 @@ static void trace_row(void *ctx, uint32_t y, int worker)
     }
 }
 
-/* The sky estimate is averaged over the pixels within SKY_FILTER of this one that show the same
- * object with nearly the same normal (cos > 0.95) and distance (within 3 %): a cross-bilateral
- * box filter, common practice, no source. It keeps shadow-free detail such as corners, since a
- * neighbour across an edge fails the normal or distance test, and changes nothing where the
- * estimate is exact (an open surface: equal values average to themselves). */
-#define SKY_FILTER 3
+/* The blocked-sky estimate is averaged over the estimate pixels within j->sky_radius of this
+ * one that show the same object with nearly the same normal (cos > 0.95) and distance (within
+ * 3 %): a cross-bilateral box filter, common practice, no source. It keeps shadow-free detail
+ * such as corners, since a neighbour across an edge fails the normal or distance test, and
+ * leaves an open surface exact (only the blocked part is filtered; each pixel keeps its own
+ * E_open). A pixel with no such estimate near (a sliver of an object) traces its own. */
 static void compose_row(void *ctx, uint32_t y, int worker)
 {
     (void)worker;
     job *j = ctx;
-    const uint32_t w = j->c.w, h = j->c.h;
+    const uint32_t w = j->c.w, h = j->c.h, R = j->sky_radius, st = j->sky_stride;
+    const bool sky = j->s->sky.present;
     for (uint32_t x = 0; x < w; x++) {
         size_t px = (size_t)y * w + x;
         const gpix *g = j->g + px;
         double L[3] = {g->base[0], g->base[1], g->base[2]};
-        if (g->obj != UINT32_MAX && j->s->sky.present) {
+        if (g->obj != UINT32_MAX && sky) {
             double acc[3] = {0, 0, 0};
             uint32_t cnt = 0;
-            uint32_t y0 = y > SKY_FILTER ? y - SKY_FILTER : 0, y1 = y + SKY_FILTER < h ? y + SKY_FILTER : h - 1;
-            uint32_t x0 = x > SKY_FILTER ? x - SKY_FILTER : 0, x1 = x + SKY_FILTER < w ? x + SKY_FILTER : w - 1;
-            for (uint32_t yy = y0; yy <= y1; yy++)
-                for (uint32_t xx = x0; xx <= x1; xx++) {
-                    const gpix *q = j->g + (size_t)yy * w + xx;
-                    if (q->obj != g->obj) continue;
-                    if (q->n[0] * g->n[0] + q->n[1] * g->n[1] + q->n[2] * g->n[2] < 0.95f) continue;
-                    if (fabsf(q->t - g->t) > 0.03f * g->t) continue;
-                    acc[0] += q->esky[0], acc[1] += q->esky[1], acc[2] += q->esky[2];
-                    cnt++;
+            if (j->bvh) {
+                /* The estimate rows and columns within [y − R, y + R] × [x − R, x + R]. */
+                uint32_t y0 = y > R ? y - R : 0, y1 = y + R < h ? y + R : h - 1;
+                uint32_t x0 = x > R ? x - R : 0, x1 = x + R < w ? x + R : w - 1;
+                y0 = (y0 + st - 1) / st * st, x0 = (x0 + st - 1) / st * st;
+                for (uint32_t yy = y0; yy <= y1; yy += st)
+                    for (uint32_t xx = x0; xx <= x1; xx += st) {
+                        const gpix *q = j->g + (size_t)yy * w + xx;
+                        if (q->obj != g->obj) continue;
+                        if (q->n[0] * g->n[0] + q->n[1] * g->n[1] + q->n[2] * g->n[2] < 0.95f) continue;
+                        if (fabsf(q->t - g->t) > 0.03f * g->t) continue;
+                        acc[0] += q->blk[0], acc[1] += q->blk[1], acc[2] += q->blk[2];
+                        cnt++;
+                    }
+                if (cnt == 0) {
+                    double u, v;
+                    brm_vec3 dir = cam_ray(&j->c, x, y, &u, &v), n = brm_v3(g->n[0], g->n[1], g->n[2]);
+                    brm_vec3 q = brm_madd(brm_madd(j->c.pos, dir, (double)g->t), n, j->eps);
+                    brm_vec3 b = sky_blocked(j, q, n, (uint32_t)px);
+                    acc[0] = b.x, acc[1] = b.y, acc[2] = b.z;
+                    cnt = 1;
                 }
-            for (int c = 0; c < 3; c++) L[c] += g->alb[c] * acc[c] / cnt;
+            }
+            for (int c = 0; c < 3; c++) {
+                double e = (double)g->eopen[c] - (cnt ? acc[c] / cnt : 0.0);
+                L[c] += g->alb[c] * (e > 0.0 ? e : 0.0);
+            }
         }
         float *pl = j->plain + 3 * px, *fg = j->fog + 3 * px;
         for (int c = 0; c < 3; c++) {
@@ -760,7 +809,7 @@ static void exposure_auto(brm_preview *p)
 brm_status brm_preview_render(const brm_scene *s, uint32_t t, const brv_volume *vol, const char *vol_path,
                               const brm_preview_opts *o, brm_preview *out, brm_diag *d)
 {
-    double t_start = brm_now();
+    double t_start = brm_now(), c_start = cpu_now();
     memset(out, 0, sizeof *out);
     BRM_CHECK(d, s && t < s->target_count && o, BRM_E_INTERNAL, "preview: no scene, target or options");
     const brm_target *tg = &s->targets[t];
@@ -813,15 +862,22 @@ brm_status brm_preview_render(const brm_scene *s, uint32_t t, const brv_volume *
     }
     j.fog = p.fog, j.plain = p.plain, j.marker = p.marker;
     p.setup_seconds = brm_now() - t_start;
-    for (uint32_t k = 0; k < SKY_RAYS; k++) {
+    p.setup_cpu_seconds = cpu_now() - c_start;
+    /* Sky estimates: SKY_RAYS at every SKY_STRIDE-th pixel, filtered over SKY_FILTER; or
+     * o->sky_rays at every pixel, each its own. */
+    j.sky_rays = o->sky_rays ? o->sky_rays : SKY_RAYS;
+    j.sky_stride = o->sky_rays ? 1 : SKY_STRIDE;
+    j.sky_radius = o->sky_rays ? 0 : SKY_FILTER;
+    j.sky_dir = malloc(sizeof *j.sky_dir * j.sky_rays);
+    j.g = malloc(sizeof *j.g * npx);
+    if (!j.g || !j.sky_dir) {
+        st = brm_diag_error(d, BRM_E_NOMEM, "preview: out of memory for a %u x %u picture", p.w, p.h);
+        goto fail;
+    }
+    for (uint32_t k = 0; k < j.sky_rays; k++) {
         double a = 0.61803398874989484820 * (double)k; /* the golden ratio's fraction */
         a = 2.0 * BRM_PI * (a - floor(a));
         j.sky_dir[k][0] = cos(a), j.sky_dir[k][1] = sin(a);
-    }
-    j.g = malloc(sizeof *j.g * npx);
-    if (!j.g) {
-        st = brm_diag_error(d, BRM_E_NOMEM, "preview: out of memory for a %u x %u picture", p.w, p.h);
-        goto fail;
     }
     if (brm_parallel_for(p.h, threads, trace_row, &j, &brm_interrupted) != p.h ||
         brm_parallel_for(p.h, threads, compose_row, &j, &brm_interrupted) != p.h) {
@@ -834,11 +890,13 @@ brm_status brm_preview_render(const brm_scene *s, uint32_t t, const brv_volume *
     else exposure_auto(&p);
     st = BRM_OK;
     p.seconds = brm_now() - t_start;
+    p.cpu_seconds = cpu_now() - c_start;
     *out = p;
     memset(&p, 0, sizeof p);
 fail:
     brm_preview_free(&p);
     free(j.g);
+    free(j.sky_dir);
     free(j.ff.bound);
     free(j.ff.st);
     free(j.wf.f);
