@@ -367,7 +367,7 @@ static int probe_invalid(const probe_ctx *c, brm_vec3 p, double back_fraction)
 
 /* Largest difference of the share of direct light arriving between the four nodes of a cell
  * that still interpolates. */
-#define SURF_TOL 0.05
+#define SURF_TOL 0.1
 
 enum { P_SH = 0, P_VALID = 27, P_EXT = 28, P_OFF = 29, PROBE_CH_MAX = 32 };
 
