@@ -1,6 +1,7 @@
 #include "view/tone.h"
 
 #include <math.h>
+#include <stddef.h>
 #include <stdlib.h>
 #include <string.h>
 
@@ -23,10 +24,32 @@ uint8_t brm_srgb_byte(double c) { return (uint8_t)lround(255.0 * brm_srgb_encode
 
 double brm_tone(double x) { return x > 0.0 ? (isinf(x) ? 1.0 : x / (1.0 + x)) : 0.0; }
 
-static int cmp_float(const void *a, const void *b)
+/* The k-th smallest of v[0..n) (k < n), moving elements: Hoare's selection with the median
+ * of three as pivot, linear on average (Hoare 1961, "Algorithm 65: Find"). The same element
+ * a full sort would put at k, in a tenth of the time for a million pixels. */
+static float select_kth(float *v, size_t n, size_t k)
 {
-    float x = *(const float *)a, y = *(const float *)b;
-    return (x > y) - (x < y);
+    ptrdiff_t lo = 0, hi = (ptrdiff_t)n - 1, kk = (ptrdiff_t)k;
+    while (hi > lo) {
+        ptrdiff_t mid = lo + (hi - lo) / 2;
+        float a = v[lo], b = v[mid], c = v[hi];
+        float piv = a < b ? (b < c ? b : (a < c ? c : a)) : (a < c ? a : (b < c ? c : b));
+        ptrdiff_t i = lo, j = hi;
+        while (i <= j) {
+            while (v[i] < piv) i++;
+            while (v[j] > piv) j--;
+            if (i <= j) {
+                float t = v[i];
+                v[i] = v[j], v[j] = t;
+                i++, j--;
+            }
+        }
+        /* Now v[lo..j] <= piv <= v[i..hi], and whatever lies between equals piv. */
+        if (kk <= j) hi = j;
+        else if (kk >= i) lo = i;
+        else break;
+    }
+    return v[k];
 }
 
 double brm_auto_exposure(const float *vals, size_t n)
@@ -40,8 +63,7 @@ double brm_auto_exposure(const float *vals, size_t n)
     size_t j = 0;
     for (size_t i = 0; i < n; i++)
         if (vals[i] > 0.0f && isfinite(vals[i])) tmp[j++] = vals[i];
-    qsort(tmp, m, sizeof *tmp, cmp_float);
-    double p = tmp[(size_t)floor(0.99 * (double)(m - 1))];
+    double p = select_kth(tmp, m, (size_t)floor(0.99 * (double)(m - 1)));
     free(tmp);
     /* t = kp/(1 + kp) = 0.8  ⇔  k = 4/p. */
     return 4.0 / p;

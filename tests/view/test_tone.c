@@ -2,6 +2,7 @@
 #include "check.h"
 
 #include <stdlib.h>
+#include <string.h>
 
 #include "view/tone.h"
 
@@ -63,6 +64,36 @@ static void auto_exposure_should_put_the_99th_percentile_at_0_8(void **state)
     assert_true(v[0] == 100.0f);   /* input untouched */
     float zeros[4] = {0, 0, -1, 0};
     assert_near(brm_auto_exposure(zeros, 4), 1.0, 0, 0);
+}
+
+static int cmp_float_test(const void *a, const void *b)
+{
+    float x = *(const float *)a, y = *(const float *)b;
+    return (x > y) - (x < y);
+}
+
+/* The percentile by selection is the element a full sort puts there: random sets of 1 to
+ * 3000 values, with many repeats (values drawn from a few levels), sorted runs and ties. */
+static void auto_exposure_should_pick_what_a_full_sort_picks(void **state)
+{
+    (void)state;
+    uint64_t r = 12345;
+    float *v = malloc(3000 * sizeof *v), *sorted = malloc(3000 * sizeof *sorted);
+    assert_true(v && sorted);
+    for (int trial = 0; trial < 300; trial++) {
+        size_t n = 1 + (size_t)(trial * 10 % 3000);
+        int levels = trial % 3 == 0 ? 3 : trial % 3 == 1 ? 50 : 1 << 20;
+        for (size_t i = 0; i < n; i++) {
+            r = r * 6364136223846793005ull + 1442695040888963407ull;
+            v[i] = trial % 7 == 0 ? (float)(i + 1) : (float)(1 + (r >> 33) % (uint64_t)levels);
+        }
+        memcpy(sorted, v, n * sizeof *v);
+        qsort(sorted, n, sizeof *sorted, cmp_float_test);
+        double want = 4.0 / sorted[(size_t)floor(0.99 * (double)(n - 1))];
+        assert_true(brm_auto_exposure(v, n) == want);
+    }
+    free(v);
+    free(sorted);
 }
 
 static void lightness_should_match_cie_l_star(void **state)
@@ -130,6 +161,7 @@ int main(void)
         cmocka_unit_test(srgb_encode_should_follow_iec_61966_2_1),
         cmocka_unit_test(tone_should_map_zero_to_zero_and_rise_monotonically),
         cmocka_unit_test(auto_exposure_should_put_the_99th_percentile_at_0_8),
+        cmocka_unit_test(auto_exposure_should_pick_what_a_full_sort_picks),
         cmocka_unit_test(lightness_should_match_cie_l_star),
         cmocka_unit_test(falsecolor_should_be_monotonic_in_lightness),
         cmocka_unit_test(diverging_should_be_neutral_at_zero_and_symmetric_in_lightness),
