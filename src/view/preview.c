@@ -250,6 +250,8 @@ typedef struct job {
     float *fog, *plain;
     uint8_t *marker;
     struct gpix *g;         /* first pass, one per pixel */
+    struct skyest *se;      /* the sky estimates, one per estimate pixel, row by row */
+    uint32_t se_w;          /* estimates per row: ceil(w / sky_stride) */
     uint32_t sky_rays;      /* rays per estimate */
     uint32_t sky_stride;    /* estimates at pixels (x, y) with x, y multiples of this */
     uint32_t sky_radius;    /* the filter's half width (pixels); 0: each pixel its own */
@@ -311,13 +313,21 @@ static brm_vec3 sky_blocked(const job *j, brm_vec3 q, brm_vec3 n, uint32_t pixel
 typedef struct gpix {
     float base[3];      /* radiance without the sky term (direct light; or sky, probe) */
     float eopen[3];     /* surfaces: the open sky's irradiance E_open(n) */
-    float blk[3];       /* surfaces at estimate pixels: the blocked part's estimate */
     float alb[3];       /* surfaces: albedo/π */
     float n[3];         /* surfaces: normal */
     float t;            /* surfaces: distance along the ray */
     uint32_t obj;       /* surfaces: object; UINT32_MAX otherwise */
     float S[3], T;      /* fog along the ray */
 } gpix;
+
+/* An estimate pixel's blocked sky and what the filter tests, packed (the filter reads up to
+ * 81 of them per pixel). */
+typedef struct skyest {
+    float blk[3];       /* the blocked part's estimate */
+    float n[3];
+    float t;
+    uint32_t obj;       /* UINT32_MAX: no surface (or no estimate) */
+} skyest;
 
 /* Direct light at a surface point q (irradiance from every light). */
 static void light_surface(const job *j, brm_vec3 q, brm_vec3 n, double e[3])
@@ -355,6 +365,7 @@ static void trace_row(void *ctx, uint32_t y, int worker)
         gpix *g = j->g + px;
         memset(g, 0, sizeof *g);
         g->obj = UINT32_MAX;
+        if (sky_sample_pixel(j, x, y)) j->se[(size_t)(y / j->sky_stride) * j->se_w + x / j->sky_stride].obj = UINT32_MAX;
         double u, v;
         brm_vec3 dir = cam_ray(c, x, y, &u, &v);
         brm_hit hit;
@@ -389,7 +400,11 @@ static void trace_row(void *ctx, uint32_t y, int worker)
                 g->eopen[0] = (float)eo.x, g->eopen[1] = (float)eo.y, g->eopen[2] = (float)eo.z;
                 if (j->bvh && sky_sample_pixel(j, x, y)) {
                     brm_vec3 b = sky_blocked(j, q, n, (uint32_t)px);
-                    g->blk[0] = (float)b.x, g->blk[1] = (float)b.y, g->blk[2] = (float)b.z;
+                    skyest *e = j->se + (size_t)(y / j->sky_stride) * j->se_w + x / j->sky_stride;
+                    e->blk[0] = (float)b.x, e->blk[1] = (float)b.y, e->blk[2] = (float)b.z;
+                    e->n[0] = (float)n.x, e->n[1] = (float)n.y, e->n[2] = (float)n.z;
+                    e->t = (float)hit.t;
+                    e->obj = hit.object;
                 }
             }
             g->n[0] = (float)n.x, g->n[1] = (float)n.y, g->n[2] = (float)n.z;
@@ -436,10 +451,10 @@ static void compose_row(void *ctx, uint32_t y, int worker)
                 /* The estimate rows and columns within [y − R, y + R] × [x − R, x + R]. */
                 uint32_t y0 = y > R ? y - R : 0, y1 = y + R < h ? y + R : h - 1;
                 uint32_t x0 = x > R ? x - R : 0, x1 = x + R < w ? x + R : w - 1;
-                y0 = (y0 + st - 1) / st * st, x0 = (x0 + st - 1) / st * st;
-                for (uint32_t yy = y0; yy <= y1; yy += st)
-                    for (uint32_t xx = x0; xx <= x1; xx += st) {
-                        const gpix *q = j->g + (size_t)yy * w + xx;
+                y0 = (y0 + st - 1) / st, x0 = (x0 + st - 1) / st, y1 /= st, x1 /= st;
+                for (uint32_t yy = y0; yy <= y1; yy++)
+                    for (uint32_t xx = x0; xx <= x1; xx++) {
+                        const skyest *q = j->se + (size_t)yy * j->se_w + xx;
                         if (q->obj != g->obj) continue;
                         if (q->n[0] * g->n[0] + q->n[1] * g->n[1] + q->n[2] * g->n[2] < 0.95f) continue;
                         if (fabsf(q->t - g->t) > 0.03f * g->t) continue;
@@ -870,7 +885,9 @@ brm_status brm_preview_render(const brm_scene *s, uint32_t t, const brv_volume *
     j.sky_radius = o->sky_rays ? 0 : SKY_FILTER;
     j.sky_dir = malloc(sizeof *j.sky_dir * j.sky_rays);
     j.g = malloc(sizeof *j.g * npx);
-    if (!j.g || !j.sky_dir) {
+    j.se_w = (p.w + j.sky_stride - 1) / j.sky_stride;
+    j.se = malloc(sizeof *j.se * j.se_w * ((p.h + j.sky_stride - 1) / j.sky_stride));
+    if (!j.g || !j.sky_dir || !j.se) {
         st = brm_diag_error(d, BRM_E_NOMEM, "preview: out of memory for a %u x %u picture", p.w, p.h);
         goto fail;
     }
@@ -896,6 +913,7 @@ brm_status brm_preview_render(const brm_scene *s, uint32_t t, const brv_volume *
 fail:
     brm_preview_free(&p);
     free(j.g);
+    free(j.se);
     free(j.sky_dir);
     free(j.ff.bound);
     free(j.ff.st);
