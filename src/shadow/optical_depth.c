@@ -200,7 +200,7 @@ static size_t block_bytes(shadow_view *v)
     size_t per = r1 * r1 * v->og_n[2] * 2 * sizeof(float) + (size_t)BRM_OD_REFINE * BRM_OD_REFINE * (v->og_n[2] - 1) +
                  sizeof(uint32_t) + (v->kind == BRM_VIEW_ORTHO ? 3 * r1 * r1 * sizeof(float) : 0);
     /* refine, blocks, corr, cell_clean */
-    return lat * sizeof(int32_t) + v->blk_cap * per + lat * sizeof(int32_t) + lat * sizeof(uint16_t);
+    return lat * sizeof(int32_t) + v->blk_cap * per + lat * sizeof(int32_t) + lat * 2 * sizeof(uint16_t);
 }
 
 /* Sets the light's reserved correction pool (any of its views may draw on it: a cube's faces
@@ -264,7 +264,7 @@ size_t brm_od_plan(const brm_scene *s, const brm_shadow_opts *o, const media_inf
         for (int a = 0; a < 3; a++) v->prefix_axis[a] = brm_vget(v->f, a) != 0.0;
         v->cone_tan = HUGE_VAL;
         size_t bytes = ((size_t)n[0] * n[1] * n[2] * 2 + (size_t)3 * n[0] * n[1]) * sizeof(float) +
-                       (size_t)n[0] * n[1] * sizeof(uint16_t) + (size_t)(n[0] - 1) * (n[1] - 1) * (n[2] - 1) +
+                       (size_t)n[0] * n[1] * 2 * sizeof(uint16_t) + (size_t)(n[0] - 1) * (n[1] - 1) * (n[2] - 1) +
                        block_bytes(v);
         return bytes + corr_bytes(ls);
     }
@@ -285,7 +285,7 @@ size_t brm_od_plan(const brm_scene *s, const brm_shadow_opts *o, const media_inf
         axis_set(v, 1, -tan_half, tan_half, nl, true);
         axis_set(v, 2, 0.0, rmax, nr, false);
         v->cone_tan = !ls->cube && l->type == BRM_LIGHT_SPOT ? tan_half : HUGE_VAL;
-        bytes += (size_t)nl * nl * nr * 2 * sizeof(float) + (size_t)nl * nl * sizeof(uint16_t) +
+        bytes += (size_t)nl * nl * nr * 2 * sizeof(float) + (size_t)nl * nl * 2 * sizeof(uint16_t) +
                  (size_t)(nl - 1) * (nl - 1) * (nr - 1) + block_bytes(v);
     }
     return bytes + corr_bytes(ls);
@@ -333,17 +333,19 @@ static void column_line(const shadow_view *v, double x, double y, brm_vec3 *o, b
     }
 }
 
-/* Depth parameter where the column's path leaves the fog bounds; −HUGE_VAL when it misses
- * them. */
-static double column_exit(const brm_scene *s, const shadow_view *v, double x, double y)
+/* Depth parameters where the column's path enters (*t_in) and leaves (*t_out) the fog
+ * bounds; −HUGE_VAL and HUGE_VAL when it misses them. */
+static void column_span(const brm_scene *s, const shadow_view *v, double x, double y, double *t_in, double *t_out)
 {
     brm_vec3 o, d;
     column_line(v, x, y, &o, &d);
     brm_vec3 inv = brm_v3(1.0 / d.x, 1.0 / d.y, 1.0 / d.z);
     double t0, t1;
-    if (!brm_ray_aabb(o, inv, s->fog_bounds, v->kind == BRM_VIEW_ORTHO ? -HUGE_VAL : 0.0, HUGE_VAL, &t0, &t1))
-        return -HUGE_VAL;
-    return t1;
+    if (!brm_ray_aabb(o, inv, s->fog_bounds, v->kind == BRM_VIEW_ORTHO ? -HUGE_VAL : 0.0, HUGE_VAL, &t0, &t1)) {
+        *t_in = HUGE_VAL, *t_out = -HUGE_VAL;
+        return;
+    }
+    *t_in = t0, *t_out = t1;
 }
 
 /* Why: a lookup at p reads the depth nodes either side of p in the four columns around p's
@@ -353,27 +355,38 @@ static double column_exit(const brm_scene *s, const shadow_view *v, double x, do
  * bounds' own corners that project into the cell; a node of margin covers what the samples
  * miss between them, and a miss beyond that only costs a march (the intervals past a
  * column's last node are flagged). Point lights of limited range inside a hall fill a third
- * to two thirds of their columns this way. */
+ * to two thirds of their columns this way. Orthographic columns start late the same way,
+ * a node before the smallest depth at which the bounds begin in the cells around them (a
+ * point light's start at the light). */
 void brm_od_plan_reach(const brm_scene *s, shadow_view *v)
 {
     const uint32_t n0 = v->og_n[0], n1 = v->og_n[1], nk = v->og_n[2], m0 = 2 * n0 - 1, m1 = 2 * n1 - 1;
     size_t lat = (size_t)(n0 - 1) * (n1 - 1);
-    double *e = malloc((size_t)m0 * m1 * sizeof *e), *reach = malloc(lat * sizeof *reach);
+    double *e = malloc((size_t)m0 * m1 * 2 * sizeof *e), *reach = malloc(lat * 2 * sizeof *reach);
     if (!e || !reach) { /* no memory for the plan: fill every node */
-        for (size_t c = 0; c < (size_t)n0 * n1; c++) v->od_last[c] = (uint16_t)(nk - 1);
+        for (size_t c = 0; c < (size_t)n0 * n1; c++) v->od_first[c] = 0, v->od_last[c] = (uint16_t)(nk - 1);
         free(e);
         free(reach);
         return;
     }
+    double *start = reach + lat; /* per cell: the smallest depth the bounds take in it */
     for (uint32_t j = 0; j < m1; j++)
-        for (uint32_t i = 0; i < m0; i++)
-            e[i + (size_t)m0 * j] = column_exit(s, v, v->og_lo[0] + v->og_step[0] * 0.5 * i, v->og_lo[1] + v->og_step[1] * 0.5 * j);
+        for (uint32_t i = 0; i < m0; i++) {
+            size_t q = i + (size_t)m0 * j;
+            column_span(s, v, v->og_lo[0] + v->og_step[0] * 0.5 * i, v->og_lo[1] + v->og_step[1] * 0.5 * j, &e[2 * q],
+                        &e[2 * q + 1]);
+        }
     for (uint32_t cj = 0; cj + 1 < n1; cj++)
         for (uint32_t ci = 0; ci + 1 < n0; ci++) {
-            double r = -HUGE_VAL;
+            double r = -HUGE_VAL, r0 = HUGE_VAL;
             for (uint32_t b = 0; b <= 2; b++)
-                for (uint32_t a = 0; a <= 2; a++) r = fmax(r, e[2 * ci + a + (size_t)m0 * (2 * cj + b)]);
+                for (uint32_t a = 0; a <= 2; a++) {
+                    size_t q = 2 * ci + a + (size_t)m0 * (2 * cj + b);
+                    r = fmax(r, e[2 * q + 1]);
+                    r0 = fmin(r0, e[2 * q]);
+                }
             reach[ci + (size_t)(n0 - 1) * cj] = r;
+            start[ci + (size_t)(n0 - 1) * cj] = r0;
         }
     brm_vec3 bc[8];
     box_corners(s->fog_bounds, bc);
@@ -395,6 +408,7 @@ void brm_od_plan_reach(const brm_scene *s, shadow_view *v)
                 if (cx >= 0.0 && cx < n0 - 1.0 && cy >= 0.0 && cy < n1 - 1.0) {
                     size_t c = (size_t)cx + (size_t)(n0 - 1) * (size_t)cy;
                     reach[c] = fmax(reach[c], t);
+                    start[c] = fmin(start[c], t);
                 }
             }
     }
@@ -406,42 +420,61 @@ void brm_od_plan_reach(const brm_scene *s, shadow_view *v)
                 if (nx * nx + ny * ny > v->cone_tan * v->cone_tan) reach[ci + (size_t)(n0 - 1) * cj] = -HUGE_VAL;
             }
     memset(v->od_last, 0, (size_t)n0 * n1 * sizeof *v->od_last);
+    for (size_t c = 0; c < (size_t)n0 * n1; c++) v->od_first[c] = UINT16_MAX;
     for (uint32_t cj = 0; cj + 1 < n1; cj++)
         for (uint32_t ci = 0; ci + 1 < n0; ci++) {
-            double r = reach[ci + (size_t)(n0 - 1) * cj];
-            double k = r == -HUGE_VAL ? 0.0 : floor((r - v->og_lo[2]) / v->og_step[2]) + 2.0;
+            double r = reach[ci + (size_t)(n0 - 1) * cj], r0 = start[ci + (size_t)(n0 - 1) * cj];
+            if (r == -HUGE_VAL) continue; /* the bounds miss the cell: nothing to fill for it */
+            double k = floor((r - v->og_lo[2]) * v->og_inv[2]) + 2.0;
+            double k0 = v->kind == BRM_VIEW_ORTHO ? floor((r0 - v->og_lo[2]) * v->og_inv[2]) - 1.0 : 0.0;
             uint16_t need = (uint16_t)(k < 0.0 ? 0.0 : k > nk - 1.0 ? nk - 1.0 : k);
+            uint16_t need0 = (uint16_t)(k0 < 0.0 ? 0.0 : k0 > nk - 1.0 ? nk - 1.0 : k0);
             size_t c00 = ci + (size_t)n0 * cj, cn[4] = {c00, c00 + 1, c00 + n0, c00 + n0 + 1};
-            for (int q = 0; q < 4; q++)
+            for (int q = 0; q < 4; q++) {
                 if (v->od_last[cn[q]] < need) v->od_last[cn[q]] = need;
+                if (v->od_first[cn[q]] > need0) v->od_first[cn[q]] = need0;
+            }
         }
+    for (size_t c = 0; c < (size_t)n0 * n1; c++) /* columns no cell needs: node 0 only */
+        if (v->od_first[c] > v->od_last[c]) v->od_first[c] = v->od_last[c] = 0;
     free(e);
     free(reach);
 }
 
-/* Intervals of lateral cell (ci, cj) whose nodes are filled in all four of its columns. */
-static uint32_t cell_valid(const shadow_view *v, uint32_t ci, uint32_t cj)
+/* The depth intervals [*lo, *hi) of lateral cell (ci, cj) whose nodes are filled in all four
+ * of its columns (empty when *lo ≥ *hi). */
+static void cell_range(const shadow_view *v, uint32_t ci, uint32_t cj, uint32_t *lo, uint32_t *hi)
 {
-    size_t n0 = v->og_n[0], c00 = ci + n0 * cj;
-    uint32_t m = v->od_last[c00];
-    if (v->od_last[c00 + 1] < m) m = v->od_last[c00 + 1];
-    if (v->od_last[c00 + n0] < m) m = v->od_last[c00 + n0];
-    if (v->od_last[c00 + n0 + 1] < m) m = v->od_last[c00 + n0 + 1];
-    return m;
+    size_t n0 = v->og_n[0], c00 = ci + n0 * cj, cn[4] = {c00, c00 + 1, c00 + n0, c00 + n0 + 1};
+    uint32_t a = 0, b = UINT32_MAX;
+    for (int q = 0; q < 4; q++) {
+        if (v->od_first[cn[q]] > a) a = v->od_first[cn[q]];
+        if (v->od_last[cn[q]] < b) b = v->od_last[cn[q]];
+    }
+    *lo = a, *hi = b;
 }
 
-/* One column of the grid at lateral (x, y): G and sigma~ at depth nodes 0..last into col (0
- * after it), and for ortho views P_a for the faces marked in need (0 for the others) into
- * pre[3]. */
+/* Flags the intervals outside [lo, hi) of one cell's row of flags as unfilled. */
+static void flag_unfilled(uint8_t *bad, uint32_t nk, uint32_t lo, uint32_t hi)
+{
+    for (uint32_t k = 0; k + 1 < nk; k++)
+        if (k < lo || k >= hi) bad[k] = BRM_OD_UNFILLED;
+}
+
+/* One column of the grid at lateral (x, y): G and sigma~ at depth nodes first..last into col
+ * (0 outside), G counted from node first, and for ortho views P_a for the faces marked in
+ * need (0 for the others) into pre[3], up to node first. (Where a column starts changes G
+ * and every P_a by one constant of opposite sign: P_a + G, all lookups and checks read, is
+ * the same, and so is its interpolation, which is linear in the columns' values.) */
 static void fill_column(const brm_scene *s, const media_info *mi, const shadow_view *v, double x, double y,
-                        const bool need[3], uint32_t last, float *col, float pre[3])
+                        const bool need[3], uint32_t first, uint32_t last, float *col, float pre[3])
 {
     uint32_t nk = v->og_n[2];
     double h = fmax(mi->feature / 2.0, 1.0001 * v->og_step[2]);
     brm_vec3 diag = brm_sub(s->fog_bounds.max, s->fog_bounds.min);
     double reach = 2.0 * brm_len(diag) + (double)nk * v->og_step[2];
     brm_vec3 o, d;
-    double t = v->og_lo[2];
+    double t = v->og_lo[2] + v->og_step[2] * (double)first;
     if (v->kind == BRM_VIEW_ORTHO) {
         o = brm_add(brm_scale(v->u, x), brm_scale(v->v, y)); /* f·o = 0, so f·(o + t f) = t */
         d = v->f;
@@ -465,11 +498,11 @@ static void fill_column(const brm_scene *s, const media_info *mi, const shadow_v
     uint32_t nc = line_cuts(s, mi, o, d, t, tend, true, cut), ci = 0;
     double g = 0.0, sig = sigma_cont(s, mi, brm_madd(o, d, t));
     for (uint32_t k = 0; k < nk; k++) {
-        if (k > last) {
+        if (k < first || k > last) {
             col[2 * k] = col[2 * k + 1] = 0.0f;
             continue;
         }
-        if (k > 0) {
+        if (k > first) {
             double t1 = v->og_lo[2] + v->og_step[2] * (double)k;
             bool clean = !(ci < nc && cut[ci] < t1) && t1 - t <= h;
             while (ci < nc && cut[ci] < t1) ci++;
@@ -504,7 +537,7 @@ void brm_od_fill_row(const brm_scene *s, const media_info *mi, shadow_view *v, u
                     if (e >= 0) need[e] = true;
                 }
         float pre[3];
-        fill_column(s, mi, v, x, y, need, v->od_last[cell], v->od + 2 * (size_t)nk * cell, pre);
+        fill_column(s, mi, v, x, y, need, v->od_first[cell], v->od_last[cell], v->od + 2 * (size_t)nk * cell, pre);
         if (v->kind == BRM_VIEW_ORTHO)
             for (int a = 0; a < 3; a++) v->prefix[a * plane + cell] = pre[a];
     }
@@ -526,17 +559,32 @@ void brm_od_check_row(const brm_scene *s, const media_info *mi, shadow_view *v, 
             if (e >= 0) need[e] = true;
         }
         float pre[3];
-        uint32_t valid = cell_valid(v, i, j);
-        fill_column(s, mi, v, x, y, need, valid, scratch, pre);
+        uint32_t lo, valid;
+        cell_range(v, i, j, &lo, &valid);
+        uint8_t *bad = v->od_bad + ((size_t)i + (size_t)(n0 - 1) * j) * (nk - 1);
+        if (v->kind == BRM_VIEW_ORTHO && e < 0) {
+            /* The centre path misses the bounds (the cell is on the edge of their shadow):
+             * compare P + G with the face the corners' paths enter through (the columns'
+             * G alone start at different nodes), or march when none of them enters. */
+            for (int q = 0; q < 4 && e < 0; q++)
+                e = entry_face(s, brm_add(brm_scale(v->u, x + (q & 1 ? 0.5 : -0.5) * v->og_step[0]),
+                                          brm_scale(v->v, y + (q >> 1 ? 0.5 : -0.5) * v->og_step[1])),
+                               v->f);
+            if (e >= 0) need[e] = true;
+        }
+        if (lo >= valid || (v->kind == BRM_VIEW_ORTHO && e < 0)) {
+            flag_unfilled(bad, nk, 0, 0);
+            continue;
+        }
+        fill_column(s, mi, v, x, y, need, lo, valid, scratch, pre);
         size_t c00 = (size_t)i + (size_t)n0 * j, c[4] = {c00, c00 + 1, c00 + n0, c00 + n0 + 1};
         double p_int = 0.0, p_ex = 0.0;
         if (e >= 0) {
             for (int q = 0; q < 4; q++) p_int += 0.25 * v->prefix[e * plane + c[q]];
             p_ex = pre[e];
         }
-        uint8_t *bad = v->od_bad + ((size_t)i + (size_t)(n0 - 1) * j) * (nk - 1);
         for (uint32_t k = 0; k + 1 < nk; k++) bad[k] = 0;
-        for (uint32_t k = 0; k <= valid; k++) {
+        for (uint32_t k = lo; k <= valid; k++) {
             double g_int = 0.0;
             for (int q = 0; q < 4; q++) g_int += 0.25 * v->od[2 * ((size_t)nk * c[q] + k)];
             double err = fabs((g_int + p_int) - ((double)scratch[2 * k] + p_ex));
@@ -545,7 +593,7 @@ void brm_od_check_row(const brm_scene *s, const media_info *mi, shadow_view *v, 
                 if (k + 1 < nk) bad[k] = 1;
             }
         }
-        for (uint32_t k = valid; k + 1 < nk; k++) bad[k] = BRM_OD_UNFILLED;
+        flag_unfilled(bad, nk, lo, valid);
     }
 }
 
@@ -580,13 +628,14 @@ void brm_od_fill_block(const brm_scene *s, const media_info *mi, shadow_view *v,
                 if (e >= 0) need[e] = true;
             }
     float *od = v->blk_od + 2 * (size_t)nk * R1 * R1 * b;
-    uint32_t valid = cell_valid(v, ci, cj);
+    uint32_t lo, valid; /* every column of the block starts at node lo */
+    cell_range(v, ci, cj, &lo, &valid);
     for (uint32_t bj = 0; bj <= R; bj++)
         for (uint32_t bi = 0; bi <= R; bi++) {
             double x = v->og_lo[0] + v->og_step[0] * ((double)ci + (double)bi / R);
             double y = v->og_lo[1] + v->og_step[1] * ((double)cj + (double)bj / R);
             float pre[3];
-            fill_column(s, mi, v, x, y, need, valid, od + 2 * (size_t)nk * (bi + R1 * bj), pre);
+            fill_column(s, mi, v, x, y, need, lo, valid, od + 2 * (size_t)nk * (bi + R1 * bj), pre);
             if (v->kind == BRM_VIEW_ORTHO)
                 for (int a = 0; a < 3; a++) v->blk_pre[((size_t)b * 3 + a) * R1 * R1 + bi + R1 * bj] = pre[a];
         }
@@ -602,7 +651,7 @@ void brm_od_fill_block(const brm_scene *s, const media_info *mi, shadow_view *v,
                 if (e >= 0) nd[e] = true;
             }
             float pre[3];
-            fill_column(s, mi, v, x, y, nd, valid, scratch, pre);
+            fill_column(s, mi, v, x, y, nd, lo, valid, scratch, pre);
             size_t q0 = si + R1 * sj, q[4] = {q0, q0 + 1, q0 + R1, q0 + R1 + 1};
             double p_int = 0.0, p_ex = 0.0;
             if (e >= 0) {
@@ -611,7 +660,7 @@ void brm_od_fill_block(const brm_scene *s, const media_info *mi, shadow_view *v,
             }
             uint8_t *bad = v->blk_bad + ((size_t)b * R * R + si + R * sj) * (nk - 1);
             memset(bad, 0, nk - 1);
-            for (uint32_t k = 0; k <= valid; k++) {
+            for (uint32_t k = lo; k <= valid; k++) {
                 double g_int = 0.0;
                 for (int m = 0; m < 4; m++) g_int += 0.25 * od[2 * ((size_t)nk * q[m] + k)];
                 if (fabs((g_int + p_int) - ((double)scratch[2 * k] + p_ex)) > BRM_OD_CHECK_TAU) {
@@ -619,7 +668,7 @@ void brm_od_fill_block(const brm_scene *s, const media_info *mi, shadow_view *v,
                     if (k + 1 < nk) bad[k] = 1;
                 }
             }
-            for (uint32_t k = valid; k + 1 < nk; k++) bad[k] = BRM_OD_UNFILLED;
+            flag_unfilled(bad, nk, lo, valid);
         }
 }
 
@@ -695,7 +744,8 @@ void brm_od_fill_correction(const brm_scene *s, const media_info *mi, shadow_vie
     size_t cn[4] = {c00, c00 + 1, c00 + n0, c00 + n0 + 1};
     float *dg = v->corr_dg + (size_t)c * nk * NP, *fail = scratch + 2 * (size_t)nk;
     uint8_t *on = v->corr_on + (size_t)c * (nk - 1);
-    uint32_t valid = cell_valid(v, ci, cj);
+    uint32_t lo, valid;
+    cell_range(v, ci, cj, &lo, &valid);
     memset(on, 0, nk - 1);
     for (uint32_t k = 0; k < nk * NP; k++) dg[k] = 0.0f;
     for (uint32_t k = 0; k < nk; k++) fail[k] = 0.0f;
@@ -715,7 +765,7 @@ void brm_od_fill_correction(const brm_scene *s, const media_info *mi, shadow_vie
             return;
         }
         float pre[3];
-        fill_column(s, mi, v, x, y, need, valid, scratch, pre);
+        fill_column(s, mi, v, x, y, need, lo, valid, scratch, pre);
         double wb[4] = {(1.0 - px) * (1.0 - py), px * (1.0 - py), (1.0 - px) * py, px * py}, wc[BRM_OD_CORR_PTS];
         corr_weights(px, py, wc);
         double p_int = 0.0, p_ex = 0.0;
@@ -723,7 +773,7 @@ void brm_od_fill_correction(const brm_scene *s, const media_info *mi, shadow_vie
             for (int m = 0; m < 4; m++) p_int += wb[m] * v->prefix[e * plane + cn[m]];
             p_ex = pre[e];
         }
-        for (uint32_t k = 0; k <= valid; k++) {
+        for (uint32_t k = lo; k <= valid; k++) {
             double g_int = 0.0;
             for (int m = 0; m < 4; m++) g_int += wb[m] * v->od[2 * ((size_t)nk * cn[m] + k)];
             double miss = ((double)scratch[2 * k] + p_ex) - (g_int + p_int);
@@ -749,17 +799,20 @@ void brm_od_finish(shadow_view *v)
 {
     const uint32_t nk = v->og_n[2];
     size_t lat = (size_t)(v->og_n[0] - 1) * (v->og_n[1] - 1);
-    v->cell_clean = malloc(lat * sizeof *v->cell_clean);
+    v->cell_clean = malloc(lat * 2 * sizeof *v->cell_clean);
     if (!v->cell_clean) return;
     for (size_t c = 0; c < lat; c++) {
-        uint32_t k = 0;
+        uint32_t k0 = 0, k = 0;
         if (v->refine[c] < 0) {
             const uint8_t *bad = v->od_bad + c * (nk - 1);
             int32_t cr = v->corr[c];
             const uint8_t *on = cr >= 0 ? v->corr_on + (size_t)cr * (nk - 1) : NULL;
+            while (k0 + 1 < nk && bad[k0] == BRM_OD_UNFILLED) k0++;
+            k = k0;
             while (k + 1 < nk && !bad[k] && !(on && on[k])) k++;
         }
-        v->cell_clean[c] = (uint16_t)k;
+        v->cell_clean[2 * c] = (uint16_t)k0;
+        v->cell_clean[2 * c + 1] = (uint16_t)k;
     }
 }
 
@@ -781,7 +834,7 @@ static int grid_eval(const shadow_view *v, double x, double y, double z, int fac
     }
     const uint32_t nk = v->og_n[2], n0 = v->og_n[0];
     size_t lat = c[0] + (size_t)(n0 - 1) * c[1];
-    if (v->cell_clean && c[2] < v->cell_clean[lat]) {
+    if (v->cell_clean && c[2] >= v->cell_clean[2 * lat] && c[2] < v->cell_clean[2 * lat + 1]) {
         /* The common case: the four base columns, nothing else to read. */
         double t = w[2], t2 = t * t, t3 = t2 * t, hz = v->og_step[2];
         double h00 = 2 * t3 - 3 * t2 + 1, h10 = (t3 - 2 * t2 + t) * hz, h01 = -2 * t3 + 3 * t2, h11 = (t3 - t2) * hz;

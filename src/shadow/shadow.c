@@ -265,8 +265,9 @@ brm_status brm_shadows_build(const brm_scene *s, const brm_shadow_opts *o, brm_s
                 v->blk_cell = malloc((size_t)v->blk_cap * sizeof *v->blk_cell);
                 v->corr = malloc(lat * sizeof *v->corr);
                 v->od_last = malloc((size_t)v->og_n[0] * v->og_n[1] * sizeof *v->od_last);
+                v->od_first = malloc((size_t)v->og_n[0] * v->og_n[1] * sizeof *v->od_first);
                 (void)r1;
-                if (!v->refine || !v->blk_cell || !v->corr || !v->od_last) {
+                if (!v->refine || !v->blk_cell || !v->corr || !v->od_last || !v->od_first) {
                     st = brm_diag_error(d, BRM_E_NOMEM, "shadows: out of memory for %s's optical-depth grid",
                                         s->lights[l].json_path);
                     goto fail;
@@ -424,6 +425,7 @@ void brm_shadows_free(brm_shadow_set *ss)
             free(ss->lights[l].views[k].prefix);
             free(ss->lights[l].views[k].od_bad);
             free(ss->lights[l].views[k].od_last);
+            free(ss->lights[l].views[k].od_first);
             free(ss->lights[l].views[k].cell_clean);
             free(ss->lights[l].views[k].refine);
             free(ss->lights[l].views[k].blk_cell);

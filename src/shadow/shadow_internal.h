@@ -89,6 +89,7 @@ typedef struct shadow_view {
      * the intervals they bound are flagged BRM_OD_UNFILLED (a point found there anyway
      * marches, exactly as in a flagged cell) */
     uint16_t *od_last;          /* og_n[0] · og_n[1] */
+    uint16_t *od_first;         /* per column: the first depth node filled (ortho; 0 persp) */
     double cone_tan;            /* a one-view spot: tan of its outer half-angle (cells wholly
                                    outside the cone are left unfilled: the kernel never asks
                                    there); HUGE_VAL otherwise */
@@ -115,11 +116,11 @@ typedef struct shadow_view {
     int8_t *corr_face;          /* ortho: the entry face the correction was taken with (−1 persp) */
     float *corr_dg;             /* corr_count · og_n[2] · BRM_OD_CORR_PTS, the points fastest */
     uint8_t *corr_on;           /* corr_count · (og_n[2] − 1): 1 where the correction applies */
-    /* Per lateral cell, set once the build is done (brm_od_finish): how many of its depth
-     * intervals, from the light's side, need nothing but the four base columns (no block,
-     * no correction, no flag), so most lookups read this and the columns alone; NULL when
-     * out of memory (every lookup takes the general path) */
-    uint16_t *cell_clean;       /* (og_n[0] − 1) · (og_n[1] − 1) */
+    /* Per lateral cell, set once the build is done (brm_od_finish): the run [lo, hi) of
+     * its depth intervals, from its first filled one, that need nothing but the four base
+     * columns (no block, no correction, no flag), so most lookups read this and the
+     * columns alone; NULL when out of memory (every lookup takes the general path) */
+    uint16_t *cell_clean;       /* 2 · (og_n[0] − 1) · (og_n[1] − 1): lo, hi */
 } shadow_view;
 /* The grids store G = ∫ sigma~ along the path from the first depth node (ortho) or from the
  * light (persp), where sigma~(q) = sigma_t(q clamped into the fog bounds): sigma_t continued
@@ -211,8 +212,8 @@ double brm_optical_depth_segment(const brm_scene *s, const media_info *mi, brm_v
 /* Plans a light's optical-depth grids (dimensions only), sets has_od. Returns bytes. */
 size_t brm_od_plan(const brm_scene *s, const brm_shadow_opts *o, const media_info *mi, light_shadow *ls,
                    const brm_light *l);
-/* Sets v->od_last (allocated by the caller) from where the paths of each lateral cell leave
- * the fog bounds. */
+/* Sets v->od_first and v->od_last (allocated by the caller) from where the paths of each
+ * lateral cell enter (ortho) and leave the fog bounds. */
 void brm_od_plan_reach(const brm_scene *s, shadow_view *v);
 /* Fills row j of view v's grid. */
 void brm_od_fill_row(const brm_scene *s, const media_info *mi, shadow_view *v, uint32_t j);
