@@ -270,9 +270,9 @@ static int demo_bench(int threads, bool frustum)
         return 1;
     }
     double cpu = cpu_seconds() - c0;
-    printf("demo %s %ux%ux%u, %u lights: build (%d thread%s) %.3f s wall, %.3f s CPU, %.1f MiB\n",
+    printf("demo %s %ux%ux%u, %u lights: build (%d thread%s) %.3f s wall, %.3f s CPU, %.1f MiB (estimate %.1f MiB)\n",
            frustum ? "frustum" : "world", g.n[0], g.n[1], g.n[2], s->light_count, threads, threads > 1 ? "s" : "",
-           brm_shadows_build_seconds(ss), cpu, brm_shadows_bytes(ss) / 1048576.0);
+           brm_shadows_build_seconds(ss), cpu, brm_shadows_bytes(ss) / 1048576.0, brm_shadows_memory(s, &o) / 1048576.0);
     printf("  phases (wall s):");
     for (int k = 0; k < BRM_SHADOW_PHASES; k++) printf(" %s %.3f%s", brm_shadow_phase_names[k], ss->phase_seconds[k],
                                                        k + 1 < BRM_SHADOW_PHASES ? "," : "\n");
