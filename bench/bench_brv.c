@@ -254,11 +254,13 @@ static void decode_bench(const char *label, const vol *f, int is_f16)
     brv_free(v);
 }
 
+/* 1M trilinear samples, one thread: one call a point (cold: a new sampler; then warm) and the
+ * batch call (cold: a new sampler; then warm), REPS_RA rounds, medians of wall and CPU time. */
+enum { REPS_RA = 3 };
 static void random_access(const vol *f, uint32_t cache, const char *pattern)
 {
     brv_volume *v;
-    brv_sampler *s;
-    if (brv_open_memory(f->bytes, f->size, NULL, &v) != BRV_OK || brv_sampler_create(v, cache, &s) != BRV_OK) exit(1);
+    if (brv_open_memory(f->bytes, f->size, NULL, &v) != BRV_OK) exit(1);
     srand(1);
     enum { M = 1000000 };
     double *pts = malloc(sizeof(double) * 3 * M);
@@ -273,33 +275,46 @@ static void random_access(const vol *f, uint32_t cache, const char *pattern)
             pts[3 * i + 2] = oz;
         }
     }
-    float o[4];
-    double dt[2], sum = 0;
-    for (int pass = 0; pass < 2; pass++) { /* cold (empty cache), then warm */
-        double t0 = now();
-        for (int i = 0; i < M; i++) {
-            if (brv_sample_world(s, pts + 3 * i, o) != BRV_OK) exit(1);
-            sum += o[0];
+    uint32_t nc = brv_grid(v)->channel_count;
+    float o[BRV_MAX_CHANNELS], *batch = malloc(sizeof(float) * nc * M);
+    double wall[4][REPS_RA], cpu[4][REPS_RA], sum = 0, bsum = 0;
+    size_t mem = 0;
+    for (int rep = 0; rep < REPS_RA; rep++) {
+        for (int kind = 0; kind < 2; kind++) { /* 0: one call a point, 1: batch */
+            brv_sampler *s;
+            if (brv_sampler_create(v, cache, &s) != BRV_OK) exit(1);
+            mem = brv_sampler_memory(s);
+            for (int pass = 0; pass < 2; pass++) { /* cold (empty cache), then warm */
+                double c0 = cpu_now(), t0 = now();
+                if (kind == 0) {
+                    for (int i = 0; i < M; i++) {
+                        if (brv_sample_world(s, pts + 3 * i, o) != BRV_OK) exit(1);
+                        sum += o[0];
+                    }
+                } else {
+                    if (brv_sample_world_batch(s, M, pts, batch) != BRV_OK) exit(1);
+                    for (int i = 0; i < M; i++) bsum += batch[(size_t)nc * i];
+                }
+                wall[2 * kind + pass][rep] = now() - t0;
+                cpu[2 * kind + pass][rep] = cpu_now() - c0;
+            }
+            brv_sampler_free(s);
         }
-        dt[pass] = now() - t0;
     }
-    float *batch = malloc(sizeof(float) * 4 * M);
-    brv_sampler *fresh;
-    if (brv_sampler_create(v, cache, &fresh) != BRV_OK) exit(1);
-    double t1 = now();
-    if (brv_sample_world_batch(fresh, M, pts, batch) != BRV_OK) exit(1);
-    double tbc = now() - t1;
-    brv_sampler_free(fresh);
-    double t0 = now();
-    if (brv_sample_world_batch(s, M, pts, batch) != BRV_OK) exit(1);
-    double tb = now() - t0, bsum = 0;
-    for (int i = 0; i < M; i++) bsum += batch[4 * i];
+    double mw[4], mc[4];
+    for (int k = 0; k < 4; k++) {
+        qsort(wall[k], REPS_RA, sizeof(double), cmp_double);
+        qsort(cpu[k], REPS_RA, sizeof(double), cmp_double);
+        mw[k] = wall[k][REPS_RA / 2];
+        mc[k] = cpu[k][REPS_RA / 2];
+    }
+    printf("  1M %-6s samples, cache %4u bricks (%6.1f MiB), medians of %d (cpu s / wall s):\n"
+           "     one call a point: cold %.3f / %.3f, warm %.3f / %.3f;  batch: cold %.3f / %.3f, warm %.3f / %.3f"
+           "  (checksums %.6g, %.6g)\n",
+           pattern, cache, mem / 1048576.0, REPS_RA, mc[0], mw[0], mc[1], mw[1], mc[2], mw[2], mc[3], mw[3],
+           sum / (2 * REPS_RA), bsum / (2 * REPS_RA));
     free(batch);
-    printf("  1M %-6s samples, cache %4u bricks (%6.1f MiB): one call a point %.3f s cold, %.3f s warm; batch call "
-           "%.3f s cold, %.3f s warm (checksums %.6g, %.6g)\n",
-           pattern, cache, cache * brv_brick_size(v) * 4.0 / (1 << 20), dt[0], dt[1], tbc, tb, sum / 2, bsum);
     free(pts);
-    brv_sampler_free(s);
     brv_free(v);
 }
 

@@ -334,10 +334,17 @@ BRV_API brv_result brv_verify(const brv_volume *v, uint32_t *brick);
 /* Random access with a cache of cache_bricks decoded bricks (0 = 64; at most brick_count).
  * With room for every brick each has its slot; otherwise the cache is two-way set-associative
  * (least recently used out) over a multiplicative hash of the brick index.
- * Memory: cache_bricks·brv_brick_size(v)·4 bytes (16³ cells and 4 channels: 64 KiB a brick,
- * so 64 bricks take 4 MiB and a whole 256³ volume 256 MiB). One thread at a time per sampler;
- * make one per thread. Allocates with malloc. */
+ * Memory (brv_sampler_memory tells it exactly): cache_bricks·brv_brick_size(v)·e bytes, e = 2
+ * when every channel is f16 (the stored halves are kept, with each brick's scale apart; the
+ * samples are the same bits as from floats) and 4 otherwise, plus about 64 bytes a brick; and
+ * one decoder (one brick's payload and scratch). 16³ cells and 4 f16 channels: 32 KiB a
+ * brick, so the default 64 bricks take 2 MiB and a whole 256³ volume (4096 bricks) 128 MiB.
+ * On Linux a cache of 16 MiB or more is marked for transparent huge pages (madvise, a hint).
+ * One thread at a time per sampler; make one per thread. Allocates through the volume's
+ * allocator. */
 BRV_API brv_result brv_sampler_create(const brv_volume *v, uint32_t cache_bricks, brv_sampler **out);
+/* Bytes the sampler holds for its cache (slots, their data and scales); 0 for NULL. */
+BRV_API size_t brv_sampler_memory(const brv_sampler *s);
 /* Frees a sampler; accepts NULL. */
 BRV_API void brv_sampler_free(brv_sampler *s);
 

@@ -4,6 +4,7 @@
 #ifndef BRV_INTERNAL_H
 #define BRV_INTERNAL_H
 
+#include <stdbool.h>
 #include <stddef.h>
 #include <stdint.h>
 #include <string.h>
@@ -135,6 +136,13 @@ void brv_unfilter_w32(const uint8_t *src, size_t n, uint32_t nx, int ex, uint32_
 /* An f16 group stored without scale (scale_exp 0) kept as halves: the words themselves to out.
  * Returns nonzero when a word is an infinity or NaN (all-ones exponent). */
 int brv_unfilter_f16_halves(const uint8_t *src, size_t n, uint32_t nx, uint16_t *out, int simd);
+
+/* For the sampler: brick b of a volume whose every channel is f16, as the stored halves
+ * (channel-major, as brv_decode_brick_f16) and each channel's scale exponent (value = half ·
+ * 2^scale_exp[c]); *special tells whether a word is an infinity or NaN. BRV_E_ARGUMENT when a
+ * channel is not f16. */
+brv_result brv_decode_brick_raw16(const brv_volume *v, brv_decoder *dec, uint32_t b, uint16_t *out, size_t out_count,
+                                  int8_t *scale_exp, bool *special);
 
 /* Allocator defaults. */
 void *brv_alloc(const brv_allocator *a, size_t size);

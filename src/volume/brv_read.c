@@ -502,9 +502,10 @@ static brv_result brick_bytes(const brv_volume *v, brv_decoder *dec, uint64_t of
  * rounding of brv_f32_to_f16. Returns BRV_E_UNREPRESENTABLE for a value beyond binary16's range
  * (after writing every word). */
 static brv_result group_to_f16(brv_decoder *dec, const rgroup *g, unsigned mode, unsigned wb, int ex,
-                               const uint8_t *p, size_t n, uint32_t nx, int only, uint16_t *dst)
+                               const uint8_t *p, size_t n, uint32_t nx, int only, uint16_t *dst, int8_t *raw_ex)
 {
-    if (g->code == BRV_ENCODING_F16 && ex == 0) {
+    if ((raw_ex && g->code == BRV_ENCODING_F16) || (g->code == BRV_ENCODING_F16 && ex == 0)) {
+        if (raw_ex) raw_ex[g->first] = (int8_t)ex; /* the stored halves, the scale given apart */
         int special;
         if (mode == BRV_MODE_CONSTANT) {
             uint16_t h = brv_rd16(p);
@@ -534,7 +535,7 @@ static brv_result group_to_f16(brv_decoder *dec, const rgroup *g, unsigned mode,
  * only ≥ 0: that channel alone into out (n values). Floats to out, or (out is NULL) binary16
  * words to out16. */
 static brv_result decode_brick(const brv_volume *v, brv_decoder *dec, uint32_t b, int only, float *out,
-                               uint16_t *out16, size_t out_count, bool check_crc)
+                               uint16_t *out16, int8_t *raw_ex, size_t out_count, bool check_crc)
 {
     uint32_t o[3], e[3];
     if (brv_brick_extent(v, b, o, e) != BRV_OK) return BRV_E_ARGUMENT;
@@ -579,7 +580,8 @@ static brv_result decode_brick(const brv_volume *v, brv_decoder *dec, uint32_t b
         if (wanted && !g->wb) return BRV_E_VERSION; /* a newer minor's encoding */
         if (wanted && !out) {
             uint16_t *dst = only < 0 ? out16 + (size_t)g->first * n : out16;
-            if (group_to_f16(dec, g, mode, wb, ex, p, n, e[0], only, dst) != BRV_OK) range = BRV_E_UNREPRESENTABLE;
+            if (group_to_f16(dec, g, mode, wb, ex, p, n, e[0], only, dst, raw_ex) != BRV_OK)
+                range = BRV_E_UNREPRESENTABLE;
         } else if (wanted) {
             float sc = ldexpf(1.0f, ex);
             float *dst = only < 0 ? out + (size_t)g->first * n : (g->count == 1 ? out : dec->scratch);
@@ -609,7 +611,7 @@ brv_result brv_decode_brick(const brv_volume *v, brv_decoder *dec, uint32_t b, f
     if (!v || !out) return BRV_E_ARGUMENT;
     brv_decoder *tmp;
     brv_result r = with_decoder(v, &dec, &tmp);
-    if (r == BRV_OK) r = decode_brick(v, dec, b, -1, out, NULL, out_count, false);
+    if (r == BRV_OK) r = decode_brick(v, dec, b, -1, out, NULL, NULL, out_count, false);
     brv_decoder_free(tmp);
     return r;
 }
@@ -619,9 +621,20 @@ brv_result brv_decode_brick_f16(const brv_volume *v, brv_decoder *dec, uint32_t 
     if (!v || !out) return BRV_E_ARGUMENT;
     brv_decoder *tmp;
     brv_result r = with_decoder(v, &dec, &tmp);
-    if (r == BRV_OK) r = decode_brick(v, dec, b, -1, NULL, out, out_count, false);
+    if (r == BRV_OK) r = decode_brick(v, dec, b, -1, NULL, out, NULL, out_count, false);
     brv_decoder_free(tmp);
     return r;
+}
+
+brv_result brv_decode_brick_raw16(const brv_volume *v, brv_decoder *dec, uint32_t b, uint16_t *out, size_t out_count,
+                                  int8_t *scale_exp, bool *special)
+{
+    if (!v || !dec || !out || !scale_exp || !special || dec->v != v) return BRV_E_ARGUMENT;
+    for (uint32_t c = 0; c < v->grid.channel_count; c++)
+        if (v->ch[c].encoding != BRV_ENCODING_F16) return BRV_E_ARGUMENT;
+    brv_result r = decode_brick(v, dec, b, -1, NULL, out, scale_exp, out_count, false);
+    *special = r == BRV_E_UNREPRESENTABLE;
+    return *special ? BRV_OK : r;
 }
 
 /* Decodes every brick's requested channel (or all) through the decoder's brick buffers into
@@ -643,7 +656,7 @@ static brv_result decode_grid(const brv_volume *v, int only, float *out, uint16_
         uint16_t *h = dec->half;
         /* A channel alone decodes into the scratch's tail, clear of the rgb9e5 staging at its head. */
         if (only >= 0) s = dec->scratch + brv_brick_size(v) - n;
-        r = decode_brick(v, dec, b, only, out ? s : NULL, h, n * nch, false);
+        r = decode_brick(v, dec, b, only, out ? s : NULL, h, NULL, n * nch, false);
         if (r == BRV_E_UNREPRESENTABLE) { /* every word was written: go on, report it at the end */
             range = r;
             r = BRV_OK;
@@ -690,7 +703,7 @@ brv_result brv_verify(const brv_volume *v, uint32_t *brick)
     brv_result r = brv_decoder_create(v, &dec);
     if (r != BRV_OK) return r;
     for (uint32_t b = 0; b < v->grid.brick_count; b++) {
-        r = decode_brick(v, dec, b, -1, dec->scratch, NULL, brv_brick_size(v), true);
+        r = decode_brick(v, dec, b, -1, dec->scratch, NULL, NULL, brv_brick_size(v), true);
         if (r == BRV_E_VERSION) r = BRV_OK; /* a newer encoding: its frame and checksum were sound */
         if (r != BRV_OK) {
             if (brick) *brick = b;

@@ -1,30 +1,52 @@
-/* Random access: trilinear sampling through a direct-mapped cache of decoded bricks. Built on
- * the public decoding calls only. */
+/* Random access: trilinear sampling through a cache of decoded bricks. A brick's cells are
+ * kept interleaved (every channel of a cell together, so a sample's corners share cache
+ * lines); when every channel is f16 they are kept as the stored halves with the brick's
+ * per-channel scale apart, which halves the cache's memory and gives the same bits (the scale
+ * is a power of two, applied once to the interpolated value). */
+#if defined(__linux__) && !defined(_DEFAULT_SOURCE)
+#define _DEFAULT_SOURCE /* madvise */
+#endif
 #include <math.h>
 #include <stdbool.h>
+#if defined(__linux__)
+#include <sys/mman.h>
+#endif
 
 #include "brv_internal.h"
 
+#if defined(__SSE2__)
+#include <emmintrin.h>
+#endif
+
 typedef struct slot {
     uint32_t brick; /* UINT32_MAX: empty */
-    uint64_t used;  /* last use, for replacement within a set */
     uint32_t ext[3];
-    size_t n;
-    float *data; /* interleaved: data[cell·channels + c], so a sample's corners share cache lines */
+    uint64_t used; /* last use, for replacement within a set */
+    size_t sy, sz; /* element strides of y and z (x: channel_count) */
+    void *data;    /* float or uint16_t [cell·channels + c] */
+    float *scale;  /* halves: each channel's 2^scale_exp for this brick */
+    bool special;  /* halves: some word is an infinity or NaN (only a hostile file has them) */
 } slot;
 
 struct brv_sampler {
     const brv_volume *v;
     const brv_grid_info *g;
     bool direct; /* one slot per brick */
+    bool half;   /* every channel f16: slots hold halves */
+    int shift;   /* log2(brick_size) */
     brv_decoder *dec;
     uint32_t count;
     slot *slots;
-    float *pool;
-    float *scratch; /* one decoded brick, channel-major */
-    uint32_t sets;  /* count / 2 sets of two slots (one set of one when count is 1) */
+    void *pool;
+    float *scales;
+    void *scratch; /* one decoded brick, channel-major */
+    uint32_t sets; /* count / 2 sets of two slots (one set of one when count is 1) */
     uint64_t clock;
+    size_t memory;
+    double mul[3], add[3]; /* cell coordinate = pos·mul + add */
 };
+
+size_t brv_sampler_memory(const brv_sampler *s) { return s ? s->memory : 0; }
 
 brv_result brv_sampler_create(const brv_volume *v, uint32_t cache_bricks, brv_sampler **out)
 {
@@ -32,6 +54,9 @@ brv_result brv_sampler_create(const brv_volume *v, uint32_t cache_bricks, brv_sa
     if (cache_bricks == 0) cache_bricks = 64;
     const brv_grid_info *g = brv_grid(v);
     if (cache_bricks > g->brick_count) cache_bricks = g->brick_count;
+    bool half = true;
+    for (uint32_t c = 0; c < g->channel_count; c++) half &= brv_channel(v, c)->encoding == BRV_ENCODING_F16;
+    size_t es = half ? sizeof(uint16_t) : sizeof(float);
     size_t per = brv_brick_size(v), total;
     if (per && (size_t)cache_bricks > (size_t)-1 / per / sizeof(float)) return BRV_E_NOMEM;
     total = per * cache_bricks;
@@ -41,21 +66,46 @@ brv_result brv_sampler_create(const brv_volume *v, uint32_t cache_bricks, brv_sa
     memset(s, 0, sizeof *s);
     s->v = v;
     s->g = g;
+    s->half = half;
     s->count = cache_bricks;
     s->direct = cache_bricks == g->brick_count;
+    s->shift = -1;
+    for (int k = 0; k <= 5; k++)
+        if (g->brick_size == 1u << k) s->shift = k;
     s->slots = brv_alloc(a, cache_bricks * sizeof *s->slots);
-    s->pool = brv_alloc(a, total * sizeof(float));
-    s->scratch = brv_alloc(a, per * sizeof(float));
+    s->pool = brv_alloc(a, total * es);
+    s->scratch = brv_alloc(a, per * es);
+    if (half) s->scales = brv_alloc(a, (size_t)cache_bricks * g->channel_count * sizeof(float));
     s->sets = cache_bricks >= 2 ? cache_bricks / 2 : 1;
+    s->memory = total * es + cache_bricks * (sizeof(slot) + (half ? g->channel_count * sizeof(float) : 0));
     brv_result r = brv_decoder_create(v, &s->dec);
-    if (r == BRV_OK && (!s->slots || !s->pool || !s->scratch)) r = BRV_E_NOMEM;
+    if (r == BRV_OK && (!s->slots || !s->pool || !s->scratch || (half && !s->scales))) r = BRV_E_NOMEM;
     if (r != BRV_OK) {
         brv_sampler_free(s);
         return r;
     }
+#if defined(__linux__) && defined(MADV_HUGEPAGE)
+    /* A large cache is read at random: large pages spare a page walk on most reads (a hint). */
+    if (total * es >= (16u << 20)) {
+        uintptr_t lo = ((uintptr_t)s->pool + 4095u) & ~(uintptr_t)4095u;
+        uintptr_t hi = ((uintptr_t)s->pool + total * es) & ~(uintptr_t)4095u;
+        if (hi > lo) (void)madvise((void *)lo, hi - lo, MADV_HUGEPAGE);
+    }
+#endif
     for (uint32_t i = 0; i < cache_bricks; i++) {
         s->slots[i].brick = UINT32_MAX;
-        s->slots[i].data = s->pool + (size_t)i * per;
+        s->slots[i].data = (uint8_t *)s->pool + (size_t)i * per * es;
+        s->slots[i].scale = half ? s->scales + (size_t)i * g->channel_count : NULL;
+    }
+    for (int k = 0; k < 3; k++) {
+        double span = g->bounds_max[k] - g->bounds_min[k];
+        if (g->kind == BRV_GRID_WORLD) {
+            s->mul[k] = g->cells[k] / span;
+            s->add[k] = -g->bounds_min[k] * s->mul[k] - 0.5;
+        } else if (g->kind == BRV_GRID_PROBES && g->cells[k] > 1 && span > 0.0) {
+            s->mul[k] = (g->cells[k] - 1) / span;
+            s->add[k] = -g->bounds_min[k] * s->mul[k];
+        }
     }
     *out = s;
     return BRV_OK;
@@ -68,128 +118,244 @@ void brv_sampler_free(brv_sampler *s)
     brv_decoder_free(s->dec);
     brv_dealloc(a, s->slots);
     brv_dealloc(a, s->pool);
+    brv_dealloc(a, s->scales);
     brv_dealloc(a, s->scratch);
     brv_dealloc(a, s);
 }
 
+/* Decodes brick b into slot sl (interleaving its channels). */
+static brv_result fill(brv_sampler *s, slot *sl, uint32_t b)
+{
+    uint32_t o[3], nc = s->g->channel_count;
+    sl->brick = UINT32_MAX;
+    brv_brick_extent(s->v, b, o, sl->ext);
+    size_t n = (size_t)sl->ext[0] * sl->ext[1] * sl->ext[2];
+    sl->sy = (size_t)nc * sl->ext[0];
+    sl->sz = sl->sy * sl->ext[1];
+    size_t per = brv_brick_size(s->v);
+    if (s->half) {
+        int8_t ex[BRV_MAX_CHANNELS];
+        uint16_t *src = s->scratch, *dst = sl->data;
+        brv_result r = brv_decode_brick_raw16(s->v, s->dec, b, src, per, ex, &sl->special);
+        if (r != BRV_OK) return r;
+        for (uint32_t c = 0; c < nc; c++) sl->scale[c] = ldexpf(1.0f, ex[c]);
+        size_t i0 = 0;
+#if defined(__SSE2__)
+        if (nc == 4) /* 8 cells of 4 channels at a time */
+            for (; i0 + 8 <= n; i0 += 8) {
+                __m128i a = _mm_loadu_si128((const __m128i *)(const void *)(src + i0));
+                __m128i b = _mm_loadu_si128((const __m128i *)(const void *)(src + n + i0));
+                __m128i c = _mm_loadu_si128((const __m128i *)(const void *)(src + 2 * n + i0));
+                __m128i d = _mm_loadu_si128((const __m128i *)(const void *)(src + 3 * n + i0));
+                __m128i ablo = _mm_unpacklo_epi16(a, b), abhi = _mm_unpackhi_epi16(a, b);
+                __m128i cdlo = _mm_unpacklo_epi16(c, d), cdhi = _mm_unpackhi_epi16(c, d);
+                __m128i *o = (__m128i *)(void *)(dst + 4 * i0);
+                _mm_storeu_si128(o, _mm_unpacklo_epi32(ablo, cdlo));
+                _mm_storeu_si128(o + 1, _mm_unpackhi_epi32(ablo, cdlo));
+                _mm_storeu_si128(o + 2, _mm_unpacklo_epi32(abhi, cdhi));
+                _mm_storeu_si128(o + 3, _mm_unpackhi_epi32(abhi, cdhi));
+            }
+#endif
+        for (uint32_t c = 0; c < nc; c++)
+            for (size_t i = i0; i < n; i++) dst[i * nc + c] = src[c * n + i];
+    } else {
+        float *src = s->scratch, *dst = sl->data;
+        brv_result r = brv_decode_brick(s->v, s->dec, b, src, per);
+        if (r != BRV_OK) return r;
+        size_t i0 = 0;
+#if defined(__SSE2__)
+        if (nc == 4) /* 4 cells of 4 channels at a time */
+            for (; i0 + 4 <= n; i0 += 4) {
+                __m128 a = _mm_loadu_ps(src + i0), b4 = _mm_loadu_ps(src + n + i0);
+                __m128 c = _mm_loadu_ps(src + 2 * n + i0), d = _mm_loadu_ps(src + 3 * n + i0);
+                _MM_TRANSPOSE4_PS(a, b4, c, d);
+                _mm_storeu_ps(dst + 4 * i0, a);
+                _mm_storeu_ps(dst + 4 * i0 + 4, b4);
+                _mm_storeu_ps(dst + 4 * i0 + 8, c);
+                _mm_storeu_ps(dst + 4 * i0 + 12, d);
+            }
+#endif
+        for (uint32_t c = 0; c < nc; c++)
+            for (size_t i = i0; i < n; i++) dst[i * nc + c] = src[c * n + i];
+    }
+    sl->brick = b;
+    return BRV_OK;
+}
+
+static inline uint32_t set_of(const brv_sampler *s, uint32_t b)
+{
+    /* A multiplicative (Fibonacci) hash of the brick index, so neighbours along y and z —
+     * indices a power of two apart — do not all fall into one set as with index mod count. */
+    return (uint32_t)(((uint64_t)(b * 2654435769u) * s->sets) >> 32);
+}
+
 static brv_result fetch(brv_sampler *s, uint32_t b, const slot **out)
 {
-    /* Two-way set-associative, least recently used out. The set comes from a multiplicative
-     * (Fibonacci) hash of the brick index, so neighbours along y and z — indices a power of
-     * two apart — do not all fall into one set as they would with index mod count. */
-    slot *a, *sl;
-    s->clock++;
+    slot *sl;
     if (s->direct) {
-        sl = a = &s->slots[b]; /* room for every brick: one slot each */
-    } else {
-        uint32_t set = (uint32_t)(((uint64_t)(b * 2654435769u) * s->sets) >> 32);
-        sl = a = &s->slots[set * (s->count >= 2 ? 2u : 1u)];
+        sl = &s->slots[b]; /* room for every brick: one slot each, nothing to replace */
+        *out = sl;
+        return sl->brick == b ? BRV_OK : fill(s, sl, b);
     }
-    if (s->count >= 2 && !s->direct && a->brick != b) {
+    /* Two-way set-associative, least recently used out. */
+    s->clock++;
+    slot *a = &s->slots[set_of(s, b) * (s->count >= 2 ? 2u : 1u)];
+    sl = a;
+    if (s->count >= 2 && a->brick != b) {
         slot *o = a + 1;
         sl = o->brick == b ? o : (a->used <= o->used ? a : o);
     }
     sl->used = s->clock;
-    if (sl->brick != b) {
-        uint32_t o[3];
-        sl->brick = UINT32_MAX;
-        brv_brick_extent(s->v, b, o, sl->ext);
-        sl->n = (size_t)sl->ext[0] * sl->ext[1] * sl->ext[2];
-        brv_result r = brv_decode_brick(s->v, s->dec, b, s->scratch, brv_brick_size(s->v));
-        if (r != BRV_OK) return r;
-        uint32_t nc = s->g->channel_count;
-        for (uint32_t c = 0; c < nc; c++)
-            for (size_t i = 0; i < sl->n; i++) sl->data[i * nc + c] = s->scratch[c * sl->n + i];
-        sl->brick = b;
-    }
     *out = sl;
-    return BRV_OK;
+    return sl->brick == b ? BRV_OK : fill(s, sl, b);
 }
 
 /* The slot holding brick b, or NULL; no replacement and no change to the recency. */
 static const slot *peek(const brv_sampler *s, uint32_t b)
 {
     if (s->direct) return s->slots[b].brick == b ? &s->slots[b] : NULL;
-    uint32_t set = (uint32_t)(((uint64_t)(b * 2654435769u) * s->sets) >> 32);
-    const slot *a = &s->slots[set * (s->count >= 2 ? 2u : 1u)];
+    const slot *a = &s->slots[set_of(s, b) * (s->count >= 2 ? 2u : 1u)];
     if (a->brick == b) return a;
     if (s->count >= 2 && a[1].brick == b) return a + 1;
     return NULL;
 }
 
-/* Continuous cell coordinate u on an axis of n samples → the two neighbours and the weight. */
-static void axis(double u, uint32_t n, uint32_t *i0, uint32_t *i1, double *t)
+/* Continuous cell coordinate u on an axis of n samples → the two neighbours and the weight
+ * (with weight 0 both are the lower one, so a neighbour that does not count is not read). */
+static inline void axis(double u, uint32_t n, uint32_t *i0, uint32_t *i1, float *t)
 {
     if (!(u > 0.0)) u = 0.0; /* also catches NaN */
     if (u > (double)(n - 1)) u = (double)(n - 1);
-    double f = floor(u);
-    *i0 = (uint32_t)f;
-    *i1 = *i0 + 1 < n ? *i0 + 1 : *i0;
-    *t = u - f;
+    uint32_t f = (uint32_t)u; /* u ≥ 0: truncation is the floor */
+    *t = (float)(u - (double)f);
+    *i0 = f;
+    *i1 = f + 1 < n && *t > 0.0f ? f + 1 : f;
+}
+
+static inline uint32_t brick_of(const brv_sampler *s, uint32_t i)
+{
+    return s->shift >= 0 ? i >> s->shift : i / s->g->brick_size;
+}
+
+/* The interpolation, one formula for every path (float, in this order, so the SSE2 lanes and
+ * the scalar code give the same bits): along x, then y, then z, each a + t·(b − a). */
+static inline float lerp8(const float p[8], const float t[3])
+{
+    float x00 = p[0] + t[0] * (p[1] - p[0]), x10 = p[2] + t[0] * (p[3] - p[2]);
+    float x01 = p[4] + t[0] * (p[5] - p[4]), x11 = p[6] + t[0] * (p[7] - p[6]);
+    float y0 = x00 + t[1] * (x10 - x00), y1 = x01 + t[1] * (x11 - x01);
+    return y0 + t[2] * (y1 - y0);
+}
+
+#if defined(__SSE2__)
+/* 4 halves (the low 8 bytes) to 4 floats, finite halves only (as brv_f16_to_f32). */
+static inline __m128 halves4(__m128i h)
+{
+    const __m128i keep = _mm_set1_epi32((int)0x8FFFE000u);
+    __m128 f = _mm_castsi128_ps(_mm_and_si128(_mm_srai_epi32(_mm_unpacklo_epi16(_mm_setzero_si128(), h), 3), keep));
+    return _mm_mul_ps(f, _mm_set1_ps(5.192296858534828e33f)); /* × 2^112 */
+}
+
+static inline __m128 lerp8_4(const __m128 p[8], __m128 tx, __m128 ty, __m128 tz)
+{
+    __m128 x00 = _mm_add_ps(p[0], _mm_mul_ps(tx, _mm_sub_ps(p[1], p[0])));
+    __m128 x10 = _mm_add_ps(p[2], _mm_mul_ps(tx, _mm_sub_ps(p[3], p[2])));
+    __m128 x01 = _mm_add_ps(p[4], _mm_mul_ps(tx, _mm_sub_ps(p[5], p[4])));
+    __m128 x11 = _mm_add_ps(p[6], _mm_mul_ps(tx, _mm_sub_ps(p[7], p[6])));
+    __m128 y0 = _mm_add_ps(x00, _mm_mul_ps(ty, _mm_sub_ps(x10, x00)));
+    __m128 y1 = _mm_add_ps(x01, _mm_mul_ps(ty, _mm_sub_ps(x11, x01)));
+    return _mm_add_ps(y0, _mm_mul_ps(tz, _mm_sub_ps(y1, y0)));
+}
+#endif
+
+/* Element k of a slot as a float, times the slot's scale for channel c. */
+static inline float elem(const brv_sampler *s, const slot *sl, size_t k, uint32_t c)
+{
+    return s->half ? brv_f16_to_f32(((const uint16_t *)sl->data)[k]) * sl->scale[c] : ((const float *)sl->data)[k];
 }
 
 static brv_result trilinear(brv_sampler *s, const double u[3], float *out)
 {
     const brv_grid_info *g = s->g;
     uint32_t i[3][2], bc[3][2], lc[3][2];
-    double t[3];
+    float t[3];
     uint32_t bs = g->brick_size;
     for (int a = 0; a < 3; a++) {
         axis(u[a], g->cells[a], &i[a][0], &i[a][1], &t[a]);
         for (int k = 0; k < 2; k++) {
-            bc[a][k] = i[a][k] / bs; /* six divisions per sample, not 48 */
+            bc[a][k] = brick_of(s, i[a][k]);
             lc[a][k] = i[a][k] - bc[a][k] * bs;
         }
     }
     uint32_t nc = g->channel_count;
-    double acc[BRV_MAX_CHANNELS];
-    for (uint32_t c = 0; c < nc; c++) acc[c] = 0.0;
-    if (bc[0][0] == bc[0][1] && bc[1][0] == bc[1][1] && bc[2][0] == bc[2][1]) {
-        /* All eight corners in one brick (most samples): one lookup. */
-        const slot *sl;
+    float vals[8][BRV_MAX_CHANNELS];
+    const float *pv[8]; /* each corner's nc values, scaled */
+    const slot *sl = NULL;
+    size_t ck[8];
+    bool one = bc[0][0] == bc[0][1] && bc[1][0] == bc[1][1] && bc[2][0] == bc[2][1];
+    if (one) {
+        /* All eight corners in one brick (most samples): one lookup, read in place. */
         brv_result r = fetch(s, bc[0][0] + g->bricks[0] * (bc[1][0] + g->bricks[1] * bc[2][0]), &sl);
         if (r != BRV_OK) return r;
-        size_t sx = nc, sy = (size_t)nc * sl->ext[0], sz = sy * sl->ext[1];
-        const float *base = sl->data + lc[0][0] * sx + lc[1][0] * sy + lc[2][0] * sz;
-        size_t dx = (lc[0][1] - lc[0][0]) * sx, dy = (lc[1][1] - lc[1][0]) * sy, dz = (lc[2][1] - lc[2][0]) * sz;
-        double w00 = (1 - t[1]) * (1 - t[2]), w10 = t[1] * (1 - t[2]), w01 = (1 - t[1]) * t[2], w11 = t[1] * t[2];
-        for (uint32_t c = 0; c < nc; c++) {
-            const float *p = base + c;
-            double x00 = p[0] + t[0] * (p[dx] - p[0]);
-            double x10 = p[dy] + t[0] * (p[dy + dx] - p[dy]);
-            double x01 = p[dz] + t[0] * (p[dz + dx] - p[dz]);
-            double x11 = p[dz + dy] + t[0] * (p[dz + dy + dx] - p[dz + dy]);
-            acc[c] = w00 * x00 + w10 * x10 + w01 * x01 + w11 * x11;
-        }
-    } else {
-        for (int corner = 0; corner < 8; corner++) {
-            int kx = corner & 1, ky = (corner >> 1) & 1, kz = corner >> 2;
-            double wgt = (kx ? t[0] : 1.0 - t[0]) * (ky ? t[1] : 1.0 - t[1]) * (kz ? t[2] : 1.0 - t[2]);
-            if (wgt == 0.0) continue;
-            uint32_t b = bc[0][kx] + g->bricks[0] * (bc[1][ky] + g->bricks[1] * bc[2][kz]);
-            const slot *sl;
-            brv_result r = fetch(s, b, &sl);
-            if (r != BRV_OK) return r;
-            const float *p = sl->data + nc * (lc[0][kx] + (size_t)sl->ext[0] * (lc[1][ky] + (size_t)sl->ext[1] * lc[2][kz]));
-            for (uint32_t c = 0; c < nc; c++) acc[c] += wgt * p[c];
-        }
+        for (int k = 0; k < 8; k++)
+            ck[k] = nc * (size_t)lc[0][k & 1] + sl->sy * lc[1][(k >> 1) & 1] + sl->sz * lc[2][k >> 2];
+        if (!s->half)
+            for (int k = 0; k < 8; k++) pv[k] = (const float *)sl->data + ck[k];
     }
-    for (uint32_t c = 0; c < nc; c++) out[c] = (float)acc[c];
+    if (!one || (s->half && sl->special)) {
+        /* Corners in several bricks (each may evict another's slot, so their values are copied
+         * at once), or halves with an infinity or NaN: through elem. */
+        for (int k = 0; k < 8; k++) {
+            const slot *cs = sl;
+            if (!one) {
+                int kx = k & 1, ky = (k >> 1) & 1, kz = k >> 2;
+                brv_result r = fetch(s, bc[0][kx] + g->bricks[0] * (bc[1][ky] + g->bricks[1] * bc[2][kz]), &cs);
+                if (r != BRV_OK) return r;
+                ck[k] = nc * (size_t)lc[0][kx] + cs->sy * lc[1][ky] + cs->sz * lc[2][kz];
+            }
+            for (uint32_t c = 0; c < nc; c++) vals[k][c] = elem(s, cs, ck[k] + c, c);
+            pv[k] = vals[k];
+        }
+        sl = NULL; /* values are in pv */
+    }
+    uint32_t c = 0;
+#if defined(__SSE2__)
+    __m128 tx = _mm_set1_ps(t[0]), ty = _mm_set1_ps(t[1]), tz = _mm_set1_ps(t[2]);
+    for (; c + 4 <= nc; c += 4) {
+        __m128 p[8];
+        if (sl && s->half) {
+            __m128 sc = _mm_loadu_ps(sl->scale + c);
+            for (int k = 0; k < 8; k++) {
+                const uint16_t *h = (const uint16_t *)sl->data + ck[k] + c;
+                p[k] = _mm_mul_ps(halves4(_mm_loadl_epi64((const __m128i *)(const void *)h)), sc);
+            }
+        } else {
+            for (int k = 0; k < 8; k++) p[k] = _mm_loadu_ps(pv[k] + c);
+        }
+        _mm_storeu_ps(out + c, lerp8_4(p, tx, ty, tz));
+    }
+#endif
+    for (; c < nc; c++) {
+        float p[8];
+        for (int k = 0; k < 8; k++) p[k] = sl && s->half ? elem(s, sl, ck[k] + c, c) : pv[k][c];
+        out[c] = lerp8(p, t);
+    }
     return BRV_OK;
+}
+
+/* Cell coordinates of a world-grid or probe-grid position. */
+static inline void world_coords(const brv_sampler *s, const double pos[3], double u[3])
+{
+    for (int a = 0; a < 3; a++) u[a] = pos[a] * s->mul[a] + s->add[a];
 }
 
 brv_result brv_sample_world(brv_sampler *s, const double pos[3], float *out)
 {
     if (!s || !pos || !out) return BRV_E_ARGUMENT;
-    const brv_grid_info *g = s->g;
-    if (g->kind == BRV_GRID_FRUSTUM) return BRV_E_ARGUMENT;
+    if (s->g->kind == BRV_GRID_FRUSTUM) return BRV_E_ARGUMENT;
+    if (!isfinite(pos[0]) || !isfinite(pos[1]) || !isfinite(pos[2])) return BRV_E_ARGUMENT;
     double u[3];
-    for (int a = 0; a < 3; a++) {
-        if (!isfinite(pos[a])) return BRV_E_ARGUMENT;
-        double span = g->bounds_max[a] - g->bounds_min[a], rel = pos[a] - g->bounds_min[a];
-        if (g->kind == BRV_GRID_WORLD) u[a] = rel / span * g->cells[a] - 0.5;
-        else u[a] = g->cells[a] > 1 && span > 0.0 ? rel / span * (g->cells[a] - 1) : 0.0;
-    }
+    world_coords(s, pos, u);
     return trilinear(s, u, out);
 }
 
@@ -220,65 +386,66 @@ brv_result brv_sample_frustum(brv_sampler *s, double px, double py, double depth
     return trilinear(s, u, out);
 }
 
-/* Cell coordinates of a world-grid position (as brv_sample_world computes them). */
-static void world_coords(const brv_grid_info *g, const double pos[3], double u[3])
+/* The cell holding the lower corner of position pos's sample, per axis. */
+static inline void lower_cell(const brv_sampler *s, const double pos[3], uint32_t c[3])
 {
+    double u[3];
+    world_coords(s, pos, u);
     for (int a = 0; a < 3; a++) {
-        double span = g->bounds_max[a] - g->bounds_min[a], rel = pos[a] - g->bounds_min[a];
-        if (g->kind == BRV_GRID_WORLD) u[a] = rel / span * g->cells[a] - 0.5;
-        else u[a] = g->cells[a] > 1 && span > 0.0 ? rel / span * (g->cells[a] - 1) : 0.0;
+        double v = u[a] > 0.0 ? u[a] : 0.0;
+        c[a] = v < (double)(s->g->cells[a] - 1) ? (uint32_t)v : s->g->cells[a] - 1;
     }
 }
 
 /* Samples points first..first+count of pos in order of the brick that holds their lower
- * corner (a counting sort), so each brick is fetched once while its points are sampled, out of
- * the cache's fast levels; every point still gets exactly what brv_sample_world gives it. */
+ * corner (a counting sort), so each brick's cells are read from memory once while its points
+ * are sampled; every point still gets exactly what brv_sample_world gives it. The positions
+ * and results of the points a few places on are prefetched, and then the corner rows of the
+ * points nearer on (random points are otherwise bound by memory latency; hints only). */
 static brv_result batch_sorted(brv_sampler *s, size_t count, const double *pos, float *out, uint32_t *key,
                                uint32_t *order, uint32_t *start)
 {
     const brv_grid_info *g = s->g;
     uint32_t nc = g->channel_count, bs = g->brick_size, nb = g->brick_count;
+    size_t es = s->half ? sizeof(uint16_t) : sizeof(float);
     memset(start, 0, ((size_t)nb + 1) * sizeof *start);
     for (size_t i = 0; i < count; i++) {
-        double u[3];
         uint32_t c[3];
-        world_coords(g, pos + 3 * i, u);
-        for (int a = 0; a < 3; a++) {
-            double v = u[a] > 0.0 ? u[a] : 0.0;
-            c[a] = v < (double)(g->cells[a] - 1) ? (uint32_t)v : g->cells[a] - 1;
-        }
-        key[i] = c[0] / bs + g->bricks[0] * (c[1] / bs + g->bricks[1] * (c[2] / bs));
+        lower_cell(s, pos + 3 * i, c);
+        key[i] = brick_of(s, c[0]) + g->bricks[0] * (brick_of(s, c[1]) + g->bricks[1] * brick_of(s, c[2]));
         start[key[i] + 1]++;
     }
     for (uint32_t b = 0; b < nb; b++) start[b + 1] += start[b];
     for (size_t i = 0; i < count; i++) order[start[key[i]]++] = (uint32_t)i;
-    enum { AHEAD = 12 };
+    /* Now start[b] is the end of brick b's points in order. */
+    enum { NEAR = 6, FAR = 16 };
+    uint32_t bnear = 0; /* the brick of the point NEAR places on */
     for (size_t k = 0; k < count; k++) {
 #if defined(__GNUC__)
-        /* Random points over a large cached volume are bound by memory latency: prefetch the
-         * corner rows of the point AHEAD places on when its brick is cached (a hint only). */
-        if (k + AHEAD < count) {
-            size_t j = order[k + AHEAD];
-            const slot *sl = peek(s, key[j]);
+        if (k + FAR < count) {
+            size_t j = order[k + FAR];
+            __builtin_prefetch(pos + 3 * j);
+            __builtin_prefetch(out + (size_t)nc * j, 1);
+        }
+        if (k + NEAR < count) {
+            while (start[bnear] <= k + NEAR) bnear++;
+            const slot *sl = peek(s, bnear);
             if (sl) {
-                double u[3];
                 uint32_t c[3];
-                world_coords(g, pos + 3 * j, u);
-                for (int a = 0; a < 3; a++) {
-                    double v = u[a] > 0.0 ? u[a] : 0.0;
-                    c[a] = v < (double)(g->cells[a] - 1) ? (uint32_t)v : g->cells[a] - 1;
-                }
-                size_t sy = (size_t)nc * sl->ext[0], sz = sy * sl->ext[1];
-                const float *base = sl->data + nc * (size_t)(c[0] % bs) + sy * (c[1] % bs) + sz * (c[2] % bs);
+                lower_cell(s, pos + 3 * order[k + NEAR], c);
+                const uint8_t *base = (const uint8_t *)sl->data +
+                                      es * (nc * (size_t)(c[0] % bs) + sl->sy * (c[1] % bs) + sl->sz * (c[2] % bs));
                 __builtin_prefetch(base);
-                __builtin_prefetch(base + sy);
-                __builtin_prefetch(base + sz);
-                __builtin_prefetch(base + sy + sz);
+                __builtin_prefetch(base + es * sl->sy);
+                __builtin_prefetch(base + es * sl->sz);
+                __builtin_prefetch(base + es * (sl->sy + sl->sz));
             }
         }
 #endif
         size_t i = order[k];
-        brv_result r = brv_sample_world(s, pos + 3 * i, out + (size_t)nc * i);
+        double u[3];
+        world_coords(s, pos + 3 * i, u); /* finite: the caller checked */
+        brv_result r = trilinear(s, u, out + (size_t)nc * i);
         if (r != BRV_OK) return r;
     }
     return BRV_OK;
