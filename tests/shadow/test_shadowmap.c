@@ -287,6 +287,11 @@ static void build_should_not_depend_on_thread_count(void **state)
             if (nb) assert_memory_equal(va->blk_od, vb->blk_od, nb * sizeof(float));
             size_t nf = (size_t)(va->og_n[0] - 1) * (va->og_n[1] - 1) * (va->og_n[2] - 1);
             assert_memory_equal(va->od_bad, vb->od_bad, nf);
+            size_t ncol = (size_t)va->og_n[0] * va->og_n[1], ncell = (size_t)(va->og_n[0] - 1) * (va->og_n[1] - 1);
+            assert_memory_equal(va->od_first, vb->od_first, ncol * sizeof(uint16_t));
+            assert_memory_equal(va->od_last, vb->od_last, ncol * sizeof(uint16_t));
+            assert_non_null(va->cell_clean);
+            assert_memory_equal(va->cell_clean, vb->cell_clean, 2 * ncell * sizeof(uint16_t));
             assert_int_equal(va->corr_count, vb->corr_count);
             size_t nc = (size_t)va->corr_count * va->og_n[2] * BRM_OD_CORR_PTS;
             if (nc) assert_memory_equal(va->corr_dg, vb->corr_dg, nc * sizeof(float));
