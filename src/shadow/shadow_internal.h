@@ -122,14 +122,15 @@ typedef struct shadow_view {
      * columns alone; NULL when out of memory (every lookup takes the general path) */
     uint16_t *cell_clean;       /* 2 · (og_n[0] − 1) · (og_n[1] − 1): lo, hi */
 } shadow_view;
-/* The grids store G = ∫ sigma~ along the path from the first depth node (ortho) or from the
- * light (persp), where sigma~(q) = sigma_t(q clamped into the fog bounds): sigma_t continued
+/* The grids store G = ∫ sigma~ along the path from the column's first filled depth node
+ * (ortho: od_first) or from the light (persp), where sigma~(q) = sigma_t(q clamped into the fog bounds): sigma_t continued
  * outside the bounds so G stays smooth across the place a path leaves them (a kink there
  * would spoil the interpolation right where targets often touch the bounds). The true
  * optical depth of p is then a difference of smooth terms taken at p's exact entry into the
  * fog (a ray–box test at lookup):
- *   ortho: tau = P_a(x, y) + G(x, y, z), P_a = ∫ sigma~ from face a's plane to the first node,
- *          a the axis of the face p's path enters through;
+ *   ortho: tau = P_a(x, y) + G(x, y, z), P_a = ∫ sigma~ from face a's plane to the column's
+ *          first filled node, a the axis of the face p's path enters through (a column's start
+ *          moves P_a and G by opposite constants, so their sum interpolates the same);
  *   persp: tau = G(a, b, r) − G(a, b, r_entry). */
 
 typedef struct light_shadow {
