@@ -199,17 +199,18 @@ typedef struct probe_ctx {
     const brm_solid_index *solid;
     fog_grid fog;
     const brm_surface_cache *surf; /* bounce-hit irradiance; NULL: evaluated per hit */
+    double surf_h;              /* its node spacing, m */
+    bool surf_lights;           /* its nodes also hold each light's visibility and transmittance */
     double eps;                 /* offset of secondary ray origins, m */
     uint32_t channels;
     uint64_t *rays;             /* per worker: rays traced */
 } probe_ctx;
 
 /* Direct light at a surface point with normal n: every light's illuminance, cosine, shadow map
- * and fog on the way. With U, also the same without shadows and fog (U may be NULL). */
-static void surface_direct(const probe_ctx *c, brm_vec3 p, brm_vec3 n, double E[3], double *U)
+ * and fog on the way. */
+static void surface_direct(const probe_ctx *c, brm_vec3 p, brm_vec3 n, double E[3])
 {
     E[0] = E[1] = E[2] = 0.0;
-    if (U) U[0] = U[1] = U[2] = 0.0;
     for (uint32_t l = 0; l < c->s->light_count; l++) {
         const brm_light *lt = &c->s->lights[l];
         brm_vec3 to;
@@ -217,16 +218,10 @@ static void surface_direct(const probe_ctx *c, brm_vec3 p, brm_vec3 n, double E[
         double e = brm_light_illuminance(lt, p, &to, &dist);
         double cosi = brm_dot(n, to);
         if (e <= 0 || cosi <= 0) continue;
-        e *= cosi;
-        if (U) {
-            U[0] += e * lt->color.x;
-            U[1] += e * lt->color.y;
-            U[2] += e * lt->color.z;
-        }
         /* Bounce light: the sharp lookup (its penumbra matters little there). */
         double v = brm_shadow_visibility_sharp(c->ss, l, p);
         if (v <= 0) continue;
-        e *= v * brm_shadow_transmittance(c->ss, l, p);
+        e *= cosi * v * brm_shadow_transmittance(c->ss, l, p);
         E[0] += e * lt->color.x;
         E[1] += e * lt->color.y;
         E[2] += e * lt->color.z;
@@ -270,24 +265,94 @@ static void surface_sky(const probe_ctx *c, brm_vec3 p, brm_vec3 n, uint32_t ind
 static void surface_irradiance(const probe_ctx *c, brm_vec3 p, brm_vec3 n, uint32_t index, double E[3])
 {
     double sky[3];
-    surface_direct(c, p, n, E, NULL);
+    surface_direct(c, p, n, E);
     surface_sky(c, p, n, index, sky);
     for (int ch = 0; ch < 3; ch++) E[ch] += sky[ch];
+}
+
+/* Whether no hit near the surface point p (normal n) can be lit by light lt: the light lies
+ * behind the plane (no point of it faces the light), or its range ends more than two node
+ * spacings short of p (a hit whose cell holds the node at p lies within a cell diagonal, √2
+ * spacings, of it). */
+static int light_unused_near(const probe_ctx *c, const brm_light *lt, brm_vec3 p, brm_vec3 n)
+{
+    if (lt->type == BRM_LIGHT_DIRECTIONAL) return brm_dot(n, lt->direction) >= 0;
+    brm_vec3 to = brm_sub(lt->position, p);
+    return brm_dot(n, to) <= 0 || (lt->range_m > 0 && brm_len(to) > lt->range_m + 2 * c->surf_h);
 }
 
 /* The surface cache's node values (surface_cache.h): per channel, the share of the unshadowed
  * direct light that arrives (tested: it jumps at a shadow's edge; 1 where no light falls), then
  * the sky irradiance (smooth). A hit multiplies the share by its own unshadowed light, so the
- * falloff and cosine of near lights stay exact and only shadows and fog are interpolated. */
-static void surf_eval(const void *ctx, brm_vec3 p, brm_vec3 n, uint32_t index, double v[BRM_SURFACE_VALUES])
+ * falloff and cosine of near lights stay exact and only shadows and fog are interpolated.
+ * With c->surf_lights, the extra values: per light its visibility and transmittance at the
+ * node (0 and 1 for a light no hit nearby can use), for the hits in cells where the shares
+ * disagree (surface_fallback). */
+static void surf_eval(const void *ctx, brm_vec3 p, brm_vec3 n, uint32_t index, double *v)
 {
     const probe_ctx *c = ctx;
-    double E[3], U[3], sky[3];
-    surface_direct(c, p, n, E, U);
+    double E[3] = {0, 0, 0}, U[3] = {0, 0, 0}, sky[3];
+    for (uint32_t l = 0; l < c->s->light_count; l++) {
+        const brm_light *lt = &c->s->lights[l];
+        brm_vec3 to;
+        double dist;
+        double e = brm_light_illuminance(lt, p, &to, &dist);
+        double cosi = brm_dot(n, to);
+        int lit = e > 0 && cosi > 0;
+        double vis = 0.0, tr = 1.0;
+        if (lit || (c->surf_lights && !light_unused_near(c, lt, p, n))) {
+            vis = brm_shadow_visibility_sharp(c->ss, l, p);
+            if (vis > 0) tr = brm_shadow_transmittance(c->ss, l, p);
+        }
+        if (c->surf_lights) {
+            v[BRM_SURFACE_VALUES + 2 * l] = vis;
+            v[BRM_SURFACE_VALUES + 2 * l + 1] = tr;
+        }
+        if (!lit) continue;
+        e *= cosi;
+        U[0] += e * lt->color.x;
+        U[1] += e * lt->color.y;
+        U[2] += e * lt->color.z;
+        if (vis <= 0) continue;
+        e *= vis * tr;
+        E[0] += e * lt->color.x;
+        E[1] += e * lt->color.y;
+        E[2] += e * lt->color.z;
+    }
     surface_sky(c, p, n, index, sky);
     for (int ch = 0; ch < 3; ch++) {
         v[ch] = U[ch] > 0 ? E[ch] / U[ch] : 1.0;
         v[3 + ch] = sky[ch];
+    }
+}
+
+/* Direct light at a bounce hit p in a cell whose nodes disagree on the share: per light, the
+ * visibility the four nodes agree on exactly (lit or shadowed all over), else the lookup at p;
+ * the transmittance interpolated where the nodes agree within 0.02, else looked up at p. */
+static void surface_fallback(const probe_ctx *c, brm_vec3 p, brm_vec3 n, const brm_surface_cell *cell, double E[3])
+{
+    E[0] = E[1] = E[2] = 0.0;
+    for (uint32_t l = 0; l < c->s->light_count; l++) {
+        const brm_light *lt = &c->s->lights[l];
+        brm_vec3 to;
+        double dist;
+        double e = brm_light_illuminance(lt, p, &to, &dist);
+        double cosi = brm_dot(n, to);
+        if (e <= 0 || cosi <= 0) continue;
+        const float *x0 = cell->extra[0] + 2 * l, *x1 = cell->extra[1] + 2 * l;
+        const float *x2 = cell->extra[2] + 2 * l, *x3 = cell->extra[3] + 2 * l;
+        double vis;
+        if (x0[0] == x1[0] && x0[0] == x2[0] && x0[0] == x3[0] && (x0[0] == 0.0f || x0[0] == 1.0f)) vis = x0[0];
+        else vis = brm_shadow_visibility_sharp(c->ss, l, p);
+        if (vis <= 0) continue;
+        double tlo = fmin(fmin(x0[1], x1[1]), fmin(x2[1], x3[1])), thi = fmax(fmax(x0[1], x1[1]), fmax(x2[1], x3[1]));
+        double tr = x0[0] > 0 && x1[0] > 0 && x2[0] > 0 && x3[0] > 0 && thi - tlo <= 0.02
+                        ? cell->w[0] * x0[1] + cell->w[1] * x1[1] + cell->w[2] * x2[1] + cell->w[3] * x3[1]
+                        : brm_shadow_transmittance(c->ss, l, p);
+        e *= cosi * vis * tr;
+        E[0] += e * lt->color.x;
+        E[1] += e * lt->color.y;
+        E[2] += e * lt->color.z;
     }
 }
 
@@ -331,9 +396,17 @@ static double bake_probe(const probe_ctx *c, brm_vec3 p, uint64_t key, uint32_t 
             const brm_object *ob = &s->objects[hit.object];
             double E[3], sv[BRM_SURFACE_VALUES];
             brm_vec3 hp = brm_madd(brm_madd(p, dir, hit.t), hit.normal, c->eps);
-            if (c->surf && hit.tri != UINT32_MAX && brm_surface_cache_lookup(c->surf, hit.tri, hp, sv)) {
-                surface_unshadowed(c, hp, hit.normal, E);
-                for (int ch = 0; ch < 3; ch++) E[ch] = E[ch] * sv[ch] + sv[3 + ch];
+            brm_surface_cell cell;
+            if (c->surf && hit.tri != UINT32_MAX) {
+                if (brm_surface_cache_lookup(c->surf, hit.tri, hp, sv, &cell)) {
+                    surface_unshadowed(c, hp, hit.normal, E);
+                    for (int ch = 0; ch < 3; ch++) E[ch] = E[ch] * sv[ch] + sv[3 + ch];
+                } else if (c->surf_lights) {
+                    surface_fallback(c, hp, hit.normal, &cell, E);
+                    for (int ch = 0; ch < 3; ch++) E[ch] += sv[3 + ch];
+                } else {
+                    surface_irradiance(c, hp, hit.normal, (uint32_t)(key * 31 + r), E);
+                }
             } else {
                 surface_irradiance(c, hp, hit.normal, (uint32_t)(key * 31 + r), E);
             }
@@ -460,9 +533,12 @@ brm_status brm_bake_probes(const brm_scene *s, uint32_t t, const brm_bake_opts *
      * with fewer nodes than a quarter of the lattice's rays (most rays of an enclosed lattice
      * hit something), and never in the reference bake, which stays exact. */
     double surf_h = 0.5 * tg->spacing_m;
+    c.surf_h = surf_h;
+    c.surf_lights = s->light_count <= BRM_SURFACE_MAX_EXTRA / 2;
     uint64_t rays_total = (uint64_t)g->n[0] * g->n[1] * g->n[2] * tg->rays;
     if (!o->reference && s->tri_count && brm_surface_cache_nodes(s, surf_h) <= rays_total / 4) {
-        if ((st = brm_surface_cache_build(s, surf_h, c.eps, SURF_TOL, threads, surf_eval, &c, &surf, d)) != BRM_OK) goto done;
+        if ((st = brm_surface_cache_build(s, surf_h, c.eps, SURF_TOL, c.surf_lights ? 2 * s->light_count : 0, threads, surf_eval,
+                                           &c, &surf, d)) != BRM_OK) goto done;
         c.surf = surf;
     }
 

@@ -16,8 +16,8 @@ typedef struct surf_tri {
 
 struct brm_surface_cache {
     surf_tri *tris;         /* per scene triangle */
-    float *v;               /* BRM_SURFACE_VALUES per node */
-    uint32_t nodes;
+    float *v;               /* stride per node: BRM_SURFACE_VALUES, then the extra values */
+    uint32_t nodes, stride;
     double tol;             /* a cell interpolates when its nodes' tested values agree to tol */
 };
 
@@ -107,18 +107,19 @@ static void item_fn(void *ctx, uint32_t item, int worker)
                 brm_vec3 q = brm_madd(brm_madd(st->o, st->u, iu * st->su), st->v, jv * st->sv);
                 q = brm_madd(closest_on_triangle(q, j->s->tris[ti].v), st->n, j->eps);
                 uint32_t node = st->first + iu + (uint32_t)st->nu * jv;
-                double v[BRM_SURFACE_VALUES];
+                double v[BRM_SURFACE_VALUES + BRM_SURFACE_MAX_EXTRA];
                 j->eval(j->ctx, q, st->n, node, v);
-                for (int k = 0; k < BRM_SURFACE_VALUES; k++)
-                    j->sc->v[BRM_SURFACE_VALUES * (size_t)node + (size_t)k] = (float)v[k];
+                for (uint32_t k = 0; k < j->sc->stride; k++) j->sc->v[j->sc->stride * (size_t)node + k] = (float)v[k];
             }
     }
 }
 
-brm_status brm_surface_cache_build(const brm_scene *s, double h, double eps, double tol, int threads,
+brm_status brm_surface_cache_build(const brm_scene *s, double h, double eps, double tol, uint32_t extra, int threads,
                                    brm_surface_eval eval, const void *ctx, brm_surface_cache **out, brm_diag *d)
 {
     *out = NULL;
+    BRM_CHECK(d, extra <= BRM_SURFACE_MAX_EXTRA, BRM_E_INTERNAL, "surface cache: %u extra values", extra);
+    const uint32_t stride = BRM_SURFACE_VALUES + extra;
     BRM_CHECK(d, h > 0 && isfinite(h), BRM_E_INTERNAL, "surface cache: node spacing %g m", h);
     uint64_t nodes = brm_surface_cache_nodes(s, h);
     BRM_CHECK(d, nodes < ((uint64_t)1 << 31), BRM_E_BUDGET, "surface cache: %llu nodes, at most %u supported",
@@ -126,7 +127,7 @@ brm_status brm_surface_cache_build(const brm_scene *s, double h, double eps, dou
     brm_surface_cache *sc = calloc(1, sizeof *sc);
     if (sc) {
         sc->tris = malloc((s->tri_count ? s->tri_count : 1) * sizeof *sc->tris);
-        sc->v = malloc((nodes ? nodes : 1) * BRM_SURFACE_VALUES * sizeof *sc->v);
+        sc->v = malloc((nodes ? nodes : 1) * stride * sizeof *sc->v);
     }
     if (!sc || !sc->tris || !sc->v) {
         brm_surface_cache_free(sc);
@@ -139,6 +140,7 @@ brm_status brm_surface_cache_build(const brm_scene *s, double h, double eps, dou
         first += layout(&s->tris[i], h, &sc->tris[i]);
     }
     sc->nodes = first;
+    sc->stride = stride;
     job j = {s, sc, eps, eval, ctx};
     uint32_t items = (s->tri_count + TRIS_PER_ITEM - 1) / TRIS_PER_ITEM;
     if (brm_parallel_for(items, threads, item_fn, &j, &brm_interrupted) != items) {
@@ -150,7 +152,8 @@ brm_status brm_surface_cache_build(const brm_scene *s, double h, double eps, dou
     return BRM_OK;
 }
 
-int brm_surface_cache_lookup(const brm_surface_cache *sc, uint32_t tri, brm_vec3 q, double out[BRM_SURFACE_VALUES])
+int brm_surface_cache_lookup(const brm_surface_cache *sc, uint32_t tri, brm_vec3 q, double out[BRM_SURFACE_VALUES],
+                             brm_surface_cell *cell)
 {
     const surf_tri *st = &sc->tris[tri];
     brm_vec3 r = brm_sub(q, st->o);
@@ -162,18 +165,29 @@ int brm_surface_cache_lookup(const brm_surface_cache *sc, uint32_t tri, brm_vec3
     if (i > (uint32_t)st->nu - 2) i = (uint32_t)st->nu - 2;
     if (jj > (uint32_t)st->nv - 2) jj = (uint32_t)st->nv - 2;
     double fx = x - i, fy = y - jj;
-    const float *e00 = sc->v + BRM_SURFACE_VALUES * ((size_t)st->first + i + (size_t)st->nu * jj);
-    const float *e01 = e00 + BRM_SURFACE_VALUES * (size_t)st->nu;
-    enum { K = BRM_SURFACE_VALUES };
-    for (int k = 0; k < K; k++) {
+    const size_t K = sc->stride;
+    const float *e00 = sc->v + K * ((size_t)st->first + i + (size_t)st->nu * jj);
+    const float *e01 = e00 + K * (size_t)st->nu;
+    if (cell) {
+        cell->extra[0] = e00 + BRM_SURFACE_VALUES;
+        cell->extra[1] = e00 + K + BRM_SURFACE_VALUES;
+        cell->extra[2] = e01 + BRM_SURFACE_VALUES;
+        cell->extra[3] = e01 + K + BRM_SURFACE_VALUES;
+        cell->w[0] = (1 - fx) * (1 - fy);
+        cell->w[1] = fx * (1 - fy);
+        cell->w[2] = (1 - fx) * fy;
+        cell->w[3] = fx * fy;
+    }
+    int agree = 1;
+    for (int k = 0; k < BRM_SURFACE_VALUES; k++) {
         double a = e00[k], b = e00[K + k], c = e01[k], dd = e01[K + k];
         if (k < BRM_SURFACE_TESTED) {
             double lo = fmin(fmin(a, b), fmin(c, dd)), hi = fmax(fmax(a, b), fmax(c, dd));
-            if (hi - lo > sc->tol) return 0;
+            if (hi - lo > sc->tol) agree = 0;
         }
         out[k] = (1 - fy) * ((1 - fx) * a + fx * b) + fy * ((1 - fx) * c + fx * dd);
     }
-    return 1;
+    return agree;
 }
 
 void brm_surface_cache_free(brm_surface_cache *sc)

@@ -17,28 +17,35 @@
 #include "base/diag.h"
 #include "scene/scene.h"
 
-enum { BRM_SURFACE_VALUES = 6, BRM_SURFACE_TESTED = 3 };
+enum { BRM_SURFACE_VALUES = 6, BRM_SURFACE_TESTED = 3, BRM_SURFACE_MAX_EXTRA = 64 };
 
-/* The values at point p with unit normal n; index is the node's index (for deterministic
- * per-node sampling). Called from several threads at once. */
-typedef void (*brm_surface_eval)(const void *ctx, brm_vec3 p, brm_vec3 n, uint32_t index,
-                                 double v[BRM_SURFACE_VALUES]);
+/* The values at point p with unit normal n into v[0 .. BRM_SURFACE_VALUES + extra): the
+ * interpolated ones, then the cache's extra values (kept per node, handed back raw). index is
+ * the node's index (for deterministic per-node sampling). Called from several threads at once. */
+typedef void (*brm_surface_eval)(const void *ctx, brm_vec3 p, brm_vec3 n, uint32_t index, double *v);
 
 typedef struct brm_surface_cache brm_surface_cache;
 
 /* Nodes the cache of s at spacing h would hold (for the caller's is-it-worth-it test). */
 uint64_t brm_surface_cache_nodes(const brm_scene *s, double h);
 
-/* Builds the cache with nodes at most h apart, lifted eps off their triangle; a cell
+/* Builds the cache with nodes at most h apart, lifted eps off their triangle, each holding
+ * BRM_SURFACE_VALUES values and `extra` (at most BRM_SURFACE_MAX_EXTRA) more; a cell
  * interpolates when max − min of its four nodes is at most tol in every tested value.
  * BRM_E_INTERRUPTED if brm_interrupted is raised meanwhile. */
-brm_status brm_surface_cache_build(const brm_scene *s, double h, double eps, double tol, int threads,
+brm_status brm_surface_cache_build(const brm_scene *s, double h, double eps, double tol, uint32_t extra, int threads,
                                    brm_surface_eval eval, const void *ctx, brm_surface_cache **out, brm_diag *d);
 
 /* The values at point q on (or next to) scene triangle tri, bilinear between the four nodes of
- * the cell around q: returns 1, or 0 when that cell's nodes disagree (the caller evaluates q
- * itself; out is then partly written). */
-int brm_surface_cache_lookup(const brm_surface_cache *sc, uint32_t tri, brm_vec3 q, double out[BRM_SURFACE_VALUES]);
+ * the cell around q: returns 1, or 0 when that cell's nodes disagree in a tested value (the
+ * caller evaluates those at q itself; out holds the interpolation either way). With cell not NULL, it receives the cell's four nodes'
+ * extra values and weights either way. */
+typedef struct brm_surface_cell {
+    const float *extra[4];  /* the extra values of the nodes (0,0), (1,0), (0,1), (1,1) */
+    double w[4];            /* their bilinear weights at q */
+} brm_surface_cell;
+int brm_surface_cache_lookup(const brm_surface_cache *sc, uint32_t tri, brm_vec3 q, double out[BRM_SURFACE_VALUES],
+                             brm_surface_cell *cell);
 
 void brm_surface_cache_free(brm_surface_cache *sc);
 

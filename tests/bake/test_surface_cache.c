@@ -34,7 +34,7 @@ static double dist_to_triangle(brm_vec3 p, const brm_vec3 v[3])
     return inside ? fabs(h) : best;
 }
 
-static void linear_eval(const void *ctx, brm_vec3 p, brm_vec3 n, uint32_t index, double E[BRM_SURFACE_VALUES])
+static void linear_eval(const void *ctx, brm_vec3 p, brm_vec3 n, uint32_t index, double *E)
 {
     (void)index;
     field *f = (field *)(uintptr_t)ctx;   /* the test's own mutable context */
@@ -105,7 +105,7 @@ static void cache_should_reproduce_a_linear_field_away_from_edges_and_a_constant
     const double h = 0.25, eps = 1e-3;
     field lin = {brm_v3(0.3, -0.7, 0.2), 50.0, &f.s, eps, 0.0};
     brm_surface_cache *sc = NULL;
-    assert_int_equal(brm_surface_cache_build(&f.s, h, eps, 1e300, 2, linear_eval, &lin, &sc, NULL), BRM_OK);
+    assert_int_equal(brm_surface_cache_build(&f.s, h, eps, 1e300, 0, 2, linear_eval, &lin, &sc, NULL), BRM_OK);
     /* Every node sits on its triangle (lifted by eps along the normal): nothing off the surface
      * is ever evaluated. */
     assert_true(lin.worst_off < 1e-9);
@@ -119,7 +119,7 @@ static void cache_should_reproduce_a_linear_field_away_from_edges_and_a_constant
              * interpolation of a linear field is exact there (up to the floats stored). */
             if (edge_distance(&f.s.tris[t], p) <= 1.5 * h) continue;
             double E[BRM_SURFACE_VALUES];
-            assert_int_equal(brm_surface_cache_lookup(sc, t, p, E), 1);
+            assert_int_equal(brm_surface_cache_lookup(sc, t, p, E, NULL), 1);
             brm_vec3 q = brm_madd(p, brm_norm(brm_cross(brm_sub(f.s.tris[t].v[1], f.s.tris[t].v[0]),
                                                         brm_sub(f.s.tris[t].v[2], f.s.tris[t].v[0]))), eps);
             double want = lin.base + brm_dot(lin.grad, q);
@@ -134,25 +134,25 @@ static void cache_should_reproduce_a_linear_field_away_from_edges_and_a_constant
         for (int k = 0; k < 20; k++) {
             brm_vec3 p = on_triangle(&f.s.tris[t], fx_unif(&rng), fx_unif(&rng));
             double E[BRM_SURFACE_VALUES];
-            assert_int_equal(brm_surface_cache_lookup(sc, t, p, E), 1);
+            assert_int_equal(brm_surface_cache_lookup(sc, t, p, E, NULL), 1);
             double want = lin.base + brm_dot(lin.grad, p);
             assert_near(E[0], want, brm_len(lin.grad) * (sqrt(2.0) * h + eps) + 1e-5, 0);
         }
     }
     brm_surface_cache_free(sc);
     field con = {brm_v3(0, 0, 0), 7.0, NULL, eps, 0.0};
-    assert_int_equal(brm_surface_cache_build(&f.s, h, eps, 0.0, 1, linear_eval, &con, &sc, NULL), BRM_OK);
+    assert_int_equal(brm_surface_cache_build(&f.s, h, eps, 0.0, 0, 1, linear_eval, &con, &sc, NULL), BRM_OK);
     for (uint32_t t = 0; t < f.s.tri_count; t++) {
         double E[BRM_SURFACE_VALUES];
         /* Four equal nodes agree even at a tolerance of 0. */
-        assert_int_equal(brm_surface_cache_lookup(sc, t, on_triangle(&f.s.tris[t], fx_unif(&rng), fx_unif(&rng)), E), 1);
+        assert_int_equal(brm_surface_cache_lookup(sc, t, on_triangle(&f.s.tris[t], fx_unif(&rng), fx_unif(&rng)), E, NULL), 1);
         for (int c = 0; c < BRM_SURFACE_VALUES; c++) assert_near(E[c], 7.0 * (c + 1), 1e-12, 0);
     }
     brm_surface_cache_free(sc);
     fx_free(&f);
 }
 
-static void index_eval(const void *ctx, brm_vec3 p, brm_vec3 n, uint32_t index, double E[BRM_SURFACE_VALUES])
+static void index_eval(const void *ctx, brm_vec3 p, brm_vec3 n, uint32_t index, double *E)
 {
     (void)ctx;
     E[0] = sin(index * 0.37) + p.x;
@@ -161,6 +161,8 @@ static void index_eval(const void *ctx, brm_vec3 p, brm_vec3 n, uint32_t index, 
     E[3] = index;
     E[4] = p.z;
     E[5] = 1.0 / (1.0 + index);
+    E[6] = index % 7;           /* two extra values, kept raw per node */
+    E[7] = p.y;
 }
 
 static void cache_should_not_depend_on_the_thread_count(void **state)
@@ -169,22 +171,36 @@ static void cache_should_not_depend_on_the_thread_count(void **state)
     fx_scene f;
     build_scene(&f);
     brm_surface_cache *a = NULL, *b = NULL;
-    assert_int_equal(brm_surface_cache_build(&f.s, 0.3, 1e-3, 1e300, 1, index_eval, NULL, &a, NULL), BRM_OK);
-    assert_int_equal(brm_surface_cache_build(&f.s, 0.3, 1e-3, 1e300, 2, index_eval, NULL, &b, NULL), BRM_OK);
+    assert_int_equal(brm_surface_cache_build(&f.s, 0.3, 1e-3, 1e300, 2, 1, index_eval, NULL, &a, NULL), BRM_OK);
+    assert_int_equal(brm_surface_cache_build(&f.s, 0.3, 1e-3, 1e300, 2, 2, index_eval, NULL, &b, NULL), BRM_OK);
     uint64_t rng = 5;
     for (uint32_t t = 0; t < f.s.tri_count; t++) {
         brm_vec3 p = on_triangle(&f.s.tris[t], fx_unif(&rng), fx_unif(&rng));
         double ea[BRM_SURFACE_VALUES], eb[BRM_SURFACE_VALUES];
-        assert_int_equal(brm_surface_cache_lookup(a, t, p, ea), 1);
-        assert_int_equal(brm_surface_cache_lookup(b, t, p, eb), 1);
+        brm_surface_cell ca, cb;
+        assert_int_equal(brm_surface_cache_lookup(a, t, p, ea, &ca), 1);
+        assert_int_equal(brm_surface_cache_lookup(b, t, p, eb, &cb), 1);
         for (int c = 0; c < BRM_SURFACE_VALUES; c++) assert_true(ea[c] == eb[c]);
+        /* The extra values come back raw and the same; the weights are bilinear (sum 1) and
+         * interpolate the extra p.y to the point's own height (the nodes lie 1e-3 off the
+         * surface along its normal). */
+        double wsum = 0, y = 0;
+        for (int k = 0; k < 4; k++) {
+            assert_true(ca.extra[k][0] == cb.extra[k][0] && ca.extra[k][1] == cb.extra[k][1]);
+            assert_true(ca.extra[k][0] == floorf(ca.extra[k][0]) && ca.extra[k][0] >= 0 && ca.extra[k][0] < 7);
+            assert_true(ca.w[k] >= 0 && ca.w[k] == cb.w[k]);
+            wsum += ca.w[k];
+            y += ca.w[k] * ca.extra[k][1];
+        }
+        assert_near(wsum, 1.0, 1e-12, 0);
+        if (edge_distance(&f.s.tris[t], p) > 0.5) assert_near(y, p.y, 1.1e-3 + 1e-5, 0);
     }
     brm_surface_cache_free(a);
     brm_surface_cache_free(b);
     fx_free(&f);
 }
 
-static void step_eval(const void *ctx, brm_vec3 p, brm_vec3 n, uint32_t index, double E[BRM_SURFACE_VALUES])
+static void step_eval(const void *ctx, brm_vec3 p, brm_vec3 n, uint32_t index, double *E)
 {
     (void)ctx, (void)n, (void)index;
     for (int c = 0; c < BRM_SURFACE_TESTED; c++) E[c] = p.x < 1.05 ? 0.2 : 1.0;
@@ -203,7 +219,7 @@ static void cache_should_refuse_cells_a_shadow_edge_crosses(void **state)
     fx_box(&f, brm_v3(-10, -1, -10), brm_v3(10, 0, 10));
     const double h = 0.25;
     brm_surface_cache *sc = NULL;
-    assert_int_equal(brm_surface_cache_build(&f.s, h, 1e-3, 0.1, 2, step_eval, NULL, &sc, NULL), BRM_OK);
+    assert_int_equal(brm_surface_cache_build(&f.s, h, 1e-3, 0.1, 0, 2, step_eval, NULL, &sc, NULL), BRM_OK);
     uint64_t rng = 9;
     int refused = 0, far = 0;
     for (int k = 0; k < 4000; k++) {
@@ -211,7 +227,7 @@ static void cache_should_refuse_cells_a_shadow_edge_crosses(void **state)
         brm_vec3 p = on_triangle(&f.s.tris[t], fx_unif(&rng), fx_unif(&rng));
         if (edge_distance(&f.s.tris[t], p) <= 1.5 * h) continue;
         double E[BRM_SURFACE_VALUES];
-        if (!brm_surface_cache_lookup(sc, t, p, E)) {
+        if (!brm_surface_cache_lookup(sc, t, p, E, NULL)) {
             refused++;
             assert_true(fabs(p.x - 1.05) <= sqrt(2.0) * h);
             continue;
