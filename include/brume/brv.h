@@ -360,8 +360,9 @@ BRV_API brv_result brv_sample_world(brv_sampler *s, const double pos[3], float *
  * of their bricks (a counting sort, in chunks of 2^20 points), so with room for every brick
  * each is fetched once and its points are sampled together; memory is prefetched a few samples
  * ahead (with a smaller cache, neighbouring bricks can be decoded more than once).
- * Temporary memory: 8 bytes a point (of a chunk) plus 4 bytes a brick, through the volume's
- * allocator (without it, points go in order).
+ * Temporary memory: 32 bytes a point of a chunk (the sort and a sorted copy of the positions;
+ * 32 MiB for a full chunk) plus 4 bytes a brick, through the volume's allocator (without it,
+ * points go in order).
  * Returns BRV_E_ARGUMENT at the first non-finite position, after sampling the points before
  * it; on a decode fault, out is not data. */
 BRV_API brv_result brv_sample_world_batch(brv_sampler *s, size_t count, const double *pos, float *out);

@@ -398,12 +398,13 @@ static inline void lower_cell(const brv_sampler *s, const double pos[3], uint32_
 }
 
 /* Samples points first..first+count of pos in order of the brick that holds their lower
- * corner (a counting sort), so each brick's cells are read from memory once while its points
- * are sampled; every point still gets exactly what brv_sample_world gives it. The positions
- * and results of the points a few places on are prefetched, and then the corner rows of the
- * points nearer on (random points are otherwise bound by memory latency; hints only). */
+ * corner (a counting sort that also copies the positions into that order), so each brick's
+ * cells are read from memory once while its points are sampled and the positions are read in
+ * sequence; every point still gets exactly what brv_sample_world gives it. The results of the
+ * points a few places on and the corner rows of nearer ones are prefetched (random points are
+ * otherwise bound by memory latency; hints only). */
 static brv_result batch_sorted(brv_sampler *s, size_t count, const double *pos, float *out, uint32_t *key,
-                               uint32_t *order, uint32_t *start)
+                               uint32_t *order, uint32_t *start, double *spos)
 {
     const brv_grid_info *g = s->g;
     uint32_t nc = g->channel_count, bs = g->brick_size, nb = g->brick_count;
@@ -416,23 +417,22 @@ static brv_result batch_sorted(brv_sampler *s, size_t count, const double *pos, 
         start[key[i] + 1]++;
     }
     for (uint32_t b = 0; b < nb; b++) start[b + 1] += start[b];
-    for (size_t i = 0; i < count; i++) order[start[key[i]]++] = (uint32_t)i;
-    /* Now start[b] is the end of brick b's points in order. */
+    for (size_t i = 0; i < count; i++) {
+        uint32_t d = start[key[i]]++;
+        order[d] = (uint32_t)i;
+        memcpy(spos + 3 * (size_t)d, pos + 3 * i, 3 * sizeof(double));
+    }
     enum { NEAR = 6, FAR = 16 };
-    uint32_t bnear = 0; /* the brick of the point NEAR places on */
+    uint32_t bnear = 0;
     for (size_t k = 0; k < count; k++) {
 #if defined(__GNUC__)
-        if (k + FAR < count) {
-            size_t j = order[k + FAR];
-            __builtin_prefetch(pos + 3 * j);
-            __builtin_prefetch(out + (size_t)nc * j, 1);
-        }
+        if (k + FAR < count) __builtin_prefetch(out + (size_t)nc * order[k + FAR], 1);
         if (k + NEAR < count) {
             while (start[bnear] <= k + NEAR) bnear++;
             const slot *sl = peek(s, bnear);
             if (sl) {
                 uint32_t c[3];
-                lower_cell(s, pos + 3 * order[k + NEAR], c);
+                lower_cell(s, spos + 3 * (k + NEAR), c);
                 const uint8_t *base = (const uint8_t *)sl->data +
                                       es * (nc * (size_t)(c[0] % bs) + sl->sy * (c[1] % bs) + sl->sz * (c[2] % bs));
                 __builtin_prefetch(base);
@@ -442,10 +442,9 @@ static brv_result batch_sorted(brv_sampler *s, size_t count, const double *pos, 
             }
         }
 #endif
-        size_t i = order[k];
         double u[3];
-        world_coords(s, pos + 3 * i, u); /* finite: the caller checked */
-        brv_result r = trilinear(s, u, out + (size_t)nc * i);
+        world_coords(s, spos + 3 * k, u);
+        brv_result r = trilinear(s, u, out + (size_t)nc * order[k]);
         if (r != BRV_OK) return r;
     }
     return BRV_OK;
@@ -465,16 +464,18 @@ brv_result brv_sample_world_batch(brv_sampler *s, size_t count, const double *po
     size_t chunk = good < CHUNK ? good : CHUNK;
     const brv_allocator *a = brv_volume_allocator(s->v);
     uint32_t *key = NULL, *order = NULL, *start = NULL;
+    double *spos = NULL;
     if (good >= SMALL && g->brick_count > 1) {
         key = brv_alloc(a, chunk * sizeof *key);
         order = brv_alloc(a, chunk * sizeof *order);
         start = brv_alloc(a, ((size_t)g->brick_count + 1) * sizeof *start);
+        spos = brv_alloc(a, chunk * 3 * sizeof *spos);
     }
     brv_result r = BRV_OK;
-    if (key && order && start) {
+    if (key && order && start && spos) {
         for (size_t at = 0; at < good && r == BRV_OK; at += chunk) {
             size_t m = good - at < chunk ? good - at : chunk;
-            r = batch_sorted(s, m, pos + 3 * at, out + (size_t)nc * at, key, order, start);
+            r = batch_sorted(s, m, pos + 3 * at, out + (size_t)nc * at, key, order, start, spos);
         }
     } else {
         /* Few points, one brick, or no memory for the sort: in order. */
@@ -483,6 +484,7 @@ brv_result brv_sample_world_batch(brv_sampler *s, size_t count, const double *po
     brv_dealloc(a, key);
     brv_dealloc(a, order);
     brv_dealloc(a, start);
+    brv_dealloc(a, spos);
     if (r == BRV_OK && good < count) r = BRV_E_ARGUMENT;
     return r;
 }
