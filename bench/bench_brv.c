@@ -8,7 +8,8 @@
  *    traffic; the reader into the whole volume or into one reused brick buffer);
  * 2. size per encoding on a smooth synthetic field, against raw f16 and against plain zstd of
  *    the raw float32 array;
- * 3. random access: 1 million trilinear samples at random points, one thread.
+ * 3. random access: 1 million trilinear samples at random points, one thread, of every
+ *    channel and of the extinction alone (a sampler of one channel).
  * Invented data (smooth analytic fields), for measurement only. */
 #include <math.h>
 #include <pthread.h>
@@ -257,7 +258,7 @@ static void decode_bench(const char *label, const vol *f, int is_f16)
 /* 1M trilinear samples, one thread: one call a point (cold: a new sampler; then warm) and the
  * batch call (cold: a new sampler; then warm), REPS_RA rounds, medians of wall and CPU time. */
 enum { REPS_RA = 3 };
-static void random_access(const vol *f, uint32_t cache, const char *pattern)
+static void random_access(const vol *f, uint32_t cache, const char *pattern, const uint32_t *pick, uint32_t npick)
 {
     brv_volume *v;
     if (brv_open_memory(f->bytes, f->size, NULL, &v) != BRV_OK) exit(1);
@@ -275,14 +276,14 @@ static void random_access(const vol *f, uint32_t cache, const char *pattern)
             pts[3 * i + 2] = oz;
         }
     }
-    uint32_t nc = brv_grid(v)->channel_count;
+    uint32_t nc = npick ? npick : brv_grid(v)->channel_count;
     float o[BRV_MAX_CHANNELS], *batch = malloc(sizeof(float) * nc * M);
     double wall[4][REPS_RA], cpu[4][REPS_RA], sum = 0, bsum = 0;
     size_t mem = 0;
     for (int rep = 0; rep < REPS_RA; rep++) {
         for (int kind = 0; kind < 2; kind++) { /* 0: one call a point, 1: batch */
             brv_sampler *s;
-            if (brv_sampler_create(v, cache, &s) != BRV_OK) exit(1);
+            if (brv_sampler_create_channels(v, cache, pick, npick, &s) != BRV_OK) exit(1);
             mem = brv_sampler_memory(s);
             for (int pass = 0; pass < 2; pass++) { /* cold (empty cache), then warm */
                 double c0 = cpu_now(), t0 = now();
@@ -308,10 +309,10 @@ static void random_access(const vol *f, uint32_t cache, const char *pattern)
         mw[k] = wall[k][REPS_RA / 2];
         mc[k] = cpu[k][REPS_RA / 2];
     }
-    printf("  1M %-6s samples, cache %4u bricks (%6.1f MiB), medians of %d (cpu s / wall s):\n"
+    printf("  1M %-6s samples of %u channel%s, cache %4u bricks (%6.1f MiB), medians of %d (cpu s / wall s):\n"
            "     one call a point: cold %.3f / %.3f, warm %.3f / %.3f;  batch: cold %.3f / %.3f, warm %.3f / %.3f"
            "  (checksums %.6g, %.6g)\n",
-           pattern, cache, mem / 1048576.0, REPS_RA, mc[0], mw[0], mc[1], mw[1], mc[2], mw[2], mc[3], mw[3],
+           pattern, nc, nc > 1 ? "s" : "", cache, mem / 1048576.0, REPS_RA, mc[0], mw[0], mc[1], mw[1], mc[2], mw[2], mc[3], mw[3],
            sum / (2 * REPS_RA), bsum / (2 * REPS_RA));
     free(batch);
     free(pts);
@@ -324,8 +325,10 @@ int main(int argc, char **argv)
     if (argc > 2 && strcmp(argv[2], "random") == 0) {
         vol f16 = write_volume(BRV_ENCODING_F16, BRV_ENCODING_F16, 9);
         printf("random access (trilinear, all 4 channels, f16 volume %u^3, 1 thread)\n", N);
-        random_access(&f16, (N / 16) * (N / 16) * (N / 16), "random");
-        random_access(&f16, 64, "march");
+        static const uint32_t extinction[1] = {0};
+        random_access(&f16, (N / 16) * (N / 16) * (N / 16), "random", NULL, 0);
+        random_access(&f16, (N / 16) * (N / 16) * (N / 16), "random", extinction, 1);
+        random_access(&f16, 64, "march", NULL, 0);
         free(f16.bytes);
         return 0;
     }
@@ -380,9 +383,11 @@ int main(int argc, char **argv)
     decode_bench("cmp", &vols[2], 0);
     printf("\nrandom access (trilinear, all 4 channels, f16 volume, 1 thread)\n");
     uint32_t all = (N / 16) * (N / 16) * (N / 16);
-    random_access(&vols[1], all, "random");
-    random_access(&vols[1], 64, "march");
-    if (N <= 128) random_access(&vols[1], 512, "random");
+    random_access(&vols[1], all, "random", NULL, 0);
+    static const uint32_t extinction[1] = {0};
+    random_access(&vols[1], all, "random", extinction, 1);
+    random_access(&vols[1], 64, "march", NULL, 0);
+    if (N <= 128) random_access(&vols[1], 512, "random", NULL, 0);
     for (int e = 0; e < 3; e++) free(vols[e].bytes);
     return 0;
 }

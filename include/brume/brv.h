@@ -24,8 +24,9 @@
  * ---- Threads ---------------------------------------------------------------------------
  * A brv_volume is never modified after open: any number of threads may call the decode and
  * query functions on one volume at once, as long as each thread passes its own brv_decoder
- * (or NULL, which makes the call allocate a temporary one). A brv_sampler holds a brick cache
- * and belongs to one thread at a time.
+ * (or NULL, which makes the call allocate a temporary one). A volume opened with brv_open_file
+ * reads its bricks from the file with pread, into the calling decoder's own buffer, so this
+ * holds for it too. A brv_sampler holds a brick cache and belongs to one thread at a time.
  *
  * ---- Byte-level layout of version 1.0 -----------------------------------------------------
  * All integers are little-endian, all reals IEEE 754 (f32 binary32, f64 binary64,
@@ -343,6 +344,15 @@ BRV_API brv_result brv_verify(const brv_volume *v, uint32_t *brick);
  * One thread at a time per sampler; make one per thread. Allocates through the volume's
  * allocator. */
 BRV_API brv_result brv_sampler_create(const brv_volume *v, uint32_t cache_bricks, brv_sampler **out);
+/* brv_sampler_create for some channels only: channels holds count indices (one may appear
+ * more than once); the sampler caches and interpolates those alone, and the sampling calls
+ * write count floats, in that order — the same bits as the same channels from a sampler of
+ * every channel. The cache memory above scales with count instead of channel_count; each
+ * brick is still decompressed whole (it is one zstd frame). count 0 (channels may be NULL):
+ * every channel, as brv_sampler_create.
+ * Returns BRV_E_NOT_FOUND for an index ≥ channel_count, BRV_E_ARGUMENT for count > 64. */
+BRV_API brv_result brv_sampler_create_channels(const brv_volume *v, uint32_t cache_bricks, const uint32_t *channels,
+                                               uint32_t count, brv_sampler **out);
 /* Bytes the sampler holds for its cache (slots, their data and scales); 0 for NULL. */
 BRV_API size_t brv_sampler_memory(const brv_sampler *s);
 /* Frees a sampler; accepts NULL. */

@@ -22,7 +22,7 @@ typedef struct slot {
     uint32_t brick; /* UINT32_MAX: empty */
     uint32_t ext[3];
     uint64_t used; /* last use, for replacement within a set */
-    size_t sy, sz; /* element strides of y and z (x: channel_count) */
+    size_t sy, sz; /* element strides of y and z (x: the sampled channel count) */
     void *data;    /* float or uint16_t [cell·channels + c] */
     float *scale;  /* halves: each channel's 2^scale_exp for this brick */
     bool special;  /* halves: some word is an infinity or NaN (only a hostile file has them) */
@@ -44,20 +44,32 @@ struct brv_sampler {
     uint64_t clock;
     size_t memory;
     double mul[3], add[3]; /* cell coordinate = pos·mul + add */
+    uint32_t nc;           /* channels sampled */
+    bool ident;            /* they are every channel, in order */
+    uint8_t map[BRV_MAX_CHANNELS]; /* sampled channel j is the volume's channel map[j] */
 };
 
 size_t brv_sampler_memory(const brv_sampler *s) { return s ? s->memory : 0; }
 
 brv_result brv_sampler_create(const brv_volume *v, uint32_t cache_bricks, brv_sampler **out)
 {
-    if (!v || !out) return BRV_E_ARGUMENT;
-    if (cache_bricks == 0) cache_bricks = 64;
+    return brv_sampler_create_channels(v, cache_bricks, NULL, 0, out);
+}
+
+brv_result brv_sampler_create_channels(const brv_volume *v, uint32_t cache_bricks, const uint32_t *channels,
+                                       uint32_t count, brv_sampler **out)
+{
+    if (!v || !out || (count && !channels) || count > BRV_MAX_CHANNELS) return BRV_E_ARGUMENT;
     const brv_grid_info *g = brv_grid(v);
+    for (uint32_t j = 0; j < count; j++)
+        if (channels[j] >= g->channel_count) return BRV_E_NOT_FOUND;
+    if (cache_bricks == 0) cache_bricks = 64;
     if (cache_bricks > g->brick_count) cache_bricks = g->brick_count;
+    uint32_t nc = count ? count : g->channel_count;
     bool half = true;
     for (uint32_t c = 0; c < g->channel_count; c++) half &= brv_channel(v, c)->encoding == BRV_ENCODING_F16;
     size_t es = half ? sizeof(uint16_t) : sizeof(float);
-    size_t per = brv_brick_size(v), total;
+    size_t per = (size_t)g->brick_size * g->brick_size * g->brick_size * nc, total;
     if (per && (size_t)cache_bricks > (size_t)-1 / per / sizeof(float)) return BRV_E_NOMEM;
     total = per * cache_bricks;
     const brv_allocator *a = brv_volume_allocator(v);
@@ -67,6 +79,12 @@ brv_result brv_sampler_create(const brv_volume *v, uint32_t cache_bricks, brv_sa
     s->v = v;
     s->g = g;
     s->half = half;
+    s->nc = nc;
+    s->ident = nc == g->channel_count;
+    for (uint32_t j = 0; j < nc; j++) {
+        s->map[j] = (uint8_t)(count ? channels[j] : j);
+        s->ident &= s->map[j] == j;
+    }
     s->count = cache_bricks;
     s->direct = cache_bricks == g->brick_count;
     s->shift = -1;
@@ -74,10 +92,10 @@ brv_result brv_sampler_create(const brv_volume *v, uint32_t cache_bricks, brv_sa
         if (g->brick_size == 1u << k) s->shift = k;
     s->slots = brv_alloc(a, cache_bricks * sizeof *s->slots);
     s->pool = brv_alloc(a, total * es);
-    s->scratch = brv_alloc(a, per * es);
-    if (half) s->scales = brv_alloc(a, (size_t)cache_bricks * g->channel_count * sizeof(float));
+    s->scratch = brv_alloc(a, brv_brick_size(v) * es);
+    if (half) s->scales = brv_alloc(a, (size_t)cache_bricks * nc * sizeof(float));
     s->sets = cache_bricks >= 2 ? cache_bricks / 2 : 1;
-    s->memory = total * es + cache_bricks * (sizeof(slot) + (half ? g->channel_count * sizeof(float) : 0));
+    s->memory = total * es + cache_bricks * (sizeof(slot) + (half ? nc * sizeof(float) : 0));
     brv_result r = brv_decoder_create(v, &s->dec);
     if (r == BRV_OK && (!s->slots || !s->pool || !s->scratch || (half && !s->scales))) r = BRV_E_NOMEM;
     if (r != BRV_OK) {
@@ -95,7 +113,7 @@ brv_result brv_sampler_create(const brv_volume *v, uint32_t cache_bricks, brv_sa
     for (uint32_t i = 0; i < cache_bricks; i++) {
         s->slots[i].brick = UINT32_MAX;
         s->slots[i].data = (uint8_t *)s->pool + (size_t)i * per * es;
-        s->slots[i].scale = half ? s->scales + (size_t)i * g->channel_count : NULL;
+        s->slots[i].scale = half ? s->scales + (size_t)i * nc : NULL;
     }
     for (int k = 0; k < 3; k++) {
         double span = g->bounds_max[k] - g->bounds_min[k];
@@ -126,7 +144,8 @@ void brv_sampler_free(brv_sampler *s)
 /* Decodes brick b into slot sl (interleaving its channels). */
 static brv_result fill(brv_sampler *s, slot *sl, uint32_t b)
 {
-    uint32_t o[3], nc = s->g->channel_count;
+    uint32_t o[3], nc = s->nc;
+    const uint8_t *map = s->map;
     sl->brick = UINT32_MAX;
     brv_brick_extent(s->v, b, o, sl->ext);
     size_t n = (size_t)sl->ext[0] * sl->ext[1] * sl->ext[2];
@@ -138,10 +157,10 @@ static brv_result fill(brv_sampler *s, slot *sl, uint32_t b)
         uint16_t *src = s->scratch, *dst = sl->data;
         brv_result r = brv_decode_brick_raw16(s->v, s->dec, b, src, per, ex, &sl->special);
         if (r != BRV_OK) return r;
-        for (uint32_t c = 0; c < nc; c++) sl->scale[c] = ldexpf(1.0f, ex[c]);
+        for (uint32_t c = 0; c < nc; c++) sl->scale[c] = ldexpf(1.0f, ex[map[c]]);
         size_t i0 = 0;
 #if defined(__SSE2__)
-        if (nc == 4) /* 8 cells of 4 channels at a time */
+        if (nc == 4 && s->ident) /* 8 cells of 4 channels at a time */
             for (; i0 + 8 <= n; i0 += 8) {
                 __m128i a = _mm_loadu_si128((const __m128i *)(const void *)(src + i0));
                 __m128i b = _mm_loadu_si128((const __m128i *)(const void *)(src + n + i0));
@@ -157,14 +176,14 @@ static brv_result fill(brv_sampler *s, slot *sl, uint32_t b)
             }
 #endif
         for (uint32_t c = 0; c < nc; c++)
-            for (size_t i = i0; i < n; i++) dst[i * nc + c] = src[c * n + i];
+            for (size_t i = i0; i < n; i++) dst[i * nc + c] = src[map[c] * n + i];
     } else {
         float *src = s->scratch, *dst = sl->data;
         brv_result r = brv_decode_brick(s->v, s->dec, b, src, per);
         if (r != BRV_OK) return r;
         size_t i0 = 0;
 #if defined(__SSE2__)
-        if (nc == 4) /* 4 cells of 4 channels at a time */
+        if (nc == 4 && s->ident) /* 4 cells of 4 channels at a time */
             for (; i0 + 4 <= n; i0 += 4) {
                 __m128 a = _mm_loadu_ps(src + i0), b4 = _mm_loadu_ps(src + n + i0);
                 __m128 c = _mm_loadu_ps(src + 2 * n + i0), d = _mm_loadu_ps(src + 3 * n + i0);
@@ -176,7 +195,7 @@ static brv_result fill(brv_sampler *s, slot *sl, uint32_t b)
             }
 #endif
         for (uint32_t c = 0; c < nc; c++)
-            for (size_t i = i0; i < n; i++) dst[i * nc + c] = src[c * n + i];
+            for (size_t i = i0; i < n; i++) dst[i * nc + c] = src[map[c] * n + i];
     }
     sl->brick = b;
     return BRV_OK;
@@ -287,7 +306,7 @@ static brv_result trilinear(brv_sampler *s, const double u[3], float *out)
             lc[a][k] = i[a][k] - bc[a][k] * bs;
         }
     }
-    uint32_t nc = g->channel_count;
+    uint32_t nc = s->nc;
     float vals[8][BRV_MAX_CHANNELS];
     const float *pv[8]; /* each corner's nc values, scaled */
     const slot *sl = NULL;
@@ -407,7 +426,7 @@ static brv_result batch_sorted(brv_sampler *s, size_t count, const double *pos, 
                                uint32_t *order, uint32_t *start, double *spos)
 {
     const brv_grid_info *g = s->g;
-    uint32_t nc = g->channel_count, bs = g->brick_size, nb = g->brick_count;
+    uint32_t nc = s->nc, bs = g->brick_size, nb = g->brick_count;
     size_t es = s->half ? sizeof(uint16_t) : sizeof(float);
     memset(start, 0, ((size_t)nb + 1) * sizeof *start);
     for (size_t i = 0; i < count; i++) {
@@ -455,7 +474,7 @@ brv_result brv_sample_world_batch(brv_sampler *s, size_t count, const double *po
     if (!s || (count && (!pos || !out))) return BRV_E_ARGUMENT;
     const brv_grid_info *g = s->g;
     if (g->kind == BRV_GRID_FRUSTUM) return BRV_E_ARGUMENT;
-    uint32_t nc = g->channel_count;
+    uint32_t nc = s->nc;
     /* Points up to the first non-finite one are sampled; that one is the fault. */
     size_t good = 0;
     while (good < count && isfinite(pos[3 * good]) && isfinite(pos[3 * good + 1]) && isfinite(pos[3 * good + 2]))

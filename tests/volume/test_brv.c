@@ -961,8 +961,33 @@ static void sampler_should_interpolate_decoded_values_on_every_path(void **state
             }
             print_message("volume %d, cache %s: worst relative sample error %.2e\n", vol, cache ? "3 bricks" : "all",
                           worst);
+            /* Some channels only, reordered and repeated: the same bits as the full sampler's,
+             * for a cache that holds just those channels. */
+            static const uint32_t pick[3] = {4, 1, 4};
+            brv_sampler *part;
+            assert_int_equal(brv_sampler_create_channels(v, cache ? 3 : g->brick_count, pick, 3, &part), BRV_OK);
+            /* Three fifths of the cells' bytes, plus at most 512 bytes a cached brick of records. */
+            size_t cached = cache ? 3 : g->brick_count, cell_bytes = brv_brick_size(v) / 5 * (vol == 2 ? 4u : 2u);
+            assert_true(brv_sampler_memory(part) >= cached * 3 * cell_bytes);
+            assert_true(brv_sampler_memory(part) < cached * (3 * cell_bytes + 512u));
+            for (int k = 0; k < 3000; k++) {
+                double p[3];
+                for (int a = 0; a < 3; a++) {
+                    double span = g->bounds_max[a] - g->bounds_min[a];
+                    p[a] = g->bounds_min[a] - 0.1 * span + 1.2 * span * rand() / (double)RAND_MAX;
+                }
+                float full[5], some[3];
+                assert_int_equal(brv_sample_world(s, p, full), BRV_OK);
+                assert_int_equal(brv_sample_world(part, p, some), BRV_OK);
+                for (int j = 0; j < 3; j++) assert_memory_equal(&some[j], &full[pick[j]], sizeof(float));
+            }
+            brv_sampler_free(part);
             brv_sampler_free(s);
         }
+        brv_sampler *bad;
+        static const uint32_t out_of_range[1] = {5};
+        assert_int_equal(brv_sampler_create_channels(v, 0, out_of_range, 1, &bad), BRV_E_NOT_FOUND);
+        assert_int_equal(brv_sampler_create_channels(v, 0, NULL, 2, &bad), BRV_E_ARGUMENT);
         free(all);
         brv_free(v);
         free(buf);

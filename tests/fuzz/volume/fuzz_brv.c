@@ -231,6 +231,16 @@ static void read_opened(brv_volume *v)
         (void)brv_sample_frustum(s, 0.5 * g->cells[0], 0.5 * g->cells[1], g->camera.near_m + 1.0, out);
         brv_sampler_free(s);
     }
+    uint32_t pick[2] = {g->channel_count - 1, 0};
+    if (brv_sampler_create_channels(v, 3, pick, 2, &s) == BRV_OK) {
+        float out[2];
+        for (int k = 0; k < 5; k++) {
+            double p[3];
+            for (int a = 0; a < 3; a++) p[a] = g->bounds_min[a] + (g->bounds_max[a] - g->bounds_min[a]) * (k / 4.0);
+            (void)brv_sample_world(s, p, out);
+        }
+        brv_sampler_free(s);
+    }
     (void)sink;
     brv_free(v);
 }
