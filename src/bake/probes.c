@@ -30,32 +30,54 @@ typedef struct fog_job {
     const brm_scene *s;
     brm_kernel k;
     fog_grid *f;
-    uint32_t *lights;
-    uint32_t nl;
+    uint32_t *lights;       /* per worker: light_count + 1 */
+    uint32_t nb[3];         /* blocks per axis */
 } fog_job;
 
-static void fog_slice(void *ctx, uint32_t kz, int worker)
+enum { FOG_BLOCK = 8 };     /* cells per block edge: the unit of work and of light culling */
+
+/* One block of the fog grid. Its lights are culled for the block's box as the world bake
+ * culls them per brick: lights that cannot reach it (range, cone) or that the maps say are
+ * hidden from all of it are left out, lights the maps say light all of it are marked so the
+ * kernel skips their lookups. Both leave every result unchanged (brm_shadow_classify). */
+static void fog_block(void *ctx, uint32_t item, int worker)
 {
-    (void)worker;
     fog_job *j = ctx;
     fog_grid *f = j->f;
+    uint32_t lo[3], hi[3];
+    uint32_t bi[3] = {item % j->nb[0], (item / j->nb[0]) % j->nb[1], item / (j->nb[0] * j->nb[1])};
+    for (int a = 0; a < 3; a++) {
+        lo[a] = bi[a] * FOG_BLOCK;
+        hi[a] = lo[a] + FOG_BLOCK < f->n[a] ? lo[a] + FOG_BLOCK : f->n[a];
+    }
+    brm_aabb bb = {brm_add(f->box.min, brm_mul(f->cell, brm_v3(lo[0], lo[1], lo[2]))),
+                   brm_add(f->box.min, brm_mul(f->cell, brm_v3(hi[0], hi[1], hi[2])))};
+    uint32_t *lights = j->lights + (size_t)worker * (j->s->light_count + 1), nl = 0;
+    for (uint32_t l = 0; l < j->s->light_count; l++) {
+        if (!brm_light_reaches(&j->s->lights[l], bb)) continue;
+        int cls = brm_shadow_classify(j->k.shadows, l, bb);
+        if (cls == 0) continue;
+        lights[nl++] = cls == 1 ? (l | BRM_KERNEL_LIT) : l;
+    }
     double u[4][3];
-    for (uint32_t y = 0; y < f->n[1]; y++)
-        for (uint32_t x = 0; x < f->n[0]; x++) {
-            size_t c = (size_t)x + f->n[0] * ((size_t)y + f->n[1] * kz);
-            brm_cell_samples(0x51ed2701f3a5c9e1ull ^ (uint64_t)c * 0x9e3779b97f4a7c15ull, 4, u);
-            double e = 0, in[3] = {0, 0, 0};
-            for (int si = 0; si < 4; si++) {
-                brm_vec3 p = brm_v3(f->box.min.x + (x + u[si][0]) * f->cell.x, f->box.min.y + (y + u[si][1]) * f->cell.y,
-                                    f->box.min.z + (kz + u[si][2]) * f->cell.z);
-                brm_kernel_out ko;
-                brm_kernel_eval(&j->k, p, j->lights, j->nl, (uint32_t)(c * 4 + (size_t)si), NULL, &ko);
-                e += ko.sigma_t;
-                for (int ch = 0; ch < 3; ch++) in[ch] += ko.inscatter[ch];
+    for (uint32_t kz = lo[2]; kz < hi[2]; kz++)
+        for (uint32_t y = lo[1]; y < hi[1]; y++)
+            for (uint32_t x = lo[0]; x < hi[0]; x++) {
+                size_t c = (size_t)x + f->n[0] * ((size_t)y + f->n[1] * kz);
+                brm_cell_samples(0x51ed2701f3a5c9e1ull ^ (uint64_t)c * 0x9e3779b97f4a7c15ull, 4, u);
+                double e = 0, in[3] = {0, 0, 0};
+                for (int si = 0; si < 4; si++) {
+                    brm_vec3 p = brm_v3(f->box.min.x + (x + u[si][0]) * f->cell.x,
+                                        f->box.min.y + (y + u[si][1]) * f->cell.y,
+                                        f->box.min.z + (kz + u[si][2]) * f->cell.z);
+                    brm_kernel_out ko;
+                    brm_kernel_eval(&j->k, p, lights, nl, (uint32_t)(c * 4 + (size_t)si), NULL, &ko);
+                    e += ko.sigma_t;
+                    for (int ch = 0; ch < 3; ch++) in[ch] += ko.inscatter[ch];
+                }
+                f->cell4[4 * c] = (float)(e / 4);
+                for (int ch = 0; ch < 3; ch++) f->cell4[4 * c + 1 + (size_t)ch] = (float)(in[ch] / 4);
             }
-            f->cell4[4 * c] = (float)(e / 4);
-            for (int ch = 0; ch < 3; ch++) f->cell4[4 * c + 1 + (size_t)ch] = (float)(in[ch] / 4);
-        }
 }
 
 static brm_status fog_build(const brm_scene *s, const brm_shadow_set *ss, double spacing, int threads, fog_grid *f,
@@ -78,14 +100,14 @@ static brm_status fog_build(const brm_scene *s, const brm_shadow_set *ss, double
     f->cell = brm_v3(ext.x / f->n[0], ext.y / f->n[1], ext.z / f->n[2]);
     size_t cells = (size_t)f->n[0] * f->n[1] * f->n[2];
     f->cell4 = malloc(cells * 4 * sizeof *f->cell4);
-    uint32_t *lights = malloc((s->light_count + 1) * sizeof *lights);
+    uint32_t *lights = malloc((size_t)threads * (s->light_count + 1) * sizeof *lights);
     if (!f->cell4 || !lights) {
         free(lights);
         return brm_diag_error(d, BRM_E_NOMEM, "out of memory for the probes' fog grid");
     }
-    for (uint32_t l = 0; l < s->light_count; l++) lights[l] = l;
-    fog_job j = {s, {.scene = s, .shadows = ss}, f, lights, s->light_count};
-    brm_parallel_for(f->n[2], threads, fog_slice, &j, NULL);
+    fog_job j = {s, {.scene = s, .shadows = ss}, f, lights, {0, 0, 0}};
+    for (int a = 0; a < 3; a++) j.nb[a] = (f->n[a] + FOG_BLOCK - 1) / FOG_BLOCK;
+    brm_parallel_for(j.nb[0] * j.nb[1] * j.nb[2], threads, fog_block, &j, NULL);
     free(lights);
     return BRM_OK;
 }
