@@ -464,6 +464,10 @@ static int probe_invalid(const probe_ctx *c, brm_vec3 p, double back_fraction)
  * that still interpolates. */
 #define SURF_TOL 0.1
 
+/* The most memory the surface cache's values may take (the rest of the bake's estimate does
+ * not count it). */
+#define SURF_MAX_BYTES ((uint64_t)256 << 20)
+
 enum { P_SH = 0, P_VALID = 27, P_EXT = 28, P_OFF = 29, PROBE_CH_MAX = 32 };
 
 static void probe_unit(void *ctx, uint32_t b, int worker, float *out)
@@ -556,9 +560,12 @@ brm_status brm_bake_probes(const brm_scene *s, uint32_t t, const brm_bake_opts *
      * hit something), and never in the reference bake, which stays exact. */
     double surf_h = 0.5 * tg->spacing_m;
     c.surf_h = surf_h;
-    c.surf_lights = s->light_count <= BRM_SURFACE_MAX_EXTRA / 2;
     uint64_t rays_total = (uint64_t)g->n[0] * g->n[1] * g->n[2] * tg->rays;
-    if (!o->reference && s->tri_count && brm_surface_cache_nodes(s, surf_h) <= rays_total / 4) {
+    uint64_t nodes = s->tri_count ? brm_surface_cache_nodes(s, surf_h) : 0;
+    /* At most SURF_MAX_BYTES: the per-light values go first, then the cache. */
+    c.surf_lights = s->light_count <= BRM_SURFACE_MAX_EXTRA / 2 &&
+                    brm_surface_cache_memory(s, nodes, 2 * s->light_count) <= SURF_MAX_BYTES;
+    if (!o->reference && nodes && nodes <= rays_total / 4 && brm_surface_cache_memory(s, nodes, 0) <= SURF_MAX_BYTES) {
         if ((st = brm_surface_cache_build(s, surf_h, c.eps, SURF_TOL, c.surf_lights ? 2 * s->light_count : 0, threads, surf_eval,
                                            &c, &surf, d)) != BRM_OK) goto done;
         c.surf = surf;

@@ -84,6 +84,12 @@ uint64_t brm_surface_cache_nodes(const brm_scene *s, double h)
     return n;
 }
 
+uint64_t brm_surface_cache_memory(const brm_scene *s, uint64_t nodes, uint32_t extra)
+{
+    return nodes * (BRM_SURFACE_VALUES + extra) * sizeof(float) + (uint64_t)s->tri_count * sizeof(surf_tri) +
+           sizeof(brm_surface_cache);
+}
+
 typedef struct job {
     const brm_scene *s;
     brm_surface_cache *sc;

@@ -29,6 +29,9 @@ typedef struct brm_surface_cache brm_surface_cache;
 /* Nodes the cache of s at spacing h would hold (for the caller's is-it-worth-it test). */
 uint64_t brm_surface_cache_nodes(const brm_scene *s, double h);
 
+/* Bytes a cache of `nodes` nodes with `extra` values each over s takes. */
+uint64_t brm_surface_cache_memory(const brm_scene *s, uint64_t nodes, uint32_t extra);
+
 /* Builds the cache with nodes at most h apart, lifted eps off their triangle, each holding
  * BRM_SURFACE_VALUES values and `extra` (at most BRM_SURFACE_MAX_EXTRA) more; a cell
  * interpolates when max − min of its four nodes is at most tol in every tested value.

@@ -91,6 +91,8 @@ static void grid_should_count_nodes_along_the_longest_edge_and_across_it(void **
      * nodes along, ceil(2.4)+1 = 4 across. */
     fx_tri(&f, 0, brm_v3(0, 0, 0), brm_v3(4, 0, 0), brm_v3(0, 3, 0));
     assert_int_equal(brm_surface_cache_nodes(&f.s, 1.0), 24);
+    /* Each extra value costs one float per node. */
+    assert_int_equal(brm_surface_cache_memory(&f.s, 24, 5) - brm_surface_cache_memory(&f.s, 24, 0), 24 * 5 * sizeof(float));
     /* A sliver 10 m long and 1 cm wide: 21 × 2 at h = 0.5 m, not 21 × 21. */
     fx_tri(&f, 0, brm_v3(0, 0, 5), brm_v3(10, 0, 5), brm_v3(5, 0.01, 5));
     assert_int_equal(brm_surface_cache_nodes(&f.s, 0.5), 11 * 6 + 21 * 2);
