@@ -112,7 +112,7 @@ static int yard_bench(int threads)
     brm_diag_init(&d);
     brm_bvh *bvh = NULL;
     if (brm_bvh_build(s, &bvh, &d) != BRM_OK) return 1;
-    brm_shadow_opts o = {target, 0.25, threads, false, bvh, false};
+    brm_shadow_opts o = {target, 0.25, threads, false, bvh, false, 1.0};
     brm_shadow_set *ss = NULL;
     if (brm_shadows_build(s, &o, &ss, &d) != BRM_OK) return 1;
     printf("target 20 x 8 x 20 m, 0.25 m cells (80 x 32 x 80 = 204800), 3 lights, height + box + noise fog\n");
@@ -262,7 +262,7 @@ static int demo_bench(int threads, bool frustum)
     brm_bvh *bvh = NULL;
     if (brm_bvh_build(s, &bvh, &d) != BRM_OK) return 1;
     double e = fmin(g.cell.x, fmin(g.cell.y, g.cell.z)); /* as the baker passes it */
-    brm_shadow_opts o = {brm_grid_bounds(&g), e, threads, false, bvh, false};
+    brm_shadow_opts o = {brm_grid_bounds(&g), e, threads, false, bvh, false, 1.0};
     brm_shadow_set *ss = NULL;
     double c0 = cpu_seconds();
     if (brm_shadows_build(s, &o, &ss, &d) != BRM_OK) {

@@ -68,7 +68,7 @@ uint64_t brm_bake_estimate_memory(const brm_scene *s, uint32_t t, const brm_bake
     brm_grid g;
     if (brm_grid_init(&g, &s->targets[t], NULL) != BRM_OK) return 0;
     uint64_t m = brm_voxelize_memory(&g);
-    brm_shadow_opts so = {lit_bounds(s, &g), min_cell_edge(&g), effective_threads(o), o->reference, NULL, false};
+    brm_shadow_opts so = {lit_bounds(s, &g), min_cell_edge(&g), effective_threads(o), o->reference, NULL, false, 1.0};
     m += brm_shadows_memory(s, &so);
     m += brm_bvh_memory(s);
     /* The batch of units computed before the writer drains them (brm_run_plan): four bricks a
@@ -689,7 +689,7 @@ static brm_status bake_grid(const brm_scene *s, uint32_t t, const brm_bake_opts 
         if ((st = brm_bvh_build(s, &bvh, d)) != BRM_OK) goto done;
     }
     double t_shadow = brm_now();
-    brm_shadow_opts so = {lit_bounds(s, &g), min_cell_edge(&g), threads, o->reference, bvh, false};
+    brm_shadow_opts so = {lit_bounds(s, &g), min_cell_edge(&g), threads, o->reference, bvh, false, 1.0};
     if ((st = brm_shadows_build(s, &so, &ss, d)) != BRM_OK) goto done;
     stats->shadow_seconds = brm_now() - t_shadow;
 

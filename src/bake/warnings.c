@@ -109,7 +109,7 @@ void brm_target_warnings(const brm_scene *s, uint32_t t, const brm_bake_opts *o,
     uint32_t fine_light = 0;
     if (cells && !o->reference && s->object_count > 0) {
         brm_shadow_opts so = {brm_target_lit_bounds(s, t), min_edge(g.kind == BRM_GRID_FRUSTUM ? brm_v3(0, 0, 0) : g.cell),
-                              o->threads > 0 ? o->threads : brm_cpu_count(), false, NULL, false};
+                              o->threads > 0 ? o->threads : brm_cpu_count(), false, NULL, false, 1.0};
         for (uint32_t l = 0; l < s->light_count; l++) {
             light_shadow ls;
             brm_shadowmap_plan(s, &so, &ls, &s->lights[l]);

@@ -241,6 +241,7 @@ size_t brm_od_plan(const brm_scene *s, const brm_shadow_opts *o, const media_inf
      * path on the fine one; Hermite interpolation along the path (the derivative of tau is
      * sigma_t, stored too) makes half a feature per node ample. */
     double lat = mi->feature_lateral / 3.0, along = mi->feature / 2.0;
+    const double budget = o->od_budget_scale > 0.0 ? fmin(o->od_budget_scale, 1.0) : 1.0;
     if (l->type == BRM_LIGHT_DIRECTIONAL) {
         shadow_view *v = &ls->views[0];
         double lo[3] = {HUGE_VAL, HUGE_VAL, HUGE_VAL}, hi[3] = {-HUGE_VAL, -HUGE_VAL, -HUGE_VAL};
@@ -255,9 +256,9 @@ size_t brm_od_plan(const brm_scene *s, const brm_shadow_opts *o, const media_inf
         /* Over budget: coarsen across paths only. Along a path the Hermite steps must resolve
          * the finest feature (nothing checks them); across, the build's check and the blocks
          * take care of what a coarse spacing misses. */
-        double tot = (double)n[0] * n[1] * n[2];
-        if (tot > BRM_OD_MAX_NODES_ORTHO) {
-            double f = sqrt(BRM_OD_MAX_NODES_ORTHO / tot);
+        double tot = (double)n[0] * n[1] * n[2], cap = BRM_OD_MAX_NODES_ORTHO * budget;
+        if (tot > cap) {
+            double f = sqrt(cap / tot);
             for (int a = 0; a < 2; a++) n[a] = (uint32_t)fmax(8.0, floor(n[a] * f));
         }
         for (int a = 0; a < 3; a++) axis_set(v, a, lo[a], hi[a], n[a], true);
@@ -277,7 +278,7 @@ size_t brm_od_plan(const brm_scene *s, const brm_shadow_opts *o, const media_inf
     double sl = fmin(lat / rmax, 2.0 * tan_half / 32.0), sr = fmin(along, rmax / 16.0);
     uint32_t nl = axis_nodes(-tan_half, tan_half, sl, 4, 512), nr = axis_nodes(0.0, rmax, sr, 4, 1024);
     double tot = (double)nl * nl * nr; /* the budget is per view: a cube's faces each get it */
-    if (tot > BRM_OD_MAX_NODES) nl = (uint32_t)fmax(8.0, floor(nl * sqrt(BRM_OD_MAX_NODES / tot)));
+    if (tot > BRM_OD_MAX_NODES * budget) nl = (uint32_t)fmax(8.0, floor(nl * sqrt(BRM_OD_MAX_NODES * budget / tot)));
     size_t bytes = 0;
     for (uint32_t k = 0; k < ls->view_count; k++) {
         shadow_view *v = &ls->views[k];

@@ -29,6 +29,9 @@ typedef struct brm_shadow_opts {
                                NULL and needed — reference, sky over geometry — the set
                                builds its own) */
     bool no_sky_cache;      /* callers that never ask brm_sky_incident skip its cache */
+    double od_budget_scale; /* scales each optical-depth grid's node budget (0 means 1); a
+                               smaller grid builds faster and marches more of its lookups —
+                               the same accuracy checks apply, only the balance moves (previews) */
 } brm_shadow_opts;
 
 typedef struct brm_shadow_set brm_shadow_set;

@@ -162,7 +162,7 @@ static inline brm_medium *sf_medium(brm_scene *s, brm_medium_type type, double s
 static inline brm_shadow_set *sf_build(const brm_scene *s, brm_aabb bounds, double cell, bool reference,
                                        const brm_bvh *bvh, int threads)
 {
-    brm_shadow_opts o = {bounds, cell, threads, reference, bvh, false};
+    brm_shadow_opts o = {bounds, cell, threads, reference, bvh, false, 1.0};
     brm_shadow_set *ss = NULL;
     brm_diag d;
     brm_diag_init(&d);

@@ -299,7 +299,7 @@ static void build_should_not_depend_on_thread_count(void **state)
     }
     /* The memory estimate bounds what the build allocated: exact but for the refinement
      * blocks and cell corrections it reserves in full and the build allocates as needed. */
-    brm_shadow_opts o = {target, 0.1, 1, false, NULL, false};
+    brm_shadow_opts o = {target, 0.1, 1, false, NULL, false, 1.0};
     size_t est = brm_shadows_memory(s, &o), got = brm_shadows_bytes(a);
     size_t reserve = 0;
     for (uint32_t l = 0; l < s->light_count; l++)
