@@ -71,6 +71,7 @@ uint64_t brm_bake_estimate_memory(const brm_scene *s, uint32_t t, const brm_bake
     brm_shadow_opts so = {lit_bounds(s, &g), min_cell_edge(&g), effective_threads(o), o->reference, NULL, false, 1.0};
     m += brm_shadows_memory(s, &so);
     m += brm_bvh_memory(s);
+    if (g.kind == BRM_GRID_PROBES) m += brm_probes_memory(s, t, &g, o);
     /* The batch of units computed before the writer drains them (brm_run_plan): four bricks a
      * thread, or one column of bricks a thread for frustum targets. */
     uint64_t unit_floats = (uint64_t)BRM_BRICK * BRM_BRICK * BRM_BRICK * 20;

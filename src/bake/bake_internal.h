@@ -35,4 +35,7 @@ brm_status brm_bake_probes(const brm_scene *s, uint32_t t, const brm_bake_opts *
                            const brm_bvh *bvh, const brm_shadow_set *ss, const char *out_path,
                            brm_bake_stats *stats, brm_diag *d);
 
+/* Bytes the probe baker allocates beyond the grid, maps and ray caster (its surface cache). */
+uint64_t brm_probes_memory(const brm_scene *s, uint32_t t, const brm_grid *g, const brm_bake_opts *o);
+
 #endif

@@ -529,6 +529,33 @@ static const char *const sh_names[27] = {
     "sh.g0", "sh.g1", "sh.g2", "sh.g3", "sh.g4", "sh.g5", "sh.g6", "sh.g7", "sh.g8",
     "sh.b0", "sh.b1", "sh.b2", "sh.b3", "sh.b4", "sh.b5", "sh.b6", "sh.b7", "sh.b8"};
 
+/* Whether a probe bake builds the surface cache, and how many per-light values its nodes hold
+ * (*extra): nodes half a probe spacing apart, only when it pays — fewer nodes than a quarter of
+ * the lattice's rays (most rays of an enclosed lattice hit something) — never in the reference
+ * bake, which stays exact, and at most SURF_MAX_BYTES: the per-light values go first, then the
+ * cache. */
+static bool surf_plan(const brm_scene *s, const brm_target *tg, const brm_grid *g, const brm_bake_opts *o,
+                      uint32_t *extra)
+{
+    *extra = 0;
+    uint64_t rays_total = (uint64_t)g->n[0] * g->n[1] * g->n[2] * tg->rays;
+    uint64_t nodes = s->tri_count ? brm_surface_cache_nodes(s, 0.5 * tg->spacing_m) : 0;
+    if (o->reference || !nodes || nodes > rays_total / 4 || brm_surface_cache_memory(s, nodes, 0) > SURF_MAX_BYTES)
+        return false;
+    if (s->light_count <= BRM_SURFACE_MAX_EXTRA / 2 &&
+        brm_surface_cache_memory(s, nodes, 2 * s->light_count) <= SURF_MAX_BYTES)
+        *extra = 2 * s->light_count;
+    return true;
+}
+
+uint64_t brm_probes_memory(const brm_scene *s, uint32_t t, const brm_grid *g, const brm_bake_opts *o)
+{
+    const brm_target *tg = &s->targets[t];
+    uint32_t extra;
+    if (!surf_plan(s, tg, g, o, &extra)) return 0;
+    return brm_surface_cache_memory(s, brm_surface_cache_nodes(s, 0.5 * tg->spacing_m), extra);
+}
+
 brm_status brm_bake_probes(const brm_scene *s, uint32_t t, const brm_bake_opts *o, const brm_grid *g,
                            const brm_bvh *bvh, const brm_shadow_set *ss, const char *out_path,
                            brm_bake_stats *stats, brm_diag *d)
@@ -555,19 +582,15 @@ brm_status brm_bake_probes(const brm_scene *s, uint32_t t, const brm_bake_opts *
     /* Bounce hits read their shadows and sky from the surface cache (surface_cache.h, surf_eval),
      * nodes half a probe spacing apart, where the four nodes around the hit agree on the share
      * of light arriving within SURF_TOL (elsewhere, at shadow edges, the hit is evaluated as
-     * without the cache). Only when it pays,
-     * with fewer nodes than a quarter of the lattice's rays (most rays of an enclosed lattice
-     * hit something), and never in the reference bake, which stays exact. */
+     * without the cache); surf_plan says when it is built. */
     double surf_h = 0.5 * tg->spacing_m;
     c.surf_h = surf_h;
-    uint64_t rays_total = (uint64_t)g->n[0] * g->n[1] * g->n[2] * tg->rays;
-    uint64_t nodes = s->tri_count ? brm_surface_cache_nodes(s, surf_h) : 0;
-    /* At most SURF_MAX_BYTES: the per-light values go first, then the cache. */
-    c.surf_lights = s->light_count <= BRM_SURFACE_MAX_EXTRA / 2 &&
-                    brm_surface_cache_memory(s, nodes, 2 * s->light_count) <= SURF_MAX_BYTES;
-    if (!o->reference && nodes && nodes <= rays_total / 4 && brm_surface_cache_memory(s, nodes, 0) <= SURF_MAX_BYTES) {
-        if ((st = brm_surface_cache_build(s, surf_h, c.eps, SURF_TOL, c.surf_lights ? 2 * s->light_count : 0, threads, surf_eval,
-                                           &c, &surf, d)) != BRM_OK) goto done;
+    uint32_t surf_extra = 0;
+    if (surf_plan(s, tg, g, o, &surf_extra)) {
+        c.surf_lights = surf_extra > 0;
+        if ((st = brm_surface_cache_build(s, surf_h, c.eps, SURF_TOL, surf_extra, threads, surf_eval, &c, &surf, d)) !=
+            BRM_OK)
+            goto done;
         c.surf = surf;
     }
 
