@@ -1,8 +1,10 @@
 /* Frustum and probe bakes at the sizes their issues name, on the demo scene's geometry:
  *
- *   build/bench/bench_targets [frustum|probes] [SCENE.json]
+ *   build/bench/bench_targets [frustum|probes] [-j N] [-o OUT.brv] [nofog|fog] [SCENE.json]
  *
- * (a part's name bakes that part only; the lights are set up the same way either way)
+ * (a part's name bakes that part only; the lights are set up the same way either way;
+ * -j N runs that thread count only, -o keeps the frustum bake's file for comparing bytes;
+ * nofog or fog runs that half of the probe part only, whose file -o then keeps)
  *
  * - frustum: 160×90×128 froxels, 4 samples, one sun and eight local lights of 15 m range spread
  *   through the frustum, all casting shadows, the scene's fog: froxel·light·samples per second
@@ -46,6 +48,17 @@ int main(int argc, char **argv)
     int do_frustum = 1, do_probes = 1;
     if (argc > 1 && strcmp(argv[1], "frustum") == 0) do_probes = 0, argc--, argv++;
     else if (argc > 1 && strcmp(argv[1], "probes") == 0) do_frustum = 0, argc--, argv++;
+    int th_lo = 1, th_hi = 2;
+    const char *keep = NULL;
+    while (argc > 2 && (strcmp(argv[1], "-j") == 0 || strcmp(argv[1], "-o") == 0)) {
+        if (argv[1][1] == 'j') th_lo = th_hi = atoi(argv[2]);
+        else keep = argv[2];
+        argc -= 2, argv += 2;
+    }
+    if (th_lo < 1) th_lo = th_hi = 1;
+    int fog_lo = 0, fog_hi = 1;   /* probes: nofog or fog runs that half only */
+    if (argc > 1 && strcmp(argv[1], "nofog") == 0) fog_hi = 0, argc--, argv++;
+    else if (argc > 1 && strcmp(argv[1], "fog") == 0) fog_lo = 1, argc--, argv++;
     const char *path = argc > 1 ? argv[1] : BRUME_SOURCE_ROOT "/scenes/saltworks-dusk.json";
     brm_diag d;
     brm_diag_init(&d);
@@ -93,10 +106,15 @@ int main(int argc, char **argv)
     if (do_frustum)
         printf("frustum %ux%ux%u, %u samples, 1 sun + 8 point lights (15 m), shadows on, fog of the demo\n",
                ft->cells[0], ft->cells[1], ft->cells[2], ft->samples);
-    for (int th = 1; th <= 2 && do_frustum; th++) {
-        brm_bake_stats st = run(s, (uint32_t)f, th, out);
-        printf("  -j%d: %6.2f s (shadow maps %.2f s), %6.2f M froxel-light-samples/s\n", th, st.seconds, st.shadow_seconds,
-               st.light_samples / st.seconds / 1e6);
+    for (int th = th_lo; th <= th_hi && do_frustum; th++) {
+        brm_bake_stats st = run(s, (uint32_t)f, th, keep ? keep : out);
+        /* Evaluated: the lights the kernel ran after culling; nominal: every froxel, light and
+         * sample (160·90·128·4·9), which culling does not change. */
+        double nominal = (double)ft->cells[0] * ft->cells[1] * ft->cells[2] * ft->samples * 9;
+        printf("  -j%d: %6.2f s (shadow maps %.2f s, froxels %.2f s), %6.2f M froxel-light-samples/s evaluated, "
+               "%.2f M/s nominal (%.2f M/s nominal in the froxel phase)\n",
+               th, st.seconds, st.shadow_seconds, st.seconds - st.shadow_seconds, st.light_samples / st.seconds / 1e6,
+               nominal / st.seconds / 1e6, nominal / (st.seconds - st.shadow_seconds) / 1e6);
     }
 
     /* ---- probes ---- */
@@ -111,11 +129,11 @@ int main(int argc, char **argv)
     pt->spacing_m = 0.5;
     pt->rays = 256;
     uint32_t media = s->medium_count;
-    for (int fog = 0; fog <= 1 && do_probes; fog++) {
+    for (int fog = fog_lo; fog <= fog_hi && do_probes; fog++) {
         s->medium_count = fog ? media : 0;
         printf("probes 32x8x32 at 0.5 m, 256 rays, bounce on, %s\n", fog ? "with the demo's fog" : "without fog");
-        for (int th = 1; th <= 2; th++) {
-            brm_bake_stats st = run(s, (uint32_t)p, th, out);
+        for (int th = th_lo; th <= th_hi; th++) {
+            brm_bake_stats st = run(s, (uint32_t)p, th, keep ? keep : out);
             /* Rays per second over the whole bake, and over the probe stage alone (the bake
              * without its shadow and optical-depth maps). */
             printf("  -j%d: %6.2f s (shadow maps %.2f s), %7.0f probes/s, %6.2f M rays/s (probe rays only; %.2f M/s in "
