@@ -4,6 +4,7 @@
 #ifndef BRM_SHADOW_INTERNAL_H
 #define BRM_SHADOW_INTERNAL_H
 
+#include <stdatomic.h>
 #include <stddef.h>
 
 #include "scene/media.h"
@@ -175,6 +176,11 @@ typedef struct sky_cache {
     brm_vec3 lo, step;          /* node (i, j, k) at lo + (i, j, k)·step */
     float *sh;                  /* 12 per node: colour-major, 4 coefficients each */
     uint8_t *ok;                /* 1 where the node is in free space */
+    /* Nodes are traced when a lookup first needs them (sky.c): per node 0 = not yet, 1 = being
+     * traced, 2 = sh and ok set. A node's values depend on the node alone, so the cache reads
+     * the same whichever thread traces it, and nodes no lookup needs are never traced. */
+    atomic_uchar *state;
+    struct brm_solid_index *solid;  /* for the nodes' ok, until the cache is freed */
 } sky_cache;
 
 #define BRM_SHADOW_PHASES 9

@@ -87,7 +87,41 @@ static void sky_trace(const brm_shadow_set *ss, brm_vec3 p, uint32_t sample_inde
     sky_constrain(out);
 }
 
-static bool cache_lookup(const sky_cache *c, brm_vec3 p, double out[3][4])
+/* Traces node (i, j, k) into v (12 floats, what the cache stores); returns whether it lies in
+ * free space (nodes inside solids take no part in the interpolation). */
+static int node_trace(const brm_shadow_set *ss, const sky_cache *c, uint32_t i, uint32_t j, uint32_t k, size_t node,
+                      float v[12])
+{
+    brm_vec3 p = brm_add(c->lo, brm_mul(c->step, brm_v3(i, j, k)));
+    double d[3][4] = {{0}};
+    int ok = !brm_solid_index_query(c->solid, p);
+    if (ok) sky_trace(ss, p, (uint32_t)node, BRM_SKY_CACHE_RAYS, d);
+    for (int q = 0; q < 12; q++) v[q] = (float)d[q / 4][q % 4];
+    return ok;
+}
+
+/* The values of a node, traced the first time any lookup needs them. The thread that claims
+ * the node traces it into the cache and publishes it; a thread that finds it being traced
+ * traces its own copy into tmp (the same values: they depend on the node alone). Returns NULL
+ * for a node inside a solid. */
+static const float *node_values(const brm_shadow_set *ss, const sky_cache *c, uint32_t i, uint32_t j, uint32_t k,
+                                size_t node, float tmp[12])
+{
+    unsigned char st = atomic_load_explicit(&c->state[node], memory_order_acquire);
+    if (st != 2) {
+        unsigned char expect = 0;
+        if (st == 0 && atomic_compare_exchange_strong_explicit(&c->state[node], &expect, 1, memory_order_acq_rel,
+                                                               memory_order_acquire)) {
+            c->ok[node] = (uint8_t)node_trace(ss, c, i, j, k, node, c->sh + node * 12);
+            atomic_store_explicit(&c->state[node], 2, memory_order_release);
+        } else if (expect != 2) {
+            return node_trace(ss, c, i, j, k, node, tmp) ? tmp : NULL;
+        }
+    }
+    return c->ok[node] ? c->sh + node * 12 : NULL;
+}
+
+static bool cache_lookup(const brm_shadow_set *ss, const sky_cache *c, brm_vec3 p, double out[3][4])
 {
     double f[3];
     int i0[3];
@@ -109,10 +143,11 @@ static bool cache_lookup(const sky_cache *c, brm_vec3 p, double out[3][4])
         uint32_t ii = (uint32_t)(i0[0] + di), jj = (uint32_t)(i0[1] + dj), kk = (uint32_t)(i0[2] + dk);
         if (ii >= c->n[0] || jj >= c->n[1] || kk >= c->n[2]) continue;
         size_t node = ii + (size_t)c->n[0] * (jj + (size_t)c->n[1] * kk);
-        if (!c->ok[node]) continue;
         double w = (di ? f[0] : 1 - f[0]) * (dj ? f[1] : 1 - f[1]) * (dk ? f[2] : 1 - f[2]);
         if (w <= 0.0) continue;
-        const float *v = c->sh + node * 12;
+        float tmp[12];
+        const float *v = node_values(ss, c, ii, jj, kk, node, tmp);
+        if (!v) continue;
         for (int q = 0; q < 12; q++) acc[q] += w * v[q];
         wsum += w;
     }
@@ -131,7 +166,7 @@ void brm_sky_incident(const brm_shadow_set *ss, brm_vec3 p, uint32_t sample_inde
         memcpy(out, ss->sky_proj, sizeof(double) * 12);
         return;
     }
-    if (ss->sky_grid.n[0] && cache_lookup(&ss->sky_grid, p, out)) return;
+    if (ss->sky_grid.n[0] && cache_lookup(ss, &ss->sky_grid, p, out)) return;
     sky_trace(ss, p, sample_index, ss->sky_rays, out);
 }
 
@@ -178,55 +213,28 @@ size_t brm_sky_cache_memory(const brm_scene *s, const brm_shadow_opts *o)
     uint32_t n[3];
     brm_vec3 lo, st;
     cache_dims(s, o, n, &lo, &st);
-    return (size_t)n[0] * n[1] * n[2] * (12 * sizeof(float) + 1);
+    return (size_t)n[0] * n[1] * n[2] * (12 * sizeof(float) + 1 + sizeof(atomic_uchar));
 }
 
-typedef struct cache_job {
-    brm_shadow_set *ss;
-    const brm_solid_index *solid;
-} cache_job;
-
-static void cache_slice(void *ctx, uint32_t k, int worker)
-{
-    (void)worker;
-    const cache_job *job = ctx;
-    brm_shadow_set *ss = job->ss;
-    sky_cache *c = &ss->sky_grid;
-    for (uint32_t j = 0; j < c->n[1]; j++)
-        for (uint32_t i = 0; i < c->n[0]; i++) {
-            size_t node = i + (size_t)c->n[0] * (j + (size_t)c->n[1] * k);
-            brm_vec3 p = brm_add(c->lo, brm_mul(c->step, brm_v3(i, j, k)));
-            double v[3][4] = {{0}};
-            /* Nodes inside solids take no part in the interpolation. */
-            c->ok[node] = !brm_solid_index_query(job->solid, p);
-            if (c->ok[node]) sky_trace(ss, p, (uint32_t)node, BRM_SKY_CACHE_RAYS, v);
-            for (int q = 0; q < 12; q++) c->sh[node * 12 + (size_t)q] = (float)v[q / 4][q % 4];
-        }
-}
-
+/* Sets the cache up; its nodes are traced as lookups first need them (node_values). */
 brm_status brm_sky_cache_build(brm_shadow_set *ss, int threads, brm_diag *d)
 {
+    (void)threads;
     sky_cache *c = &ss->sky_grid;
     cache_dims(ss->scene, &ss->opts, c->n, &c->lo, &c->step);
     size_t nodes = (size_t)c->n[0] * c->n[1] * c->n[2];
     c->sh = malloc(nodes * 12 * sizeof *c->sh);
     c->ok = malloc(nodes);
-    if (!c->sh || !c->ok) {
+    c->state = malloc(nodes * sizeof *c->state);
+    if (!c->sh || !c->ok || !c->state) {
         brm_sky_cache_free(c);
         return brm_diag_error(d, BRM_E_NOMEM, "shadows: out of memory for the sky cache");
     }
-    brm_solid_index *solid = NULL;
-    brm_status st = brm_solid_index_build(ss->scene, &solid, d);
+    for (size_t i = 0; i < nodes; i++) atomic_init(&c->state[i], 0);
+    brm_status st = brm_solid_index_build(ss->scene, &c->solid, d);
     if (st != BRM_OK) {
         brm_sky_cache_free(c);
         return st;
-    }
-    cache_job j = {ss, solid};
-    uint32_t ran = brm_parallel_for(c->n[2], threads, cache_slice, &j, &brm_interrupted);
-    brm_solid_index_free(solid);
-    if (ran != c->n[2]) {
-        brm_sky_cache_free(c);
-        return brm_diag_error(d, BRM_E_INTERRUPTED, "shadows: interrupted while tracing the sky");
     }
     return BRM_OK;
 }
@@ -235,5 +243,7 @@ void brm_sky_cache_free(sky_cache *c)
 {
     free(c->sh);
     free(c->ok);
+    free(c->state);
+    brm_solid_index_free(c->solid);
     memset(c, 0, sizeof *c);
 }
