@@ -188,17 +188,28 @@ static void fog_march(const fog_grid *f, brm_vec3 o, brm_vec3 dir, double tmax, 
 
 /* Direction i of n on a spherical Fibonacci lattice (equal-area, stratified; Swinbank & Purser
  * 2006), rotated by the unit quaternion q so neighbouring probes do not share directions. */
-static brm_vec3 ray_dir(uint32_t i, uint32_t n, const double q[4])
+static brm_vec3 fib_dir(uint32_t i, uint32_t n)
 {
     const double golden_angle = 2.39996322972865332; /* π(3 − √5) */
     double z = 1.0 - (2.0 * i + 1.0) / n;
     double r = sqrt(fmax(0.0, 1.0 - z * z));
     double ph = golden_angle * i;
-    brm_vec3 v = brm_v3(r * cos(ph), r * sin(ph), z);
+    return brm_v3(r * cos(ph), r * sin(ph), z);
+}
+
+/* v rotated by the unit quaternion q. */
+static brm_vec3 rotate(brm_vec3 v, const double q[4])
+{
     /* v' = v + 2w(q×v) + 2 q×(q×v), q = (x, y, z, w) */
     brm_vec3 qv = brm_v3(q[0], q[1], q[2]);
     brm_vec3 t = brm_scale(brm_cross(qv, v), 2.0);
     return brm_add(brm_add(v, brm_scale(t, q[3])), brm_cross(qv, t));
+}
+
+/* Direction i of n (fib_dir), from the table of the target's n directions when it has one. */
+static brm_vec3 ray_dir(uint32_t i, uint32_t n, const double q[4], const brm_vec3 *table, uint32_t table_n)
+{
+    return rotate(n == table_n ? table[i] : fib_dir(i, n), q);
 }
 
 /* A uniformly distributed rotation from three uniform numbers (Shoemake 1992). */
@@ -226,6 +237,7 @@ typedef struct probe_ctx {
     double eps;                 /* offset of secondary ray origins, m */
     uint32_t channels;
     uint64_t *rays;             /* per worker: rays traced */
+    brm_vec3 *dirs;             /* fib_dir(i, t->rays) for every i: the rays before rotation */
 } probe_ctx;
 
 /* Direct light at a surface point with normal n: every light's illuminance, cosine, shadow map
@@ -405,7 +417,7 @@ static double bake_probe(const probe_ctx *c, brm_vec3 p, uint64_t key, uint32_t 
     uint32_t back = 0;
     uint64_t traced = 0;
     for (uint32_t r = 0; r < nrays; r++) {
-        brm_vec3 dir = ray_dir(r, nrays, q);
+        brm_vec3 dir = ray_dir(r, nrays, q, c->dirs, c->dirs ? c->t->rays : 0);
         brm_hit hit;
         int h = c->bvh ? brm_bvh_intersect(c->bvh, p, dir, 0.0, HUGE_VAL, &hit) : 0;
         traced++;
@@ -572,10 +584,16 @@ brm_status brm_bake_probes(const brm_scene *s, uint32_t t, const brm_bake_opts *
     brm_vec3 ext = brm_sub(s->fog_bounds.max, s->fog_bounds.min);
     c.eps = 1e-4 * (ext.x + ext.y + ext.z) + 1e-4;
     c.rays = calloc((size_t)threads, sizeof *c.rays);
+    c.dirs = malloc((tg->rays ? tg->rays : 1) * sizeof *c.dirs);
     brm_solid_index *solid = NULL;
     brm_surface_cache *surf = NULL;
     brm_status st = BRM_OK;
-    if (!c.rays) return brm_diag_error(d, BRM_E_NOMEM, "%s: out of memory", tg->json_path);
+    if (!c.rays || !c.dirs) {
+        free(c.rays);
+        free(c.dirs);
+        return brm_diag_error(d, BRM_E_NOMEM, "%s: out of memory", tg->json_path);
+    }
+    for (uint32_t i = 0; i < tg->rays; i++) c.dirs[i] = fib_dir(i, tg->rays);
     if ((st = brm_solid_index_build(s, &solid, d)) != BRM_OK) goto done;
     c.solid = solid;
     if ((st = fog_build(s, ss, tg->spacing_m, threads, &c.fog, d)) != BRM_OK) goto done;
@@ -618,5 +636,6 @@ done:
     fog_free(&c.fog);
     brm_solid_index_free(solid);
     free(c.rays);
+    free(c.dirs);
     return st;
 }
