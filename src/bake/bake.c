@@ -66,6 +66,14 @@ static size_t frustum_column_bytes(const brm_grid *g)
     return (size_t)BRM_BRICK * BRM_BRICK * ((size_t)g->n[2] + 1) * 5 * sizeof(double);
 }
 
+/* Samples a frustum worker evaluates light by light (one tile of 4x4x4 froxels at 4 samples),
+ * and the scratch they take. */
+enum { FRUSTUM_BATCH = 256 };
+static size_t frustum_batch_bytes(void)
+{
+    return (size_t)FRUSTUM_BATCH * (sizeof(brm_kernel_view_sample) + sizeof(brm_media_point) + sizeof(double));
+}
+
 /* Bricks computed per batch before the writer drains them in order. */
 static uint32_t batch_bricks(int threads) { return (uint32_t)threads * 4; }
 
@@ -86,7 +94,7 @@ uint64_t brm_bake_estimate_memory(const brm_scene *s, uint32_t t, const brm_bake
     if (g.kind == BRM_GRID_FRUSTUM) {
         unit_floats *= g.bricks[2];
         units = (uint64_t)effective_threads(o);
-        m += (uint64_t)effective_threads(o) * frustum_column_bytes(&g);
+        m += (uint64_t)effective_threads(o) * (frustum_column_bytes(&g) + frustum_batch_bytes());
     }
     m += units * unit_floats * sizeof(float);
     m += (uint64_t)brm_grid_brick_count(&g) * 64;   /* the writer's brick table */
@@ -387,6 +395,9 @@ typedef struct bake_ctx {
     uint64_t *light_samples;    /* per worker counters */
     double (*scratch)[3];       /* per worker: BRM_MAX_CELL_SAMPLES points */
     double *column;             /* per worker: frustum column scratch */
+    brm_kernel_view_sample *batch;  /* per worker: FRUSTUM_BATCH samples for the frustum tiles */
+    brm_media_point *batch_mp;      /* per worker: their media points */
+    double *batch_w;                /* per worker: their volume weights */
 } bake_ctx;
 
 /* Lights that can reach box b, into this worker's list: culled by range and cone, and by the
@@ -591,6 +602,78 @@ static void froxel_average(bake_ctx *j, uint32_t i, uint32_t jj, uint32_t k, con
     for (int c = 0; c < 3; c++) out[COL_S + c] = sc[c] * f;
 }
 
+/* The froxels of one tile [i0, i1) × [j0, j1) × [k0, k1), all lit by the same light list: their
+ * samples go through the kernel a batch at a time, light by light. The same values as
+ * froxel_average, summed in the same order. cols: the unit's columns from (lo0, lo1). */
+static void frustum_tile(bake_ctx *j, const uint32_t t0[3], const uint32_t t1[3], uint32_t lo0, uint32_t lo1, uint32_t nx,
+                         size_t col_stride, double *cols, const uint32_t *lights, uint32_t nl, int worker, uint64_t *evals)
+{
+    const brm_grid *g = j->grid;
+    const uint32_t S = sample_count(j->target);
+    if (S > FRUSTUM_BATCH) {
+        for (uint32_t k = t0[2]; k < t1[2]; k++)
+            for (uint32_t jj = t0[1]; jj < t1[1]; jj++)
+                for (uint32_t i = t0[0]; i < t1[0]; i++) {
+                    double *col = cols + ((size_t)(jj - lo1) * nx + (i - lo0)) * col_stride;
+                    froxel_average(j, i, jj, k, lights, nl, worker, col + (size_t)(k + 1) * COL_FIELDS, evals);
+                }
+        return;
+    }
+    brm_kernel_view_sample *vs = j->batch + (size_t)worker * FRUSTUM_BATCH;
+    brm_media_point *mp = j->batch_mp + (size_t)worker * FRUSTUM_BATCH;
+    double *wt = j->batch_w + (size_t)worker * FRUSTUM_BATCH;
+    double (*u)[3] = j->scratch + (size_t)worker * BRM_MAX_CELL_SAMPLES;
+    enum { TILE_FROXELS = FRUSTUM_TILE_XY * FRUSTUM_TILE_XY * FRUSTUM_TILE_Z };
+    double *dst[TILE_FROXELS];
+    uint32_t pending = 0, n = 0;
+    const uint32_t tile_froxels = (t1[0] - t0[0]) * (t1[1] - t0[1]) * (t1[2] - t0[2]);
+    uint32_t seen = 0;
+    for (uint32_t k = t0[2]; k < t1[2]; k++)
+        for (uint32_t jj = t0[1]; jj < t1[1]; jj++)
+            for (uint32_t i = t0[0]; i < t1[0]; i++) {
+                seen++;
+                double *out = cols + ((size_t)(jj - lo1) * nx + (i - lo0)) * col_stride + (size_t)(k + 1) * COL_FIELDS;
+                size_t gi = brm_grid_index(g, i, jj, k);
+                double occ = j->occ->fraction[gi];
+                out[COL_OCC] = occ;
+                out[COL_EXT] = out[COL_S] = out[COL_S + 1] = out[COL_S + 2] = 0.0;
+                if (occ < 1.0) {
+                    brm_cell_samples(j->seed ^ (uint64_t)gi * 0x9e3779b97f4a7c15ull, S, u);
+                    for (uint32_t si = 0; si < S; si++) {
+                        brm_vec3 p = brm_grid_point(g, i + u[si][0], jj + u[si][1], k + u[si][2]);
+                        brm_vec3 v = brm_sub(p, g->cam.position);
+                        double depth = brm_dot(v, g->fwd);
+                        vs[n].p = p;
+                        vs[n].view = brm_norm(v);
+                        vs[n].sample_index = (uint32_t)(gi * S + si);
+                        wt[n] = depth * depth;
+                        n++;
+                    }
+                    dst[pending++] = out;
+                }
+                /* Flush when the next froxel's samples would not fit, or at the tile's end. */
+                if (pending > 0 && (n + S > FRUSTUM_BATCH || seen == tile_froxels)) {
+                    brm_kernel_eval_view_batch(&j->kernel, vs, n, lights, nl, mp);
+                    for (uint32_t f = 0; f < pending; f++) {
+                        const brm_kernel_view_sample *q = vs + (size_t)f * S;
+                        const double *w = wt + (size_t)f * S;
+                        double wsum = 0.0, ext = 0.0, sc[3] = {0, 0, 0};
+                        for (uint32_t si = 0; si < S; si++) {
+                            *evals += q[si].light_evals;
+                            wsum += w[si];
+                            ext += w[si] * q[si].sigma_t;
+                            for (int c = 0; c < 3; c++) sc[c] += w[si] * q[si].toward_view[c];
+                        }
+                        double *o = dst[f];
+                        double fr = (1.0 - o[COL_OCC]) / wsum;
+                        o[COL_EXT] = ext * fr;
+                        for (int c = 0; c < 3; c++) o[COL_S + c] = sc[c] * fr;
+                    }
+                    pending = n = 0;
+                }
+            }
+}
+
 /* Energy-conserving integral of a slab with constant extinction and source (REFERENCES.md §6c):
  * ∫_0^len S·e^(−sigma·t) dt = S·(1 − e^(−sigma·len))/sigma, with the limit S·len as sigma → 0. */
 static double slab_integral(double S, double sigma, double len, double *trans)
@@ -630,12 +713,8 @@ static void frustum_unit(void *ctx, uint32_t unit, int worker, float *out)
                     brm_aabb_grow(&fb, brm_grid_point(g, (c & 1) ? i1 : i0, (c & 2) ? j1 : j0, (c & 4) ? k1 : k0));
                 uint32_t *lights;
                 uint32_t nl = cull_lights(j, fb, worker, &lights);
-                for (uint32_t k = k0; k < k1; k++)
-                    for (uint32_t jj = j0; jj < j1; jj++)
-                        for (uint32_t i = i0; i < i1; i++) {
-                            double *col = cols + ((size_t)(jj - lo[1]) * nx + (i - lo[0])) * col_stride;
-                            froxel_average(j, i, jj, k, lights, nl, worker, col + (size_t)(k + 1) * COL_FIELDS, &evals);
-                        }
+                const uint32_t t0[3] = {i0, j0, k0}, t1[3] = {i1, j1, k1};
+                frustum_tile(j, t0, t1, lo[0], lo[1], nx, col_stride, cols, lights, nl, worker, &evals);
             }
     for (uint32_t jj = lo[1]; jj < hi[1]; jj++)
         for (uint32_t i = lo[0]; i < hi[0]; i++) {
@@ -743,8 +822,14 @@ static brm_status bake_grid(const brm_scene *s, uint32_t t, const brm_bake_opts 
     c.sub_lists = calloc((size_t)threads * (s->light_count + 1), sizeof *c.sub_lists);
     c.light_samples = calloc((size_t)threads, sizeof *c.light_samples);
     c.scratch = malloc((size_t)threads * BRM_MAX_CELL_SAMPLES * sizeof *c.scratch);
-    if (tg->grid == BRM_GRID_FRUSTUM) c.column = malloc(frustum_column_bytes(&g) * (size_t)threads);
-    if (!c.light_lists || !c.sub_lists || !c.light_samples || !c.scratch || (tg->grid == BRM_GRID_FRUSTUM && !c.column)) {
+    if (tg->grid == BRM_GRID_FRUSTUM) {
+        c.column = malloc(frustum_column_bytes(&g) * (size_t)threads);
+        c.batch = malloc((size_t)threads * FRUSTUM_BATCH * sizeof *c.batch);
+        c.batch_mp = malloc((size_t)threads * FRUSTUM_BATCH * sizeof *c.batch_mp);
+        c.batch_w = malloc((size_t)threads * FRUSTUM_BATCH * sizeof *c.batch_w);
+    }
+    if (!c.light_lists || !c.sub_lists || !c.light_samples || !c.scratch ||
+        (tg->grid == BRM_GRID_FRUSTUM && (!c.column || !c.batch || !c.batch_mp || !c.batch_w))) {
         st = brm_diag_error(d, BRM_E_NOMEM, "%s: out of memory", tg->json_path);
         goto done;
     }
@@ -773,6 +858,9 @@ done:
     free(c.light_samples);
     free(c.scratch);
     free(c.column);
+    free(c.batch);
+    free(c.batch_mp);
+    free(c.batch_w);
     brm_shadows_free(ss);
     brm_bvh_free(bvh);
     brm_occupancy_free(&occ);

@@ -92,3 +92,65 @@ void brm_kernel_eval_view(const brm_kernel *k, brm_vec3 p, const uint32_t *light
 {
     kernel_eval(k, p, lights, light_count, sample_index, &view, false, out);
 }
+
+void brm_kernel_eval_view_batch(const brm_kernel *k, brm_kernel_view_sample *smp, uint32_t n, const uint32_t *lights,
+                                uint32_t light_count, brm_media_point *mp)
+{
+    const brm_scene *s = k->scene;
+    for (uint32_t i = 0; i < n; i++) {
+        brm_kernel_view_sample *q = &smp[i];
+        brm_media_eval(s, q->p, &mp[i]);
+        q->sigma_t = mp[i].sigma_t;
+        q->light_evals = 0;
+        q->toward_view[0] = q->toward_view[1] = q->toward_view[2] = 0.0;
+    }
+    /* A sample without scattering takes no light (kernel_eval returns early there). */
+#define BATCH_DARK(i) (mp[i].sigma_s.x <= 0.0 && mp[i].sigma_s.y <= 0.0 && mp[i].sigma_s.z <= 0.0)
+    for (uint32_t li = 0; li < light_count; li++) {
+        const uint32_t index = lights[li] & ~BRM_KERNEL_LIT;
+        const bool lit = (lights[li] & BRM_KERNEL_LIT) != 0;
+        const brm_light *l = &s->lights[index];
+        for (uint32_t i = 0; i < n; i++) {
+            if (BATCH_DARK(i)) continue;
+            brm_kernel_view_sample *q = &smp[i];
+            brm_vec3 to_light;
+            double dist;
+            double e = brm_light_illuminance(l, q->p, &to_light, &dist);
+            q->light_evals++;
+            if (e <= 0.0) continue;
+            if (!lit) {
+                double v = brm_shadow_visibility(k->shadows, index, q->p);
+                if (v <= 0.0) continue;
+                e *= v;
+            }
+            e *= brm_shadow_transmittance(k->shadows, index, q->p);
+            if (e <= 0.0) continue;
+            const double rgb[3] = {e * l->color.x, e * l->color.y, e * l->color.z};
+            brm_vec3 sp = brm_media_scatter_phase(s, &mp[i], brm_dot(q->view, to_light));
+            q->toward_view[0] += sp.x * rgb[0];
+            q->toward_view[1] += sp.y * rgb[1];
+            q->toward_view[2] += sp.z * rgb[2];
+        }
+    }
+    if (!s->sky.present) return;
+    for (uint32_t i = 0; i < n; i++) {
+        if (BATCH_DARK(i)) continue;
+        brm_kernel_view_sample *q = &smp[i];
+        double sky[3][4];
+        brm_sky_incident(k->shadows, q->p, q->sample_index, sky);
+        /* As in kernel_eval (Funk–Hecke, REFERENCES.md §2). */
+        double y[4];
+        brm_sh4(q->view, y);
+        for (uint32_t m = 0; m < mp[i].count; m++) {
+            const brm_medium *md = &s->media[mp[i].medium[m]];
+            double g1 = brm_phase_moment(&md->phase, 1);
+            const double alb[3] = {md->albedo.x, md->albedo.y, md->albedo.z};
+            for (int c = 0; c < 3; c++) {
+                double band0 = sky[c][0] * y[0];
+                double band1 = sky[c][1] * y[1] + sky[c][2] * y[2] + sky[c][3] * y[3];
+                q->toward_view[c] += mp[i].sigma_t_each[m] * alb[c] * (band0 + g1 * band1);
+            }
+        }
+    }
+#undef BATCH_DARK
+}

@@ -37,4 +37,22 @@ void brm_kernel_eval(const brm_kernel *k, brm_vec3 p, const uint32_t *lights, ui
 void brm_kernel_eval_view(const brm_kernel *k, brm_vec3 p, const uint32_t *lights, uint32_t light_count,
                           uint32_t sample_index, brm_vec3 view, brm_kernel_out *out);
 
+/* One sample of a batch for brm_kernel_eval_view_batch: p, view and sample_index in; the
+ * rest out. */
+typedef struct brm_kernel_view_sample {
+    brm_vec3 p;
+    brm_vec3 view;              /* unit direction from the camera toward p */
+    uint32_t sample_index;
+    uint32_t light_evals;       /* out: as brm_kernel_out */
+    double sigma_t;             /* out */
+    double toward_view[3];      /* out */
+} brm_kernel_view_sample;
+
+/* brm_kernel_eval_view for n samples that share one light list, light by light over all the
+ * samples (the lookups of one light's maps then follow each other). Each sample's fields get
+ * the same bits as brm_kernel_eval_view gives them: the sums run in the same order. mp: n
+ * media points of scratch. */
+void brm_kernel_eval_view_batch(const brm_kernel *k, brm_kernel_view_sample *smp, uint32_t n, const uint32_t *lights,
+                                uint32_t light_count, brm_media_point *mp);
+
 #endif
