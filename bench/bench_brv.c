@@ -108,6 +108,8 @@ enum {
     READER_F32_HOT,/* brv_decode_brick into one reused brick buffer */
     READER_F16,    /* brv_decode_brick_f16, halves into a whole-volume array */
     READER_F16_HOT,/* brv_decode_brick_f16 into one reused brick buffer */
+    READER_F32_NT, /* READER_F32 with brv_decoder_set_streaming */
+    READER_F16_NT, /* READER_F16 with brv_decoder_set_streaming */
     MODES
 };
 static const char *const mode_name[MODES] = {"zstd alone, into one reused buffer",
@@ -115,7 +117,9 @@ static const char *const mode_name[MODES] = {"zstd alone, into one reused buffer
                                              "reader, floats into the whole volume",
                                              "reader, floats into one reused brick buffer",
                                              "reader, halves into the whole volume",
-                                             "reader, halves into one reused brick buffer"};
+                                             "reader, halves into one reused brick buffer",
+                                             "reader, floats into the whole volume, streaming",
+                                             "reader, halves into the whole volume, streaming"};
 
 typedef struct job {
     const brv_volume *v;
@@ -150,13 +154,16 @@ static void *run_job(void *arg)
     }
     brv_decoder *dec;
     if (brv_decoder_create(j->v, &dec) != BRV_OK) exit(1);
+    brv_decoder_set_streaming(dec, j->mode == READER_F32_NT || j->mode == READER_F16_NT);
     float *hot = malloc(per * sizeof(float));
     uint16_t *hot16 = malloc(per * sizeof(uint16_t));
     for (uint32_t b = j->first; b < g->brick_count; b += j->step) {
         brv_result r = BRV_OK;
-        if (j->mode == READER_F32) r = brv_decode_brick(j->v, dec, b, j->out + (size_t)b * per, per);
+        if (j->mode == READER_F32 || j->mode == READER_F32_NT)
+            r = brv_decode_brick(j->v, dec, b, j->out + (size_t)b * per, per);
         else if (j->mode == READER_F32_HOT) r = brv_decode_brick(j->v, dec, b, hot, per);
-        else if (j->mode == READER_F16) r = brv_decode_brick_f16(j->v, dec, b, j->out16 + (size_t)b * per, per);
+        else if (j->mode == READER_F16 || j->mode == READER_F16_NT)
+            r = brv_decode_brick_f16(j->v, dec, b, j->out16 + (size_t)b * per, per);
         else r = brv_decode_brick_f16(j->v, dec, b, hot16, per);
         if (r != BRV_OK) exit(1);
     }
@@ -218,12 +225,12 @@ static void decode_bench(const char *label, const vol *f, int is_f16)
         double wall[MODES][REPS], cpu[MODES][REPS], mw[MODES], mc[MODES];
         for (int rep = 0; rep < REPS; rep++)
             for (int m = 0; m < MODES; m++) {
-                if (!is_f16 && (m == READER_F16 || m == READER_F16_HOT)) continue;
+                if (!is_f16 && (m == READER_F16 || m == READER_F16_HOT || m == READER_F16_NT)) continue;
                 job proto = {v, 0, 1, m, out, out16, placed, place, f->bytes};
                 run_once(proto, th, &wall[m][rep], &cpu[m][rep]);
             }
         for (int m = 0; m < MODES; m++) {
-            if (!is_f16 && (m == READER_F16 || m == READER_F16_HOT)) continue;
+            if (!is_f16 && (m == READER_F16 || m == READER_F16_HOT || m == READER_F16_NT)) continue;
             qsort(wall[m], REPS, sizeof(double), cmp_double);
             qsort(cpu[m], REPS, sizeof(double), cmp_double);
             mw[m] = wall[m][REPS / 2];
@@ -231,12 +238,15 @@ static void decode_bench(const char *label, const vol *f, int is_f16)
             printf("    %d thread%s %-52s %6.3f s wall %6.3f s cpu\n", th, th > 1 ? "s" : " ", mode_name[m], mw[m], mc[m]);
         }
         int same = is_f16 ? READER_F16 : READER_F32, same_hot = is_f16 ? READER_F16_HOT : READER_F32_HOT;
+        int same_nt = is_f16 ? READER_F16_NT : READER_F32_NT;
         printf("    %d thread%s fair   (same encoding, same kind of destination): reader at %5.1f %% of zstd's speed "
-               "(cpu; wall %5.1f %%)\n", th, th > 1 ? "s" : " ", 100.0 * mc[ZSTD_PLACED] / mc[same],
-               100.0 * mw[ZSTD_PLACED] / mw[same]);
-        printf("    %d thread%s strict (zstd into one reused buffer): reader floats into the whole volume at %5.1f %%; "
-               "reader %s into one reused brick buffer at %5.1f %% (cpu)\n", th, th > 1 ? "s" : " ",
-               100.0 * mc[ZSTD_HOT] / mc[READER_F32], is_f16 ? "halves" : "floats", 100.0 * mc[ZSTD_HOT] / mc[same_hot]);
+               "(cpu; wall %5.1f %%); with streaming stores %5.1f %% (cpu; wall %5.1f %%)\n", th, th > 1 ? "s" : " ",
+               100.0 * mc[ZSTD_PLACED] / mc[same], 100.0 * mw[ZSTD_PLACED] / mw[same],
+               100.0 * mc[ZSTD_PLACED] / mc[same_nt], 100.0 * mw[ZSTD_PLACED] / mw[same_nt]);
+        printf("    %d thread%s strict (zstd into one reused buffer): reader floats into the whole volume at %5.1f %% "
+               "(streaming %5.1f %%); reader %s into one reused brick buffer at %5.1f %% (cpu)\n", th, th > 1 ? "s" : " ",
+               100.0 * mc[ZSTD_HOT] / mc[READER_F32], 100.0 * mc[ZSTD_HOT] / mc[READER_F32_NT],
+               is_f16 ? "halves" : "floats", 100.0 * mc[ZSTD_HOT] / mc[same_hot]);
         if (is_f16)
             printf("    %d thread%s strict: reader halves into the whole volume at %5.1f %%, floats into one reused "
                    "brick buffer at %5.1f %% (cpu)\n", th, th > 1 ? "s" : " ", 100.0 * mc[ZSTD_HOT] / mc[READER_F16],

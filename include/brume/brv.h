@@ -295,6 +295,13 @@ BRV_API brv_result brv_brick_extent(const brv_volume *v, uint32_t b, uint32_t or
 BRV_API brv_result brv_decoder_create(const brv_volume *v, brv_decoder **out);
 /* Frees a decoder; accepts NULL. */
 BRV_API void brv_decoder_free(brv_decoder *d);
+/* on ≠ 0: the decoder writes brv_decode_brick and brv_decode_brick_f16 output with streaming
+ * (cache-bypassing) stores where the machine has them (SSE2) and the output is 16-byte
+ * aligned — faster when the output will not be read again soon, as when a whole volume is
+ * decoded brick by brick into one large array; slower when it will, as with a small reused
+ * buffer. Off by default. The values are the same either way and are visible to other
+ * threads when the call returns. Accepts NULL. */
+BRV_API void brv_decoder_set_streaming(brv_decoder *d, int on);
 
 /* Decodes brick b, every channel, channel-major in the layout brv_writer_put_brick takes:
  * out[c·nx·ny·nz + x + nx·(y + ny·z)], nx·ny·nz the brick's clipped extent.

@@ -130,7 +130,10 @@ void brv_unshuffle(const uint8_t *src, uint8_t *dst, size_t n, unsigned word_byt
 
 /* The inverse filters of one group, fused with the conversion (unfilter.c): n words of a
  * brick with rows of nx cells, byte planes at src, scale 2^ex, floats to out (rgb9e5: three
- * planes of n). simd = 0 forces the scalar reference, which the tests compare against. */
+ * planes of n). simd = 0 forces the scalar reference, which the tests compare against; 2 asks
+ * for streaming (cache-bypassing) stores, used when out is 16-byte aligned: the same values,
+ * ordered for other threads only after brv_store_fence. */
+void brv_store_fence(void);
 void brv_unfilter_f16(const uint8_t *src, size_t n, uint32_t nx, int ex, float *out, int simd);
 void brv_unfilter_w32(const uint8_t *src, size_t n, uint32_t nx, int ex, uint32_t code, float *out, int simd);
 /* An f16 group stored without scale (scale_exp 0) kept as halves: the words themselves to out.

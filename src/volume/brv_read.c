@@ -55,6 +55,7 @@ struct brv_decoder {
     float *scratch; /* one full brick, every channel */
     uint8_t *stored; /* bricks read on demand: one brick's stored bytes */
     uint16_t *half;  /* one full brick as halves */
+    int stream;      /* brv_decoder_set_streaming */
 };
 
 const brv_allocator *brv_volume_allocator(const brv_volume *v) { return v->has_alloc ? &v->alloc : NULL; }
@@ -459,6 +460,11 @@ brv_result brv_decoder_create(const brv_volume *v, brv_decoder **out)
     return BRV_OK;
 }
 
+void brv_decoder_set_streaming(brv_decoder *d, int on)
+{
+    if (d) d->stream = on != 0;
+}
+
 void brv_decoder_free(brv_decoder *d)
 {
     if (!d) return;
@@ -502,7 +508,8 @@ static brv_result brick_bytes(const brv_volume *v, brv_decoder *dec, uint64_t of
  * rounding of brv_f32_to_f16. Returns BRV_E_UNREPRESENTABLE for a value beyond binary16's range
  * (after writing every word). */
 static brv_result group_to_f16(brv_decoder *dec, const rgroup *g, unsigned mode, unsigned wb, int ex,
-                               const uint8_t *p, size_t n, uint32_t nx, int only, uint16_t *dst, int8_t *raw_ex)
+                               const uint8_t *p, size_t n, uint32_t nx, int only, uint16_t *dst, int8_t *raw_ex,
+                               int simd)
 {
     if ((raw_ex && g->code == BRV_ENCODING_F16) || (g->code == BRV_ENCODING_F16 && ex == 0)) {
         if (raw_ex) raw_ex[g->first] = (int8_t)ex; /* the stored halves, the scale given apart */
@@ -512,7 +519,7 @@ static brv_result group_to_f16(brv_decoder *dec, const rgroup *g, unsigned mode,
             for (size_t i = 0; i < n; i++) dst[i] = h;
             special = (h & 0x7C00u) == 0x7C00u;
         } else {
-            special = brv_unfilter_f16_halves(p, n, nx, dst, 1);
+            special = brv_unfilter_f16_halves(p, n, nx, dst, simd);
         }
         return special ? BRV_E_UNREPRESENTABLE : BRV_OK;
     }
@@ -580,19 +587,21 @@ static brv_result decode_brick(const brv_volume *v, brv_decoder *dec, uint32_t b
         if (wanted && !g->wb) return BRV_E_VERSION; /* a newer minor's encoding */
         if (wanted && !out) {
             uint16_t *dst = only < 0 ? out16 + (size_t)g->first * n : out16;
-            if (group_to_f16(dec, g, mode, wb, ex, p, n, e[0], only, dst, raw_ex) != BRV_OK)
+            if (group_to_f16(dec, g, mode, wb, ex, p, n, e[0], only, dst, raw_ex, dec->stream ? 2 : 1) != BRV_OK)
                 range = BRV_E_UNREPRESENTABLE;
         } else if (wanted) {
             float sc = ldexpf(1.0f, ex);
             float *dst = only < 0 ? out + (size_t)g->first * n : (g->count == 1 ? out : dec->scratch);
+            int simd = dec->stream && dst != dec->scratch ? 2 : 1; /* staging stays in the caches */
             if (mode == BRV_MODE_CONSTANT) decode_constant(p, n, g->code, sc, dst);
-            else if (wb == 2) brv_unfilter_f16(p, n, e[0], ex, dst, 1);
-            else brv_unfilter_w32(p, n, e[0], ex, g->code, dst, 1);
+            else if (wb == 2) brv_unfilter_f16(p, n, e[0], ex, dst, simd);
+            else brv_unfilter_w32(p, n, e[0], ex, g->code, dst, simd);
             if (only >= 0 && g->count > 1)
                 memmove(out, dec->scratch + (size_t)((uint32_t)only - g->first) * n, n * sizeof(float));
         }
         p += len;
     }
+    if (dec->stream) brv_store_fence(); /* streaming stores are ordered before the return */
     if (p != end) return BRV_E_BRICK_CORRUPT;
     return range;
 }

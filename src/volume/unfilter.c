@@ -74,6 +74,19 @@ static void w32_scalar(const uint8_t *restrict src, size_t n, uint32_t nx, float
 /* ---- SSE2 ------------------------------------------------------------------------------ */
 #if defined(__SSE2__)
 
+/* Stores 4 floats or 16 bytes at a 16-byte aligned address: nt (streaming) bypasses the
+ * caches, for output that will not be read again soon; otherwise unaligned stores. */
+static inline void put_ps(float *p, __m128 v, int nt)
+{
+    if (nt) _mm_stream_ps(p, v);
+    else _mm_storeu_ps(p, v);
+}
+static inline void put_si(void *p, __m128i v, int nt)
+{
+    if (nt) _mm_stream_si128((__m128i *)p, v);
+    else _mm_storeu_si128((__m128i *)p, v);
+}
+
 /* Prefix sum of 8 u16 lanes. */
 static inline __m128i prefix16(__m128i v)
 {
@@ -95,7 +108,7 @@ static inline __m128i last16(__m128i v) { return _mm_shuffle_epi32(_mm_shufflehi
 /* 8 halves to 8 floats times k (k = 2^112·scale), stored at out. (h << 16) >> 3 arithmetic
  * puts the sign at bit 31 (and copies of it at 28–30, masked off) and the exponent and
  * fraction at bits 13–27. */
-static inline void halves8(__m128i h, __m128 k, __m128 k2, int two, float *out)
+static inline void halves8(__m128i h, __m128 k, __m128 k2, int two, float *out, int nt)
 {
     const __m128i keep = _mm_set1_epi32((int)0x8FFFE000u), zero = _mm_setzero_si128();
     __m128 a = _mm_castsi128_ps(_mm_and_si128(_mm_srai_epi32(_mm_unpacklo_epi16(zero, h), 3), keep));
@@ -106,11 +119,11 @@ static inline void halves8(__m128i h, __m128 k, __m128 k2, int two, float *out)
         a = _mm_mul_ps(a, k2);
         b = _mm_mul_ps(b, k2);
     }
-    _mm_storeu_ps(out, a);
-    _mm_storeu_ps(out + 4, b);
+    put_ps(out, a, nt);
+    put_ps(out + 4, b, nt);
 }
 
-static int f16_sse2(const uint8_t *restrict src, size_t n, uint32_t nx, int ex, float *restrict out)
+static int f16_sse2(const uint8_t *restrict src, size_t n, uint32_t nx, int ex, float *restrict out, int nt)
 {
     const uint8_t *lo = src, *hi = src + n;
     const __m128i expm = _mm_set1_epi16(0x7C00);
@@ -126,8 +139,8 @@ static int f16_sse2(const uint8_t *restrict src, size_t n, uint32_t nx, int ex, 
             __m128i v1 = _mm_add_epi16(prefix16(_mm_unpackhi_epi8(l, h)), last16(v0));
             special = _mm_or_si128(special, _mm_cmpeq_epi16(_mm_and_si128(v0, expm), expm));
             special = _mm_or_si128(special, _mm_cmpeq_epi16(_mm_and_si128(v1, expm), expm));
-            halves8(v0, k, k2, two, out + row);
-            halves8(v1, k, k2, two, out + row + 8);
+            halves8(v0, k, k2, two, out + row, nt);
+            halves8(v1, k, k2, two, out + row + 8, nt);
         }
     } else {
         for (size_t row = 0; row < n; row += nx) {
@@ -138,14 +151,14 @@ static int f16_sse2(const uint8_t *restrict src, size_t n, uint32_t nx, int ex, 
                 __m128i v = _mm_add_epi16(prefix16(_mm_unpacklo_epi8(l, h)), carry);
                 carry = last16(v);
                 special = _mm_or_si128(special, _mm_cmpeq_epi16(_mm_and_si128(v, expm), expm));
-                halves8(v, k, k2, two, out + i);
+                halves8(v, k, k2, two, out + i, nt);
             }
         }
     }
     return _mm_movemask_epi8(special) != 0;
 }
 
-static int f16h_sse2(const uint8_t *restrict src, size_t n, uint32_t nx, uint16_t *restrict out)
+static int f16h_sse2(const uint8_t *restrict src, size_t n, uint32_t nx, uint16_t *restrict out, int nt)
 {
     const uint8_t *lo = src, *hi = src + n;
     const __m128i expm = _mm_set1_epi16(0x7C00);
@@ -158,8 +171,8 @@ static int f16h_sse2(const uint8_t *restrict src, size_t n, uint32_t nx, uint16_
             __m128i v1 = _mm_add_epi16(prefix16(_mm_unpackhi_epi8(l, h)), last16(v0));
             special = _mm_or_si128(special, _mm_cmpeq_epi16(_mm_and_si128(v0, expm), expm));
             special = _mm_or_si128(special, _mm_cmpeq_epi16(_mm_and_si128(v1, expm), expm));
-            _mm_storeu_si128((__m128i *)(void *)(out + row), v0);
-            _mm_storeu_si128((__m128i *)(void *)(out + row + 8), v1);
+            put_si(out + row, v0, nt);
+            put_si(out + row + 8, v1, nt);
         }
     } else {
         for (size_t row = 0; row < n; row += nx) {
@@ -170,7 +183,7 @@ static int f16h_sse2(const uint8_t *restrict src, size_t n, uint32_t nx, uint16_
                 __m128i v = _mm_add_epi16(prefix16(_mm_unpacklo_epi8(l, h)), carry);
                 carry = last16(v);
                 special = _mm_or_si128(special, _mm_cmpeq_epi16(_mm_and_si128(v, expm), expm));
-                _mm_storeu_si128((__m128i *)(void *)(out + i), v);
+                put_si(out + i, v, nt);
             }
         }
     }
@@ -206,17 +219,17 @@ static inline __m128i words4(const uint8_t *b0, const uint8_t *b1, const uint8_t
     return _mm_unpacklo_epi16(lo, hi);
 }
 
-static inline void rgb4(__m128i v, __m128 s4, size_t n, float *out)
+static inline void rgb4(__m128i v, __m128 s4, size_t n, float *out, int nt)
 {
     const __m128i m9 = _mm_set1_epi32(0x1FF), bias = _mm_set1_epi32(103);
     __m128 q = _mm_mul_ps(_mm_castsi128_ps(_mm_slli_epi32(_mm_add_epi32(_mm_srli_epi32(v, 27), bias), 23)), s4);
-    _mm_storeu_ps(out, _mm_mul_ps(_mm_cvtepi32_ps(_mm_and_si128(v, m9)), q));
-    _mm_storeu_ps(out + n, _mm_mul_ps(_mm_cvtepi32_ps(_mm_and_si128(_mm_srli_epi32(v, 9), m9)), q));
-    _mm_storeu_ps(out + 2 * n, _mm_mul_ps(_mm_cvtepi32_ps(_mm_and_si128(_mm_srli_epi32(v, 18), m9)), q));
+    put_ps(out, _mm_mul_ps(_mm_cvtepi32_ps(_mm_and_si128(v, m9)), q), nt);
+    put_ps(out + n, _mm_mul_ps(_mm_cvtepi32_ps(_mm_and_si128(_mm_srli_epi32(v, 9), m9)), q), nt);
+    put_ps(out + 2 * n, _mm_mul_ps(_mm_cvtepi32_ps(_mm_and_si128(_mm_srli_epi32(v, 18), m9)), q), nt);
 }
 
 static void w32_sse2(const uint8_t *restrict src, size_t n, uint32_t nx, float sc, uint32_t code,
-                     float *restrict out)
+                     float *restrict out, int nt)
 {
     const uint8_t *b0 = src, *b1 = src + n, *b2 = src + 2 * n, *b3 = src + 3 * n;
     const __m128 s4 = _mm_set1_ps(sc);
@@ -230,8 +243,8 @@ static void w32_sse2(const uint8_t *restrict src, size_t n, uint32_t nx, float s
                 for (int q = 0; q < 4; q++) {
                     w[q] = _mm_add_epi32(prefix32(w[q]), carry);
                     carry = _mm_shuffle_epi32(w[q], 0xFF);
-                    if (f32) _mm_storeu_ps(out + i + 4 * q, _mm_castsi128_ps(w[q]));
-                    else rgb4(w[q], s4, n, out + i + 4 * q);
+                    if (f32) put_ps(out + i + 4 * q, _mm_castsi128_ps(w[q]), nt);
+                    else rgb4(w[q], s4, n, out + i + 4 * q, nt);
                 }
             }
         }
@@ -242,20 +255,30 @@ static void w32_sse2(const uint8_t *restrict src, size_t n, uint32_t nx, float s
         for (size_t i = row; i < row + nx; i += 4) {
             __m128i v = _mm_add_epi32(prefix32(words4(b0, b1, b2, b3, i)), carry);
             carry = _mm_shuffle_epi32(v, 0xFF);
-            if (f32) _mm_storeu_ps(out + i, _mm_castsi128_ps(v));
-            else rgb4(v, s4, n, out + i);
+            if (f32) put_ps(out + i, _mm_castsi128_ps(v), nt);
+            else rgb4(v, s4, n, out + i, nt);
         }
     }
 }
 #endif
 
 /* ---- entry points ---------------------------------------------------------------------- */
+/* simd: 0 the scalar reference, 1 SSE2 where there is, 2 SSE2 with streaming stores when out is
+ * 16-byte aligned (the caller then issues brv_store_fence before the output is shared). */
+
+void brv_store_fence(void)
+{
+#if defined(__SSE2__)
+    _mm_sfence();
+#endif
+}
+
 
 void brv_unfilter_f16(const uint8_t *src, size_t n, uint32_t nx, int ex, float *out, int simd)
 {
 #if defined(__SSE2__)
     if (simd && nx % 8 == 0) {
-        if (!f16_sse2(src, n, nx, ex, out)) return;
+        if (!f16_sse2(src, n, nx, ex, out, simd == 2 && ((uintptr_t)out & 15) == 0)) return;
         /* an infinity or NaN: redo the group exactly */
     }
 #else
@@ -267,7 +290,7 @@ void brv_unfilter_f16(const uint8_t *src, size_t n, uint32_t nx, int ex, float *
 int brv_unfilter_f16_halves(const uint8_t *src, size_t n, uint32_t nx, uint16_t *out, int simd)
 {
 #if defined(__SSE2__)
-    if (simd && nx % 8 == 0) return f16h_sse2(src, n, nx, out);
+    if (simd && nx % 8 == 0) return f16h_sse2(src, n, nx, out, simd == 2 && ((uintptr_t)out & 15) == 0);
 #else
     (void)simd;
 #endif
@@ -279,7 +302,7 @@ void brv_unfilter_w32(const uint8_t *src, size_t n, uint32_t nx, int ex, uint32_
     float sc = ldexpf(1.0f, ex);
 #if defined(__SSE2__)
     if (simd && nx % 4 == 0) {
-        w32_sse2(src, n, nx, sc, code, out);
+        w32_sse2(src, n, nx, sc, code, out, simd == 2 && ((uintptr_t)out & 15) == 0);
         return;
     }
 #else

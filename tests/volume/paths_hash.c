@@ -47,6 +47,18 @@ int main(void)
             (void)brv_decode_channel_f16(v, c, h, n); /* bright values may be out of f16 range */
             hh = fnv(hh, h, n * sizeof *h);
         }
+        /* Every brick through a streaming decoder (a no-op without SSE2). */
+        brv_decoder *dec;
+        size_t per = brv_brick_size(v);
+        float *bf = malloc(per * sizeof *bf);
+        if (!bf || brv_decoder_create(v, &dec) != BRV_OK) return 1;
+        brv_decoder_set_streaming(dec, 1);
+        for (uint32_t b = 0; b < g->brick_count; b++) {
+            if (brv_decode_brick(v, dec, b, bf, per) != BRV_OK) return 1;
+            hd = fnv(hd, bf, per * sizeof *bf);
+        }
+        brv_decoder_free(dec);
+        free(bf);
         brv_sampler *s, *part;
         static const uint32_t pick[2] = {3, 0};
         if (brv_sampler_create(v, 4, &s) != BRV_OK || brv_sampler_create_channels(v, 0, pick, 2, &part) != BRV_OK)

@@ -994,6 +994,49 @@ static void sampler_should_interpolate_decoded_values_on_every_path(void **state
     }
 }
 
+/* Streaming stores change where the output goes in the memory system, not what it is: every
+ * encoding, aligned and unaligned outputs, floats and halves, the same as without. */
+static void streaming_decoder_should_give_the_same_values(void **state)
+{
+    (void)state;
+    static const brv_channel_desc ch[6] = {{"extinction", "1/m", BRV_ENCODING_F16},
+                                           {"occupancy", "", BRV_ENCODING_F32},
+                                           {"inscatter.r", "", BRV_ENCODING_RGB9E5},
+                                           {"inscatter.g", "", BRV_ENCODING_RGB9E5},
+                                           {"inscatter.b", "", BRV_ENCODING_RGB9E5},
+                                           {"sun", "cd/m2", BRV_ENCODING_F16}};
+    brv_write_desc d = fixture_world(37, 21, 18, ch, 6);
+    size_t size;
+    uint8_t *buf = write_or_fail(&d, bright_field, NULL, &size);
+    brv_volume *v = open_or_fail(buf, size);
+    size_t per = brv_brick_size(v);
+    size_t room = (per + 32 + 31) / 32 * 32; /* aligned_alloc wants a multiple of the alignment */
+    float *plain = aligned_alloc(64, room * sizeof(float)), *fast = aligned_alloc(64, room * sizeof(float));
+    uint16_t *hplain = aligned_alloc(64, room * 2), *hfast = aligned_alloc(64, room * 2);
+    brv_decoder *d0, *d1;
+    assert_int_equal(brv_decoder_create(v, &d0), BRV_OK);
+    assert_int_equal(brv_decoder_create(v, &d1), BRV_OK);
+    brv_decoder_set_streaming(d1, 1);
+    brv_decoder_set_streaming(NULL, 1); /* accepted */
+    for (uint32_t b = 0; b < brv_grid(v)->brick_count; b++)
+        for (int shift = 0; shift < 2; shift++) { /* 16-byte aligned, and not */
+            assert_int_equal(brv_decode_brick(v, d0, b, plain + shift, per), BRV_OK);
+            assert_int_equal(brv_decode_brick(v, d1, b, fast + shift, per), BRV_OK);
+            assert_memory_equal(plain + shift, fast + shift, per * sizeof(float));
+            brv_result r0 = brv_decode_brick_f16(v, d0, b, hplain + shift, per);
+            assert_int_equal(brv_decode_brick_f16(v, d1, b, hfast + shift, per), r0);
+            assert_memory_equal(hplain + shift, hfast + shift, per * 2);
+        }
+    brv_decoder_free(d0);
+    brv_decoder_free(d1);
+    free(plain);
+    free(fast);
+    free(hplain);
+    free(hfast);
+    brv_free(v);
+    free(buf);
+}
+
 /* ---- halves straight from the stored words ---------------------------------------------- */
 
 /* brv_decode_brick_f16 and brv_decode_channel_f16 give, for every encoding (unscaled f16
@@ -1305,6 +1348,7 @@ int main(int argc, char **argv)
         cmocka_unit_test(distinct_bricks_should_decode_from_two_threads_at_once),
         cmocka_unit_test(result_texts_should_come_from_one_list),
         cmocka_unit_test(decode_to_halves_should_equal_rounded_floats),
+        cmocka_unit_test(streaming_decoder_should_give_the_same_values),
         cmocka_unit_test(sampler_should_interpolate_decoded_values_on_every_path),
         cmocka_unit_test(open_file_should_read_bricks_on_demand),
         cmocka_unit_test(open_file_should_reject_every_truncation_and_flip_on_disk),

@@ -159,7 +159,7 @@ static void unfilter_should_match_scalar_reference_bit_for_bit(void **state)
     (void)state;
     enum { N = 65536 };
     uint8_t *words = malloc(4u * N), *planes = malloc(4u * N);
-    float *a = malloc(3 * sizeof(float) * N), *b = malloc(3 * sizeof(float) * N);
+    float *a = aligned_alloc(16, 3 * sizeof(float) * N), *b = malloc(3 * sizeof(float) * N); /* a: streamable */
     uint32_t seed = 12345;
     for (uint32_t w = 0; w < N; w++) brv_wr16(words + 2 * w, (uint16_t)(w * 40503u)); /* every word, scattered */
     static const uint32_t nxs[] = {16, 8, 32, 5};
@@ -168,8 +168,11 @@ static void unfilter_should_match_scalar_reference_bit_for_bit(void **state)
         size_t n = N - N % nxs[i];
         shuffle_delta(words, n, 2, nxs[i], planes);
         for (size_t k = 0; k < sizeof exs / sizeof exs[0]; k++) {
-            brv_unfilter_f16(planes, n, nxs[i], exs[k], a, 1);
+            brv_unfilter_f16(planes, n, nxs[i], exs[k], a, 2); /* streaming stores: the same values */
+            brv_store_fence();
             brv_unfilter_f16(planes, n, nxs[i], exs[k], b, 0);
+            assert_memory_equal(a, b, n * sizeof(float));
+            brv_unfilter_f16(planes, n, nxs[i], exs[k], a, 1);
             assert_memory_equal(a, b, n * sizeof(float));
             for (size_t j = 0; j < n; j++) {
                 float want = half_by_formula(brv_rd16(words + 2 * j)) * ldexpf(1.0f, exs[k]);
@@ -185,12 +188,18 @@ static void unfilter_should_match_scalar_reference_bit_for_bit(void **state)
     for (size_t i = 0; i < sizeof nxs / sizeof nxs[0]; i++) {
         size_t n = N - N % nxs[i];
         shuffle_delta(words, n, 4, nxs[i], planes);
-        brv_unfilter_w32(planes, n, nxs[i], 0, BRV_ENCODING_F32, a, 1);
+        brv_unfilter_w32(planes, n, nxs[i], 0, BRV_ENCODING_F32, a, 2);
+        brv_store_fence();
         brv_unfilter_w32(planes, n, nxs[i], 0, BRV_ENCODING_F32, b, 0);
         assert_memory_equal(a, b, n * sizeof(float));
+        brv_unfilter_w32(planes, n, nxs[i], 0, BRV_ENCODING_F32, a, 1);
+        assert_memory_equal(a, b, n * sizeof(float));
         for (size_t j = 0; j < n; j++) assert_int_equal(brv_f32_bits(a[j]), brv_rd32(words + 4 * j));
-        brv_unfilter_w32(planes, n, nxs[i], 7, BRV_ENCODING_RGB9E5, a, 1);
+        brv_unfilter_w32(planes, n, nxs[i], 7, BRV_ENCODING_RGB9E5, a, 2);
+        brv_store_fence();
         brv_unfilter_w32(planes, n, nxs[i], 7, BRV_ENCODING_RGB9E5, b, 0);
+        assert_memory_equal(a, b, 3 * n * sizeof(float));
+        brv_unfilter_w32(planes, n, nxs[i], 7, BRV_ENCODING_RGB9E5, a, 1);
         assert_memory_equal(a, b, 3 * n * sizeof(float));
         for (size_t j = 0; j < n; j += 97) {
             uint32_t p = brv_rd32(words + 4 * j);
@@ -214,14 +223,17 @@ static void halves_unfilter_should_return_the_stored_words(void **state)
     (void)state;
     enum { N = 65536 };
     uint8_t *words = malloc(2u * N), *planes = malloc(2u * N);
-    uint16_t *a = malloc(2u * N), *b = malloc(2u * N);
+    uint16_t *a = aligned_alloc(16, 2u * N), *b = malloc(2u * N); /* a: streamable */
     static const uint32_t nxs[] = {16, 8, 32, 5};
     for (size_t i = 0; i < sizeof nxs / sizeof nxs[0]; i++) {
         for (uint32_t w = 0; w < N; w++) brv_wr16(words + 2 * w, (uint16_t)(w * 40503u)); /* every word */
         size_t n = N - N % nxs[i];
         shuffle_delta(words, n, 2, nxs[i], planes);
-        assert_int_equal(brv_unfilter_f16_halves(planes, n, nxs[i], a, 1), 1); /* 0x7C00.. are there */
+        assert_int_equal(brv_unfilter_f16_halves(planes, n, nxs[i], a, 2), 1); /* 0x7C00.. are there */
+        brv_store_fence();
         assert_int_equal(brv_unfilter_f16_halves(planes, n, nxs[i], b, 0), 1);
+        assert_memory_equal(a, b, n * sizeof(uint16_t));
+        assert_int_equal(brv_unfilter_f16_halves(planes, n, nxs[i], a, 1), 1);
         assert_memory_equal(a, b, n * sizeof(uint16_t));
         for (size_t j = 0; j < n; j++) assert_int_equal(a[j], brv_rd16(words + 2 * j));
         /* Only finite words: no flag. */

@@ -212,6 +212,8 @@ static void read_opened(brv_volume *v)
     if (brick && brv_decoder_create(v, &dec) == BRV_OK) {
         for (uint32_t b = 0; b < g->brick_count && b < 4; b++) (void)brv_decode_brick(v, dec, b, brick, brv_brick_size(v));
         uint16_t *h = malloc(brv_brick_size(v) * sizeof *h);
+        brv_decoder_set_streaming(dec, 1);
+        for (uint32_t b = 0; b < g->brick_count && b < 4; b++) (void)brv_decode_brick(v, dec, b, brick, brv_brick_size(v));
         for (uint32_t b = 0; h && b < g->brick_count && b < 4; b++)
             (void)brv_decode_brick_f16(v, dec, b, h, brv_brick_size(v));
         free(h);
