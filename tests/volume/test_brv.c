@@ -995,7 +995,8 @@ static void sampler_should_interpolate_decoded_values_on_every_path(void **state
 }
 
 /* Streaming stores change where the output goes in the memory system, not what it is: every
- * encoding, aligned and unaligned outputs, floats and halves, the same as without. */
+ * encoding, aligned and unaligned outputs, floats and halves, bricks and the whole grid, the
+ * same as without. */
 static void streaming_decoder_should_give_the_same_values(void **state)
 {
     (void)state;
@@ -1033,6 +1034,25 @@ static void streaming_decoder_should_give_the_same_values(void **state)
     free(fast);
     free(hplain);
     free(hfast);
+    brv_free(v);
+    free(buf);
+    /* brv_decode_all streams whole 64-byte rows into the grid: rows of 16 floats, 64-byte
+     * aligned (all of them) or shifted by one float (none), the same values. */
+    d = fixture_world(64, 20, 18, ch, 6);
+    buf = write_or_fail(&d, bright_field, NULL, &size);
+    v = open_or_fail(buf, size);
+    size_t all = brv_all_size(v), room_all = (all + 16 + 15) / 16 * 16;
+    float *ga = aligned_alloc(64, room_all * sizeof(float)), *gb = aligned_alloc(64, room_all * sizeof(float));
+    assert_int_equal(brv_decode_all(v, ga, all), BRV_OK);
+    assert_int_equal(brv_decode_all(v, gb + 1, all), BRV_OK);
+    assert_memory_equal(ga, gb + 1, all * sizeof(float));
+    size_t n = brv_channel_size(v);
+    for (uint32_t c = 0; c < 6; c++) { /* and each channel alone, through the same rows */
+        assert_int_equal(brv_decode_channel(v, c, gb, n), BRV_OK);
+        assert_memory_equal(gb, ga + c * n, n * sizeof(float));
+    }
+    free(ga);
+    free(gb);
     brv_free(v);
     free(buf);
 }
