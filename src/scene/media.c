@@ -40,12 +40,19 @@ struct brm_noise_table {
  * gradients picked by the low four hash bits. */
 static inline double fade(double t) { return t * t * t * (t * (t * 6.0 - 15.0) + 10.0); }
 
+/* The gradient of hash h: u = (h < 8 ? x : y), v = (h < 4 ? y : h is 12 or 14 ? x : z), the
+ * result (h & 1 ? −u : u) + (h & 2 ? −v : v), written as a dot product with a table of 0 and ±1
+ * so it takes no branch on the hash. Multiplying by ±1 or 0 and adding 0 are exact, and the
+ * two terms that remain are added in either order, so the value is the same (up to the sign
+ * of a zero, which 1 + strength·n does not keep). */
+static const double grad_tab[16][3] = {
+    {1, 1, 0},  {-1, 1, 0},  {1, -1, 0},  {-1, -1, 0}, {1, 0, 1},  {-1, 0, 1},  {1, 0, -1},  {-1, 0, -1},
+    {0, 1, 1},  {0, -1, 1},  {0, 1, -1},  {0, -1, -1}, {1, 1, 0},  {0, -1, 1},  {-1, 1, 0},  {0, -1, -1}};
+
 static inline double grad(unsigned h, double x, double y, double z)
 {
-    h &= 15u;
-    double u = h < 8u ? x : y;
-    double v = h < 4u ? y : (h == 12u || h == 14u) ? x : z;
-    return ((h & 1u) ? -u : u) + ((h & 2u) ? -v : v);
+    const double *g = grad_tab[h & 15u];
+    return g[0] * x + g[1] * y + g[2] * z;
 }
 
 static inline double lerp(double t, double a, double b) { return a + t * (b - a); }
