@@ -322,9 +322,11 @@ BRV_API brv_result brv_decode_brick_f16(const brv_volume *v, brv_decoder *dec, u
 
 /* Decodes one channel of the whole grid into out (x fastest, then y, then z).
  * Returns as brv_decode_brick. out_count ≥ brv_channel_size(v).
- * Notes: whole 64-byte rows go to out with streaming (cache-bypassing) stores where the machine
- * has them (SSE2), as for brv_decode_all and brv_decode_channel_f16: a grid is larger than the
- * caches; the values are the same either way and visible to other threads on return. */
+ * Notes: a brick row that is a whole 64-byte line of out (16 floats starting on a 64-byte
+ * boundary: give out 64-byte alignment, e.g. aligned_alloc(64, …), and cells[0] a multiple of
+ * 16) goes with a streaming (cache-bypassing) store where the machine has them (SSE2), as in
+ * brv_decode_all: a grid is larger than the caches. The values are the same either way and
+ * visible to other threads on return. */
 BRV_API brv_result brv_decode_channel(const brv_volume *v, uint32_t channel, float *out, size_t out_count);
 
 /* The same as binary16 (IEEE 754, round to nearest even) words: out_count ≥ brv_channel_size.
