@@ -1,10 +1,12 @@
 /* Ray caster speed: closest-hit and any-hit rays per second on one core, over a scene of a
  * few thousand triangles (triangulated spheres and boxes on a ground slab) and a few analytic
- * spheres. Run: build/bench/bench_bvh [rays]. */
+ * spheres. Run: build/bench/bench_bvh [rays] [SCENE.json]: with a scene file, its geometry
+ * instead, rays from random points in its fog bounds. */
 #include <stdio.h>
 #include <stdlib.h>
 
 #include "base/threads.h"
+#include "scene/scene.h"
 #include "voxel/bvh.h"
 #include "../tests/voxel/fixture.h"
 
@@ -15,6 +17,16 @@ int main(int argc, char **argv)
     fx_scene f;
     fx_init(&f);
     uint64_t rng = 2024;
+    brm_scene *file = NULL;
+    if (argc > 2) {
+        brm_diag dg;
+        brm_diag_init(&dg);
+        if (brm_scene_load(argv[2], &file, &dg) != BRM_OK) {
+            fprintf(stderr, "bench_bvh: %s\n", dg.message);
+            return 1;
+        }
+    }
+    const brm_scene *sc = file ? file : &f.s;
     fx_box(&f, brm_v3(-40, -1, -40), brm_v3(40, 0, 40));
     for (int i = 0; i < 8; i++)
         fx_uv_sphere(&f, brm_v3(fx_range(&rng, -30, 30), 3, fx_range(&rng, -30, 30)), 3.0, 32);
@@ -25,12 +37,18 @@ int main(int argc, char **argv)
     for (int i = 0; i < 4; i++) fx_sphere(&f, brm_v3(fx_range(&rng, -30, 30), 6, fx_range(&rng, -30, 30)), 2.0);
     brm_bvh *b = NULL;
     double t0 = brm_now();
-    if (brm_bvh_build(&f.s, &b, NULL) != BRM_OK) return 1;
+    if (brm_bvh_build(sc, &b, NULL) != BRM_OK) return 1;
     double t_build = brm_now() - t0;
 
     brm_vec3 *o = malloc(sizeof *o * 4096), *d = malloc(sizeof *d * 4096);
     for (int i = 0; i < 4096; i++) {
-        o[i] = brm_v3(fx_range(&rng, -38, 38), fx_range(&rng, 0.5, 10), fx_range(&rng, -38, 38));
+        if (file) {
+            brm_aabb fb = file->fog_bounds;
+            o[i] = brm_v3(fx_range(&rng, fb.min.x, fb.max.x), fx_range(&rng, fb.min.y, fb.max.y),
+                          fx_range(&rng, fb.min.z, fb.max.z));
+        } else {
+            o[i] = brm_v3(fx_range(&rng, -38, 38), fx_range(&rng, 0.5, 10), fx_range(&rng, -38, 38));
+        }
         d[i] = fx_dir(&rng);
     }
     long hits = 0;
@@ -45,7 +63,9 @@ int main(int argc, char **argv)
     for (long r = 0; r < rays; r++)
         occl += brm_bvh_occluded(b, o[r & 4095], d[(r * 7 + (r >> 12)) & 4095], 0, 30.0);
     double t_any = brm_now() - t0;
-    printf("scene: %u triangles, 4 analytic spheres; build %.2f ms\n", f.s.tri_count, t_build * 1e3);
+    if (file) printf("scene %s: %u triangles, %u objects; build %.2f ms\n", argv[2], sc->tri_count, sc->object_count,
+                     t_build * 1e3);
+    else printf("scene: %u triangles, 4 analytic spheres; build %.2f ms\n", f.s.tri_count, t_build * 1e3);
     printf("closest hit: %ld rays in %.3f s = %.2f Mrays/s (%.1f %% hit)\n", rays, t_closest,
            rays / t_closest * 1e-6, 100.0 * hits / rays);
     printf("any hit (tmax 30 m): %ld rays in %.3f s = %.2f Mrays/s (%.1f %% blocked)\n", rays, t_any,
@@ -54,5 +74,6 @@ int main(int argc, char **argv)
     free(d);
     brm_bvh_free(b);
     fx_free(&f);
+    brm_scene_free(file);
     return 0;
 }

@@ -2,6 +2,7 @@
 #include "bake/surface_cache.h"
 
 #include <math.h>
+#include <stdatomic.h>
 #include <stdlib.h>
 #include <string.h>
 
@@ -19,6 +20,13 @@ struct brm_surface_cache {
     float *v;               /* stride per node: BRM_SURFACE_VALUES, then the extra values */
     uint32_t nodes, stride;
     double tol;             /* a cell interpolates when its nodes' tested values agree to tol */
+    /* Lazy caches (brm_surface_cache_build_lazy): per node 0 = not evaluated, 1 = being
+     * evaluated, 2 = done; NULL when every node was evaluated at build. */
+    atomic_uchar *state;
+    const brm_scene *s;
+    double eps;
+    brm_surface_eval eval;
+    const void *ctx;
 };
 
 /* Nearest point of triangle v to p (Ericson, "Real-Time Collision Detection", 2005, §5.1.5:
@@ -86,42 +94,59 @@ uint64_t brm_surface_cache_nodes(const brm_scene *s, double h)
 
 uint64_t brm_surface_cache_memory(const brm_scene *s, uint64_t nodes, uint32_t extra)
 {
-    return nodes * (BRM_SURFACE_VALUES + extra) * sizeof(float) + (uint64_t)s->tri_count * sizeof(surf_tri) +
-           sizeof(brm_surface_cache);
+    /* (a lazy cache adds a byte of state per node, counted here either way) */
+    return nodes * ((BRM_SURFACE_VALUES + extra) * sizeof(float) + sizeof(atomic_uchar)) +
+           (uint64_t)s->tri_count * sizeof(surf_tri) + sizeof(brm_surface_cache);
 }
 
-typedef struct job {
-    const brm_scene *s;
-    brm_surface_cache *sc;
-    double eps;
-    brm_surface_eval eval;
-    const void *ctx;
-} job;
-
 enum { TRIS_PER_ITEM = 64 };
+
+/* Evaluates node (iu, jv) of triangle ti into the cache: the same call whenever and on
+ * whichever thread it runs. */
+static void fill_node(const brm_surface_cache *sc, uint32_t ti, uint32_t iu, uint32_t jv)
+{
+    const surf_tri *st = &sc->tris[ti];
+    brm_vec3 q = brm_madd(brm_madd(st->o, st->u, iu * st->su), st->v, jv * st->sv);
+    q = brm_madd(closest_on_triangle(q, sc->s->tris[ti].v), st->n, sc->eps);
+    uint32_t node = st->first + iu + (uint32_t)st->nu * jv;
+    double v[BRM_SURFACE_VALUES + BRM_SURFACE_MAX_EXTRA];
+    sc->eval(sc->ctx, q, st->n, node, v);
+    for (uint32_t k = 0; k < sc->stride; k++) sc->v[sc->stride * (size_t)node + k] = (float)v[k];
+}
 
 static void item_fn(void *ctx, uint32_t item, int worker)
 {
     (void)worker;
-    const job *j = ctx;
+    const brm_surface_cache *sc = ctx;
     uint32_t end = (item + 1) * TRIS_PER_ITEM;
-    if (end > j->s->tri_count) end = j->s->tri_count;
+    if (end > sc->s->tri_count) end = sc->s->tri_count;
     for (uint32_t ti = item * TRIS_PER_ITEM; ti < end; ti++) {
-        const surf_tri *st = &j->sc->tris[ti];
+        const surf_tri *st = &sc->tris[ti];
         for (uint32_t jv = 0; jv < st->nv; jv++)
-            for (uint32_t iu = 0; iu < st->nu; iu++) {
-                brm_vec3 q = brm_madd(brm_madd(st->o, st->u, iu * st->su), st->v, jv * st->sv);
-                q = brm_madd(closest_on_triangle(q, j->s->tris[ti].v), st->n, j->eps);
-                uint32_t node = st->first + iu + (uint32_t)st->nu * jv;
-                double v[BRM_SURFACE_VALUES + BRM_SURFACE_MAX_EXTRA];
-                j->eval(j->ctx, q, st->n, node, v);
-                for (uint32_t k = 0; k < j->sc->stride; k++) j->sc->v[j->sc->stride * (size_t)node + k] = (float)v[k];
-            }
+            for (uint32_t iu = 0; iu < st->nu; iu++) fill_node(sc, ti, iu, jv);
     }
 }
 
-brm_status brm_surface_cache_build(const brm_scene *s, double h, double eps, double tol, uint32_t extra, int threads,
-                                   brm_surface_eval eval, const void *ctx, brm_surface_cache **out, brm_diag *d)
+/* A lazy cache's node (iu, jv) of triangle ti, evaluated if no lookup has asked for it yet.
+ * The thread that claims it evaluates it; one that finds it being evaluated waits for it (the
+ * evaluation runs to its end without taking any lock, so the wait is short and always ends). */
+static void ensure_node(const brm_surface_cache *sc, uint32_t ti, uint32_t iu, uint32_t jv)
+{
+    uint32_t node = sc->tris[ti].first + iu + (uint32_t)sc->tris[ti].nu * jv;
+    atomic_uchar *stp = &sc->state[node];
+    if (atomic_load_explicit(stp, memory_order_acquire) == 2) return;
+    unsigned char expect = 0;
+    if (atomic_compare_exchange_strong_explicit(stp, &expect, 1, memory_order_acq_rel, memory_order_acquire)) {
+        fill_node(sc, ti, iu, jv);
+        atomic_store_explicit(stp, 2, memory_order_release);
+        return;
+    }
+    while (atomic_load_explicit(stp, memory_order_acquire) != 2) {
+    }
+}
+
+static brm_status setup(const brm_scene *s, double h, double eps, double tol, uint32_t extra, bool lazy,
+                        brm_surface_eval eval, const void *ctx, brm_surface_cache **out, brm_diag *d)
 {
     *out = NULL;
     BRM_CHECK(d, extra <= BRM_SURFACE_MAX_EXTRA, BRM_E_INTERNAL, "surface cache: %u extra values", extra);
@@ -134,8 +159,9 @@ brm_status brm_surface_cache_build(const brm_scene *s, double h, double eps, dou
     if (sc) {
         sc->tris = malloc((s->tri_count ? s->tri_count : 1) * sizeof *sc->tris);
         sc->v = malloc((nodes ? nodes : 1) * stride * sizeof *sc->v);
+        if (lazy) sc->state = malloc((nodes ? nodes : 1) * sizeof *sc->state);
     }
-    if (!sc || !sc->tris || !sc->v) {
+    if (!sc || !sc->tris || !sc->v || (lazy && !sc->state)) {
         brm_surface_cache_free(sc);
         return brm_diag_error(d, BRM_E_NOMEM, "out of memory for the surface cache (%llu nodes)",
                               (unsigned long long)nodes);
@@ -147,15 +173,36 @@ brm_status brm_surface_cache_build(const brm_scene *s, double h, double eps, dou
     }
     sc->nodes = first;
     sc->stride = stride;
-    job j = {s, sc, eps, eval, ctx};
+    sc->tol = tol;
+    sc->s = s;
+    sc->eps = eps;
+    sc->eval = eval;
+    sc->ctx = ctx;
+    if (lazy)
+        for (uint32_t i = 0; i < first; i++) atomic_init(&sc->state[i], 0);
+    *out = sc;
+    return BRM_OK;
+}
+
+brm_status brm_surface_cache_build(const brm_scene *s, double h, double eps, double tol, uint32_t extra, int threads,
+                                   brm_surface_eval eval, const void *ctx, brm_surface_cache **out, brm_diag *d)
+{
+    brm_surface_cache *sc = NULL;
+    brm_status st = setup(s, h, eps, tol, extra, false, eval, ctx, &sc, d);
+    if (st != BRM_OK) return st;
     uint32_t items = (s->tri_count + TRIS_PER_ITEM - 1) / TRIS_PER_ITEM;
-    if (brm_parallel_for(items, threads, item_fn, &j, &brm_interrupted) != items) {
+    if (brm_parallel_for(items, threads, item_fn, sc, &brm_interrupted) != items) {
         brm_surface_cache_free(sc);
         return brm_diag_error(d, BRM_E_INTERRUPTED, "interrupted");
     }
-    sc->tol = tol;
     *out = sc;
     return BRM_OK;
+}
+
+brm_status brm_surface_cache_build_lazy(const brm_scene *s, double h, double eps, double tol, uint32_t extra,
+                                        brm_surface_eval eval, const void *ctx, brm_surface_cache **out, brm_diag *d)
+{
+    return setup(s, h, eps, tol, extra, true, eval, ctx, out, d);
 }
 
 int brm_surface_cache_lookup(const brm_surface_cache *sc, uint32_t tri, brm_vec3 q, double out[BRM_SURFACE_VALUES],
@@ -171,6 +218,12 @@ int brm_surface_cache_lookup(const brm_surface_cache *sc, uint32_t tri, brm_vec3
     if (i > (uint32_t)st->nu - 2) i = (uint32_t)st->nu - 2;
     if (jj > (uint32_t)st->nv - 2) jj = (uint32_t)st->nv - 2;
     double fx = x - i, fy = y - jj;
+    if (sc->state) {
+        ensure_node(sc, tri, i, jj);
+        ensure_node(sc, tri, i + 1, jj);
+        ensure_node(sc, tri, i, jj + 1);
+        ensure_node(sc, tri, i + 1, jj + 1);
+    }
     const size_t K = sc->stride;
     const float *e00 = sc->v + K * ((size_t)st->first + i + (size_t)st->nu * jj);
     const float *e01 = e00 + K * (size_t)st->nu;
@@ -201,5 +254,6 @@ void brm_surface_cache_free(brm_surface_cache *sc)
     if (!sc) return;
     free(sc->tris);
     free(sc->v);
+    free(sc->state);
     free(sc);
 }

@@ -8,9 +8,10 @@
  *
  * A node holds BRM_SURFACE_VALUES numbers; the first BRM_SURFACE_TESTED are tested: a cell
  * whose four nodes differ in one of them by more than a tolerance (a shadow's edge crosses it)
- * does not interpolate, and the caller evaluates that hit itself. Nodes are evaluated once, in
- * parallel, each by a call that depends only on the node (its point, normal and index): the
- * cache is the same whatever the thread count. Spheres are not cached. */
+ * does not interpolate, and the caller evaluates that hit itself. Nodes are evaluated once,
+ * each by a call that depends only on the node (its point, normal and index): the cache is the
+ * same whatever the thread count, and whether its nodes are evaluated all at build, in
+ * parallel, or (a lazy cache) each when a lookup first reads it. Spheres are not cached. */
 #ifndef BRM_SURFACE_CACHE_H
 #define BRM_SURFACE_CACHE_H
 
@@ -38,6 +39,13 @@ uint64_t brm_surface_cache_memory(const brm_scene *s, uint64_t nodes, uint32_t e
  * BRM_E_INTERRUPTED if brm_interrupted is raised meanwhile. */
 brm_status brm_surface_cache_build(const brm_scene *s, double h, double eps, double tol, uint32_t extra, int threads,
                                    brm_surface_eval eval, const void *ctx, brm_surface_cache **out, brm_diag *d);
+
+/* The same cache, its nodes evaluated by the first lookup that reads them instead of at
+ * build (eval and ctx must then stay valid, and eval callable from the lookup's threads, until
+ * the cache is freed): a bake whose hits reach a fraction of the surfaces evaluates only that
+ * fraction. Lookups give exactly what they give on a cache built by brm_surface_cache_build. */
+brm_status brm_surface_cache_build_lazy(const brm_scene *s, double h, double eps, double tol, uint32_t extra,
+                                        brm_surface_eval eval, const void *ctx, brm_surface_cache **out, brm_diag *d);
 
 /* The values at point q on (or next to) scene triangle tri, bilinear between the four nodes of
  * the cell around q: returns 1, or 0 when that cell's nodes disagree in a tested value (the

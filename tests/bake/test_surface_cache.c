@@ -1,8 +1,10 @@
 /* The probes' surface irradiance cache: its grids, its interpolation and its determinism, with
  * fields whose interpolation is known exactly. */
 #include <math.h>
+#include <stdatomic.h>
 
 #include "check.h"
+#include "base/threads.h"
 #include "bake/surface_cache.h"
 #include "../voxel/fixture.h"
 
@@ -202,6 +204,89 @@ static void cache_should_not_depend_on_the_thread_count(void **state)
     fx_free(&f);
 }
 
+/* index_eval, counting its calls. */
+static void counting_eval(const void *ctx, brm_vec3 p, brm_vec3 n, uint32_t index, double *E)
+{
+    atomic_fetch_add((atomic_uint *)(uintptr_t)ctx, 1u);
+    index_eval(NULL, p, n, index, E);
+}
+
+enum { LAZY_ITEMS = 64, LAZY_PER_ITEM = 50 };
+
+typedef struct lazy_job {
+    const brm_scene *s;
+    const brm_surface_cache *sc;
+    uint32_t tris;          /* lookups on triangles [0, tris) only */
+    double E[LAZY_ITEMS * LAZY_PER_ITEM][BRM_SURFACE_VALUES];
+    float extra[LAZY_ITEMS * LAZY_PER_ITEM][4][2];
+    int agree[LAZY_ITEMS * LAZY_PER_ITEM];
+} lazy_job;
+
+static void lazy_point(const lazy_job *j, uint32_t k, uint32_t *t, brm_vec3 *p)
+{
+    uint64_t rng = 1000 + k;
+    *t = (uint32_t)(fx_unif(&rng) * j->tris) % j->tris;
+    *p = on_triangle(&j->s->tris[*t], fx_unif(&rng), fx_unif(&rng));
+}
+
+static void lazy_item(void *ctx, uint32_t item, int worker)
+{
+    (void)worker;
+    lazy_job *j = ctx;
+    for (uint32_t q = 0; q < LAZY_PER_ITEM; q++) {
+        uint32_t k = item * LAZY_PER_ITEM + q, t;
+        brm_vec3 p;
+        lazy_point(j, k, &t, &p);
+        brm_surface_cell cell;
+        j->agree[k] = brm_surface_cache_lookup(j->sc, t, p, j->E[k], &cell);
+        for (int c = 0; c < 4; c++) j->extra[k][c][0] = cell.extra[c][0], j->extra[k][c][1] = cell.extra[c][1];
+    }
+}
+
+static void lazy_cache_should_read_the_same_bits_and_evaluate_each_node_it_reads_once(void **state)
+{
+    (void)state;
+    fx_scene f;
+    build_scene(&f);
+    const double h = 0.3;
+    brm_surface_cache *eager = NULL, *lazy = NULL;
+    assert_int_equal(brm_surface_cache_build(&f.s, h, 1e-3, 0.5, 2, 2, index_eval, NULL, &eager, NULL), BRM_OK);
+    atomic_uint calls = 0;
+    assert_int_equal(brm_surface_cache_build_lazy(&f.s, h, 1e-3, 0.5, 2, counting_eval, &calls, &lazy, NULL), BRM_OK);
+    assert_int_equal(atomic_load(&calls), 0);
+    static lazy_job j;
+    j.s = &f.s;
+    j.sc = lazy;
+    j.tris = f.s.tri_count / 2;
+    /* Two threads reading at once, racing for the same nodes. */
+    assert_int_equal(brm_parallel_for(LAZY_ITEMS, 2, lazy_item, &j, NULL), LAZY_ITEMS);
+    unsigned after = atomic_load(&calls);
+    uint64_t total = brm_surface_cache_nodes(&f.s, h);
+    /* Only the nodes around the points read, on half the triangles, were evaluated. */
+    assert_true(after > 0 && after < total);
+    int refused = 0;
+    for (uint32_t k = 0; k < LAZY_ITEMS * LAZY_PER_ITEM; k++) {
+        uint32_t t;
+        brm_vec3 p;
+        lazy_point(&j, k, &t, &p);
+        double E[BRM_SURFACE_VALUES];
+        brm_surface_cell cell;
+        int agree = brm_surface_cache_lookup(eager, t, p, E, &cell);
+        refused += !agree;
+        assert_int_equal(agree, j.agree[k]);
+        for (int c = 0; c < BRM_SURFACE_VALUES; c++) assert_true(E[c] == j.E[k][c]);
+        for (int c = 0; c < 4; c++) assert_true(cell.extra[c][0] == j.extra[k][c][0] && cell.extra[c][1] == j.extra[k][c][1]);
+    }
+    /* index_eval's tested values jump from node to node: some cells refuse, as they must. */
+    assert_true(refused > 0);
+    /* Reading the same points again evaluates nothing more: each node once. */
+    assert_int_equal(brm_parallel_for(LAZY_ITEMS, 1, lazy_item, &j, NULL), LAZY_ITEMS);
+    assert_int_equal(atomic_load(&calls), after);
+    brm_surface_cache_free(eager);
+    brm_surface_cache_free(lazy);
+    fx_free(&f);
+}
+
 static void step_eval(const void *ctx, brm_vec3 p, brm_vec3 n, uint32_t index, double *E)
 {
     (void)ctx, (void)n, (void)index;
@@ -253,6 +338,7 @@ int main(void)
         cmocka_unit_test(cache_should_reproduce_a_linear_field_away_from_edges_and_a_constant_one_everywhere),
         cmocka_unit_test(cache_should_refuse_cells_a_shadow_edge_crosses),
         cmocka_unit_test(cache_should_not_depend_on_the_thread_count),
+        cmocka_unit_test(lazy_cache_should_read_the_same_bits_and_evaluate_each_node_it_reads_once),
     };
     return cmocka_run_group_tests_name("bake-surface-cache", tests, NULL, NULL);
 }
