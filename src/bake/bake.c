@@ -77,6 +77,17 @@ static size_t frustum_batch_bytes(void)
 /* Bricks computed per batch before the writer drains them in order. */
 static uint32_t batch_bricks(int threads) { return (uint32_t)threads * 4; }
 
+/* Units computed per batch: four a thread (so a slow unit, a frustum column near the lights,
+ * leaves the other threads less idle before the batch ends), as long as a thread's share stays
+ * within 32 bricks; at least one. */
+static uint32_t batch_units(int threads, uint32_t bricks_per_unit)
+{
+    uint32_t per = bricks_per_unit == 0 ? 4 : 32 / bricks_per_unit;
+    if (per > 4) per = 4;
+    if (per < 1) per = 1;
+    return (uint32_t)threads * per;
+}
+
 
 uint64_t brm_bake_estimate_memory(const brm_scene *s, uint32_t t, const brm_bake_opts *o)
 {
@@ -88,12 +99,12 @@ uint64_t brm_bake_estimate_memory(const brm_scene *s, uint32_t t, const brm_bake
     m += brm_bvh_memory(s);
     if (g.kind == BRM_GRID_PROBES) m += brm_probes_memory(s, t, &g, o);
     /* The batch of units computed before the writer drains them (brm_run_plan): four bricks a
-     * thread, or one column of bricks a thread for frustum targets. */
+     * thread, or for frustum targets up to four columns of bricks a thread (batch_units). */
     uint64_t unit_floats = (uint64_t)BRM_BRICK * BRM_BRICK * BRM_BRICK * 20;
     uint64_t units = batch_bricks(effective_threads(o));
     if (g.kind == BRM_GRID_FRUSTUM) {
         unit_floats *= g.bricks[2];
-        units = (uint64_t)effective_threads(o);
+        units = batch_units(effective_threads(o), g.bricks[2]);
         m += (uint64_t)effective_threads(o) * (frustum_column_bytes(&g) + frustum_batch_bytes());
     }
     m += units * unit_floats * sizeof(float);
@@ -313,7 +324,7 @@ brm_status brm_run_plan(const brm_scene *s, uint32_t t, const brm_bake_opts *o, 
 
     const size_t brick_floats = (size_t)BRM_BRICK * BRM_BRICK * BRM_BRICK * pl->channel_count;
     const size_t unit_floats = brick_floats * pl->bricks_per_unit;
-    const uint32_t batch = (uint32_t)threads * (pl->bricks_per_unit > 4 ? 1 : 4);
+    const uint32_t batch = batch_units(threads, pl->bricks_per_unit);
     if (!meta) {
         st = brm_diag_error(d, BRM_E_NOMEM, "%s: out of memory", tg->json_path);
         goto done;
