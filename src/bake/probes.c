@@ -238,7 +238,48 @@ typedef struct probe_ctx {
     uint32_t channels;
     uint64_t *rays;             /* per worker: rays traced */
     brm_vec3 *dirs;             /* fib_dir(i, t->rays) for every i: the rays before rotation */
+    uint64_t *tri_lights;       /* per scene triangle, bit l: light l may light a front-face
+                                   hit on it (tri_lights_build); NULL: every light is tried */
 } probe_ctx;
+
+/* Per triangle, the lights that can give a front-face bounce hit on it any light: bit l clear
+ * when light l lies behind the triangle's plane as seen from all of it (the cosine at every
+ * hit is then ≤ 0: for a directional light the very product the hit computes, for others
+ * the light is behind the plane through each vertex, and hits lie eps in front of the
+ * triangle), or when it cannot reach the triangle's box grown by the hit offset
+ * (brm_light_reaches: out of range or outside a spot's cone, so the illuminance is 0). A
+ * skipped light is one the loops would have passed over: sums stay the same to the bit. Up
+ * to 64 lights. */
+static uint64_t *tri_lights_build(const brm_scene *s, double eps)
+{
+    if (s->light_count > 64 || s->tri_count == 0) return NULL;
+    uint64_t *m = malloc((size_t)s->tri_count * sizeof *m);
+    if (!m) return NULL;
+    for (uint32_t t = 0; t < s->tri_count; t++) {
+        const brm_vec3 *v = s->tris[t].v;
+        /* The normal exactly as the ray caster computes a hit's (bvh.c fill_hit). */
+        brm_vec3 n = brm_norm(brm_cross(brm_sub(v[1], v[0]), brm_sub(v[2], v[0])));
+        brm_aabb box = {brm_vmin(v[0], brm_vmin(v[1], v[2])), brm_vmax(v[0], brm_vmax(v[1], v[2]))};
+        double g = 2 * eps + 1e-6;
+        box.min = brm_sub(box.min, brm_v3(g, g, g));
+        box.max = brm_add(box.max, brm_v3(g, g, g));
+        uint64_t bits = 0;
+        for (uint32_t l = 0; l < s->light_count; l++) {
+            const brm_light *lt = &s->lights[l];
+            int behind;
+            if (lt->type == BRM_LIGHT_DIRECTIONAL) {
+                behind = brm_dot(n, brm_scale(lt->direction, -1.0)) <= 0;
+            } else {
+                behind = brm_dot(n, brm_sub(lt->position, v[0])) <= 0 && brm_dot(n, brm_sub(lt->position, v[1])) <= 0 &&
+                         brm_dot(n, brm_sub(lt->position, v[2])) <= 0;
+            }
+            if (!behind && brm_light_reaches(lt, box)) bits |= (uint64_t)1 << l;
+        }
+        m[t] = bits;
+    }
+    return m;
+}
+
 
 /* Direct light at a surface point with normal n: every light's illuminance, cosine, shadow map
  * and fog on the way. */
@@ -262,11 +303,14 @@ static void surface_direct(const probe_ctx *c, brm_vec3 p, brm_vec3 n, double E[
     }
 }
 
-/* The direct light's unshadowed part alone (cheap: no map is read). */
-static void surface_unshadowed(const probe_ctx *c, brm_vec3 p, brm_vec3 n, double U[3])
+/* The direct light's unshadowed part alone (cheap: no map is read) at a front-face hit on
+ * triangle tri. */
+static void surface_unshadowed(const probe_ctx *c, uint32_t tri, brm_vec3 p, brm_vec3 n, double U[3])
 {
     U[0] = U[1] = U[2] = 0.0;
+    const uint64_t mask = c->tri_lights ? c->tri_lights[tri] : 0;
     for (uint32_t l = 0; l < c->s->light_count; l++) {
+        if (c->tri_lights && !(mask >> l & 1)) continue;
         const brm_light *lt = &c->s->lights[l];
         brm_vec3 to;
         double dist;
@@ -363,10 +407,13 @@ static void surf_eval(const void *ctx, brm_vec3 p, brm_vec3 n, uint32_t index, d
 /* Direct light at a bounce hit p in a cell whose nodes disagree on the share: per light, the
  * visibility the four nodes agree on exactly (lit or shadowed all over), else the lookup at p;
  * the transmittance interpolated where the nodes agree within 0.02, else looked up at p. */
-static void surface_fallback(const probe_ctx *c, brm_vec3 p, brm_vec3 n, const brm_surface_cell *cell, double E[3])
+static void surface_fallback(const probe_ctx *c, uint32_t tri, brm_vec3 p, brm_vec3 n, const brm_surface_cell *cell,
+                             double E[3])
 {
     E[0] = E[1] = E[2] = 0.0;
+    const uint64_t mask = c->tri_lights ? c->tri_lights[tri] : 0;
     for (uint32_t l = 0; l < c->s->light_count; l++) {
+        if (c->tri_lights && !(mask >> l & 1)) continue;
         const brm_light *lt = &c->s->lights[l];
         brm_vec3 to;
         double dist;
@@ -433,10 +480,10 @@ static double bake_probe(const probe_ctx *c, brm_vec3 p, uint64_t key, uint32_t 
             brm_surface_cell cell;
             if (c->surf && hit.tri != UINT32_MAX) {
                 if (brm_surface_cache_lookup(c->surf, hit.tri, hp, sv, &cell)) {
-                    surface_unshadowed(c, hp, hit.normal, E);
+                    surface_unshadowed(c, hit.tri, hp, hit.normal, E);
                     for (int ch = 0; ch < 3; ch++) E[ch] = E[ch] * sv[ch] + sv[3 + ch];
                 } else if (c->surf_lights) {
-                    surface_fallback(c, hp, hit.normal, &cell, E);
+                    surface_fallback(c, hit.tri, hp, hit.normal, &cell, E);
                     for (int ch = 0; ch < 3; ch++) E[ch] += sv[3 + ch];
                 } else {
                     surface_irradiance(c, hp, hit.normal, (uint32_t)(key * 31 + r), E);
@@ -594,6 +641,7 @@ brm_status brm_bake_probes(const brm_scene *s, uint32_t t, const brm_bake_opts *
         return brm_diag_error(d, BRM_E_NOMEM, "%s: out of memory", tg->json_path);
     }
     for (uint32_t i = 0; i < tg->rays; i++) c.dirs[i] = fib_dir(i, tg->rays);
+    c.tri_lights = tri_lights_build(s, c.eps);   /* NULL (out of memory, many lights): all tried */
     if ((st = brm_solid_index_build(s, &solid, d)) != BRM_OK) goto done;
     c.solid = solid;
     if ((st = fog_build(s, ss, tg->spacing_m, threads, &c.fog, d)) != BRM_OK) goto done;
@@ -639,5 +687,6 @@ done:
     brm_solid_index_free(solid);
     free(c.rays);
     free(c.dirs);
+    free(c.tri_lights);
     return st;
 }
