@@ -7,6 +7,7 @@
 #include <gsl/gsl_integration.h>
 
 #include "base/sh.h"
+#include "base/threads.h"
 #include "shadow_fixture.h"
 #include "shadow/shadow_internal.h"
 
@@ -249,6 +250,88 @@ static void wide_roof_outside_target_should_block_its_solid_angle(void **state)
     brm_scene_free(s);
 }
 
+/* The sky cache traces a node when a lookup first needs it: two threads reading at once get
+ * the bits one thread gets, and a node holds what the traced estimator gives at its point with
+ * the cache's ray count and the node's index as sample index. */
+enum { LAZY_POINTS = 400 };
+typedef struct lazy_sky {
+    const brm_shadow_set *ss;
+    double out[LAZY_POINTS][3][4];
+} lazy_sky;
+
+static brm_vec3 lazy_point(uint32_t k)
+{
+    uint64_t x = 0x9e3779b97f4a7c15ull * (k + 1);
+    double u[3];
+    for (int a = 0; a < 3; a++) {
+        x ^= x >> 29, x *= 0xbf58476d1ce4e5b9ull, x ^= x >> 32;
+        u[a] = (double)(x >> 11) / 9007199254740992.0;
+    }
+    return brm_v3(-0.9 + 1.8 * u[0], -0.9 + 1.8 * u[1], -0.9 + 1.8 * u[2]);
+}
+
+static void lazy_item(void *ctx, uint32_t item, int worker)
+{
+    (void)worker;
+    lazy_sky *j = ctx;
+    brm_sky_incident(j->ss, lazy_point(item), item, j->out[item]);
+}
+
+static void sky_cache_should_trace_nodes_on_first_use_the_same_from_any_thread(void **state)
+{
+    (void)state;
+    brm_scene *s = sf_scene((brm_aabb){{-50, -50, -50}, {50, 50, 50}});
+    s->sky = gradient_sky();
+    uint32_t o = sf_object(s, BRM_SHAPE_MESH);
+    s->objects[o].closed = false;
+    /* A slanted roof over part of the cache, so nodes differ. */
+    sf_tri(s, o, brm_v3(-3, 1.5, -3), brm_v3(3, 2.5, -3), brm_v3(3, 2.5, 3));
+    sf_tri(s, o, brm_v3(-3, 1.5, -3), brm_v3(3, 2.5, 3), brm_v3(-3, 1.5, 3));
+    sf_ready(s);
+    const brm_aabb box = {{-1, -1, -1}, {1, 1, 1}};
+    brm_shadow_set *a = sf_build(s, box, 0.25, false, NULL, 1);
+    brm_shadow_set *b = sf_build(s, box, 0.25, false, NULL, 1);
+    const sky_cache *c = &a->sky_grid;
+    size_t nodes = (size_t)c->n[0] * c->n[1] * c->n[2];
+    assert_true(nodes >= 8);
+    size_t traced = 0;
+    for (size_t i = 0; i < nodes; i++) traced += atomic_load(&c->state[i]) == 2;
+    assert_int_equal(traced, 0);
+    /* One lookup inside a cell: its eight corners and nothing else. */
+    double one[3][4];
+    brm_sky_incident(a, brm_v3(0.1, 0.2, -0.3), 0, one);
+    for (size_t i = 0; i < nodes; i++) traced += atomic_load(&c->state[i]) == 2;
+    assert_int_equal(traced, 8);
+    /* Two threads on a, one thread in the reverse order on b: the same bits. */
+    static lazy_sky ja, jb;
+    ja.ss = a;
+    assert_int_equal(brm_parallel_for(LAZY_POINTS, 2, lazy_item, &ja, NULL), LAZY_POINTS);
+    jb.ss = b;
+    for (uint32_t k = LAZY_POINTS; k-- > 0;) lazy_item(&jb, k, 0);
+    assert_memory_equal(ja.out, jb.out, sizeof ja.out);
+    /* A node holds the estimator's value at its point (to the float it is stored in). */
+    brm_shadow_set *t = sf_build(s, box, 0.25, false, NULL, 1);
+    brm_shadows_drop_sky_cache(t);
+    brm_shadows_set_sky_rays(t, BRM_SKY_CACHE_RAYS);
+    int checked = 0;
+    for (uint32_t k = 0; k < c->n[2]; k++)
+        for (uint32_t j = 0; j < c->n[1]; j++)
+            for (uint32_t i = 0; i < c->n[0]; i++) {
+                size_t node = i + (size_t)c->n[0] * (j + (size_t)c->n[1] * k);
+                if (atomic_load(&c->state[node]) != 2 || !c->ok[node]) continue;
+                brm_vec3 p = brm_add(c->lo, brm_mul(c->step, brm_v3(i, j, k)));
+                double want[3][4];
+                brm_sky_incident(t, p, (uint32_t)node, want);
+                for (int q = 0; q < 12; q++) assert_true(c->sh[node * 12 + (size_t)q] == (float)want[q / 4][q % 4]);
+                checked++;
+            }
+    assert_true(checked >= 8);
+    brm_shadows_free(t);
+    brm_shadows_free(a);
+    brm_shadows_free(b);
+    brm_scene_free(s);
+}
+
 int main(void)
 {
     gsl_set_error_handler_off();
@@ -258,6 +341,7 @@ int main(void)
         cmocka_unit_test(gradient_sky_should_match_numerical_projection),
         cmocka_unit_test(closed_box_around_point_should_give_zero),
         cmocka_unit_test(wide_roof_outside_target_should_block_its_solid_angle),
+        cmocka_unit_test(sky_cache_should_trace_nodes_on_first_use_the_same_from_any_thread),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }
