@@ -1,6 +1,6 @@
 /* Frustum and probe bakes at the sizes their issues name, on the demo scene's geometry:
  *
- *   build/bench/bench_targets [frustum|probes] [-j N] [-o OUT.brv] [nofog|fog] [SCENE.json]
+ *   build/bench/bench_targets [frustum|probes] [-j N] [-o OUT.brv] [nofog|fog] [lights9] [SCENE.json]
  *
  * (a part's name bakes that part only; the lights are set up the same way either way;
  * -j N runs that thread count only, -o keeps the frustum bake's file for comparing bytes;
@@ -9,8 +9,9 @@
  * - frustum: 160×90×128 froxels, 4 samples, one sun and eight local lights of 15 m range spread
  *   through the frustum, all casting shadows, the scene's fog: froxel·light·samples per second
  *   and wall time (shadow maps included) at 1 and 2 threads;
- * - probes: a 32×8×32 lattice at 0.5 m, 256 rays, bounce on, without fog and with it: probes
- *   and rays per second at 1 and 2 threads. */
+ * - probes: a 32×8×32 lattice at 0.5 m, 256 rays, bounce on, lit by the demo's own lights (or
+ *   with lights9 by the frustum part's nine), without fog and with it: probes and rays per second
+ *   at 1 and 2 threads. */
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -59,6 +60,8 @@ int main(int argc, char **argv)
     int fog_lo = 0, fog_hi = 1;   /* probes: nofog or fog runs that half only */
     if (argc > 1 && strcmp(argv[1], "nofog") == 0) fog_hi = 0, argc--, argv++;
     else if (argc > 1 && strcmp(argv[1], "fog") == 0) fog_lo = 1, argc--, argv++;
+    int probe_lights9 = 0;        /* probes: lights9 lights them with the frustum part's nine */
+    if (argc > 1 && strcmp(argv[1], "lights9") == 0) probe_lights9 = 1, argc--, argv++;
     const char *path = argc > 1 ? argv[1] : BRUME_SOURCE_ROOT "/scenes/saltworks-dusk.json";
     brm_diag d;
     brm_diag_init(&d);
@@ -83,7 +86,12 @@ int main(int argc, char **argv)
     brm_light sun = {0};
     for (uint32_t l = 0; l < s->light_count; l++)
         if (s->lights[l].type == BRM_LIGHT_DIRECTIONAL) sun = s->lights[l];
-    brm_light *lights = realloc(s->lights, 9 * sizeof *lights);
+    /* The demo's own lights, for the probe part (issue: "over the demo scene"). */
+    uint32_t demo_light_count = s->light_count;
+    brm_light *demo_lights = malloc((demo_light_count ? demo_light_count : 1) * sizeof *demo_lights);
+    if (!demo_lights) return 1;
+    memcpy(demo_lights, s->lights, demo_light_count * sizeof *demo_lights);
+    brm_light *lights = realloc(s->lights, (demo_light_count > 9 ? demo_light_count : 9) * sizeof *lights);
     if (!lights) return 1;
     s->lights = lights;
     s->light_count = 9;
@@ -128,10 +136,17 @@ int main(int argc, char **argv)
     pt->box.max = brm_v3(4.25 + 31 * 0.5, 0.5 + 7 * 0.5, 0.25 + 31 * 0.5);
     pt->spacing_m = 0.5;
     pt->rays = 256;
+    if (!probe_lights9) {
+        memcpy(s->lights, demo_lights, demo_light_count * sizeof *demo_lights);
+        s->light_count = demo_light_count;
+    }
+    free(demo_lights);
     uint32_t media = s->medium_count;
     for (int fog = fog_lo; fog <= fog_hi && do_probes; fog++) {
         s->medium_count = fog ? media : 0;
-        printf("probes 32x8x32 at 0.5 m, 256 rays, bounce on, %s\n", fog ? "with the demo's fog" : "without fog");
+        printf("probes 32x8x32 at 0.5 m, 256 rays, bounce on, %u lights (%s), %s\n", s->light_count,
+               probe_lights9 ? "the frustum part's sun and eight point lights" : "the demo's own",
+               fog ? "with the demo's fog" : "without fog");
         for (int th = th_lo; th <= th_hi; th++) {
             brm_bake_stats st = run(s, (uint32_t)p, th, keep ? keep : out);
             /* Rays per second over the whole bake, and over the probe stage alone (the bake
