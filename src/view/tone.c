@@ -1,6 +1,7 @@
 #include "view/tone.h"
 
 #include <math.h>
+#include <pthread.h>
 #include <stddef.h>
 #include <stdlib.h>
 #include <string.h>
@@ -20,7 +21,49 @@ double brm_srgb_decode(double v)
     return v <= 0.04045 ? v / 12.92 : pow((v + 0.055) / 1.055, 2.4);
 }
 
-uint8_t brm_srgb_byte(double c) { return (uint8_t)lround(255.0 * brm_srgb_encode(c)); }
+uint8_t brm_srgb_byte_exact(double c) { return (uint8_t)lround(255.0 * brm_srgb_encode(c)); }
+
+/* brm_srgb_byte_exact is non-decreasing in c, so it is fixed by the 255 points where it steps
+ * up: thr[k] is the smallest double c with byte(c) >= k, found once by bisection over the bit
+ * patterns of the doubles in [0, 1] (positive doubles order as their bits do), with the exact
+ * function itself as the judge. A byte is then a search of 8 comparisons instead of a pow(). */
+static double srgb_thr[256];
+static pthread_once_t srgb_once = PTHREAD_ONCE_INIT;
+
+static double bits_double(uint64_t b)
+{
+    double d;
+    memcpy(&d, &b, sizeof d);
+    return d;
+}
+
+static void srgb_init(void)
+{
+    const double one = 1.0;
+    uint64_t top;
+    memcpy(&top, &one, sizeof top);
+    srgb_thr[0] = 0.0;
+    for (int k = 1; k < 256; k++) {
+        uint64_t lo = 0, hi = top; /* byte(lo) < k <= byte(hi) */
+        while (hi - lo > 1) {
+            uint64_t mid = lo + (hi - lo) / 2;
+            if (brm_srgb_byte_exact(bits_double(mid)) >= k) hi = mid;
+            else lo = mid;
+        }
+        srgb_thr[k] = bits_double(hi);
+    }
+}
+
+uint8_t brm_srgb_byte(double c)
+{
+    if (!(c > 0.0)) return 0;
+    if (c >= 1.0) return 255;
+    pthread_once(&srgb_once, srgb_init);
+    unsigned k = 0;
+    for (unsigned step = 128; step; step >>= 1)
+        if (k + step < 256 && c >= srgb_thr[k + step]) k += step;
+    return (uint8_t)k;
+}
 
 double brm_tone(double x) { return x > 0.0 ? (isinf(x) ? 1.0 : x / (1.0 + x)) : 0.0; }
 

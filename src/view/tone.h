@@ -23,8 +23,10 @@
 double brm_srgb_encode(double c);
 /* The inverse, sRGB-encoded [0,1] → linear. */
 double brm_srgb_decode(double v);
-/* brm_srgb_encode then round(255·v). */
+/* brm_srgb_encode then round(255·v): brm_srgb_byte_exact computes it so, brm_srgb_byte gives
+ * the same byte for every input from a table of the 255 points where it steps (no pow). */
 uint8_t brm_srgb_byte(double c);
+uint8_t brm_srgb_byte_exact(double c);
 
 /* Tone curve x/(1 + x) for x > 0; 0 for x <= 0 or NaN. */
 double brm_tone(double x);

@@ -26,6 +26,34 @@ static void srgb_encode_should_follow_iec_61966_2_1(void **state)
     assert_int_equal(brm_srgb_byte(0.0), 0);
 }
 
+/* The table-driven byte must be the exact one everywhere: at a million random inputs, at every
+ * double within 64 steps of each of the 255 step points, on both sides of each step, and at
+ * the special values. */
+static void srgb_byte_table_should_equal_the_exact_rounding_everywhere(void **state)
+{
+    (void)state;
+    uint64_t x = 0x9e3779b97f4a7c15ull;
+    for (int i = 0; i < 1000000; i++) {
+        x ^= x << 13, x ^= x >> 7, x ^= x << 17;
+        double c = (double)(x >> 11) * 0x1.0p-53;
+        if (i & 1) c = c * c * c; /* dense near 0 as well, where the linear segment is */
+        assert_int_equal(brm_srgb_byte(c), brm_srgb_byte_exact(c));
+    }
+    for (int k = 1; k < 256; k++) {
+        /* the k-th step: the smallest c the exact rounding sends to k or more */
+        double v = (k - 0.5) / 255.0, c = brm_srgb_decode(v);
+        for (int s = 0; s < 40 && brm_srgb_byte_exact(c) >= k; s++) c = nextafter(c, 0.0);
+        for (int s = 0; s < 80 && brm_srgb_byte_exact(c) < k; s++) c = nextafter(c, 1.0);
+        assert_true(brm_srgb_byte_exact(c) >= k && brm_srgb_byte_exact(nextafter(c, 0.0)) < k);
+        double d = c;
+        for (int s = 0; s < 64; s++) d = nextafter(d, 0.0);
+        for (int s = 0; s < 129; s++, d = nextafter(d, 1.0)) assert_int_equal(brm_srgb_byte(d), brm_srgb_byte_exact(d));
+    }
+    const double special[] = {0.0, -0.0, -1.0, 1.0, 2.0, 0x1p-1074, 0.0031308, nextafter(1.0, 0.0), INFINITY, -INFINITY, NAN};
+    for (size_t i = 0; i < sizeof special / sizeof special[0]; i++)
+        assert_int_equal(brm_srgb_byte(special[i]), brm_srgb_byte_exact(special[i]));
+}
+
 static void tone_should_map_zero_to_zero_and_rise_monotonically(void **state)
 {
     (void)state;
@@ -159,6 +187,7 @@ int main(void)
 {
     const struct CMUnitTest tests[] = {
         cmocka_unit_test(srgb_encode_should_follow_iec_61966_2_1),
+        cmocka_unit_test(srgb_byte_table_should_equal_the_exact_rounding_everywhere),
         cmocka_unit_test(tone_should_map_zero_to_zero_and_rise_monotonically),
         cmocka_unit_test(auto_exposure_should_put_the_99th_percentile_at_0_8),
         cmocka_unit_test(auto_exposure_should_pick_what_a_full_sort_picks),
