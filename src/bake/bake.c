@@ -3,6 +3,7 @@
 
 #include <cJSON.h>
 #include <errno.h>
+#include <pthread.h>
 #include <stdlib.h>
 #include <string.h>
 #include <unistd.h>
@@ -77,9 +78,10 @@ static size_t frustum_batch_bytes(void)
 /* Bricks computed per batch before the writer drains them in order. */
 static uint32_t batch_bricks(int threads) { return (uint32_t)threads * 4; }
 
-/* Units computed per batch: four a thread (so a slow unit, a frustum column near the lights,
- * leaves the other threads less idle before the batch ends), as long as a thread's share stays
- * within 32 bricks; at least one. */
+/* Units in flight (the ring of unit buffers brm_run_plan computes into and writes from, in
+ * order): four a thread (so a slow unit, a frustum column near the lights, leaves the other
+ * threads room to compute ahead of the writer), as long as a thread's share stays within 32
+ * bricks; at least one. */
 static uint32_t batch_units(int threads, uint32_t bricks_per_unit)
 {
     uint32_t per = bricks_per_unit == 0 ? 4 : 32 / bricks_per_unit;
@@ -234,17 +236,73 @@ static char *build_metadata(const brm_scene *s, uint32_t t, const brm_bake_opts 
 
 /* ---- the driver: units of bricks, computed in parallel, written in order ---------------- */
 
+/* The units run in one brm_parallel_for; each result goes to a ring of `slots` unit buffers
+ * (unit u in slot u % slots). Whichever thread finds the next unit in file order ready writes
+ * it, and every ready unit after it, while the other threads compute on: the writer's encoding
+ * and compression overlap the computing instead of following each batch with the other threads
+ * idle. The pool hands units out in order, so a thread that waits for its slot waits only on
+ * units already running or ready to be written. Bricks reach the writer in unit order, one
+ * thread at a time: the same bytes whatever the thread count. */
 typedef struct run_ctx {
     const brm_plan *pl;
-    uint32_t first;
+    const brm_grid *g;
+    const brm_bake_opts *o;
+    brv_writer *w;
     float *buf;
-    size_t unit_floats;
+    size_t unit_floats, brick_floats;
+    uint32_t slots;
+    pthread_mutex_t mu;
+    pthread_cond_t cv;
+    unsigned char *ready;       /* per slot: its unit is computed, not yet written */
+    uint32_t written;           /* units written, in order */
+    bool writing;               /* a thread is writing (mu is released meanwhile) */
+    brv_result failed;          /* the writer's first failure; BRV_OK while none */
+    uint64_t cells_done, total;
 } run_ctx;
 
-static void run_unit(void *ctx, uint32_t item, int worker)
+/* With mu held: writes the ready units in order, unless another thread is doing so. */
+static void drain_ready(run_ctx *r)
+{
+    if (r->writing) return;
+    r->writing = true;
+    const brm_plan *pl = r->pl;
+    while (r->failed == BRV_OK && r->written < pl->unit_count && r->ready[r->written % r->slots]) {
+        const uint32_t u = r->written;
+        pthread_mutex_unlock(&r->mu);
+        const float *src = r->buf + (size_t)(u % r->slots) * r->unit_floats;
+        brv_result res = BRV_OK;
+        uint64_t cells = 0;
+        for (uint32_t i = 0; i < pl->bricks_per_unit && res == BRV_OK; i++) {
+            uint32_t b = pl->brick_of(r->g, u, i), lo[3], hi[3];
+            res = brv_writer_put_brick(r->w, b, src + (size_t)i * r->brick_floats);
+            brm_grid_brick_range(r->g, b, lo, hi);
+            cells += (uint64_t)(hi[0] - lo[0]) * (hi[1] - lo[1]) * (hi[2] - lo[2]);
+        }
+        pthread_mutex_lock(&r->mu);
+        r->ready[u % r->slots] = 0;
+        r->written = u + 1;
+        r->cells_done += cells;
+        if (res != BRV_OK)
+            r->failed = res;
+        else if (r->o->progress && (r->written % r->slots == 0 || r->written == pl->unit_count))
+            r->o->progress(r->o->progress_user, r->cells_done, r->total);
+        pthread_cond_broadcast(&r->cv);
+    }
+    r->writing = false;
+}
+
+static void run_unit(void *ctx, uint32_t u, int worker)
 {
     run_ctx *r = ctx;
-    r->pl->compute(r->pl->ctx, r->first + item, worker, r->buf + (size_t)item * r->unit_floats);
+    pthread_mutex_lock(&r->mu);
+    while (r->failed == BRV_OK && u >= r->written + r->slots) pthread_cond_wait(&r->cv, &r->mu);
+    const bool skip = r->failed != BRV_OK;
+    pthread_mutex_unlock(&r->mu);
+    if (!skip) r->pl->compute(r->pl->ctx, u, worker, r->buf + (size_t)(u % r->slots) * r->unit_floats);
+    pthread_mutex_lock(&r->mu);
+    r->ready[u % r->slots] = 1;
+    drain_ready(r);
+    pthread_mutex_unlock(&r->mu);
 }
 
 uint32_t brm_plan_brick_is_unit(const brm_grid *g, uint32_t unit, uint32_t i)
@@ -292,8 +350,10 @@ brm_status brm_run_plan(const brm_scene *s, uint32_t t, const brm_bake_opts *o, 
     brm_status st = BRM_OK;
     brv_writer *w = NULL;
     brm_atomic_file af;
-    bool file_open = false;
+    bool file_open = false, sync_ready = false;
     float *buf = NULL;
+    run_ctx rc;
+    memset(&rc, 0, sizeof rc);
     char *meta = build_metadata(s, t, o);
 
     brv_write_desc wd;
@@ -344,32 +404,38 @@ brm_status brm_run_plan(const brm_scene *s, uint32_t t, const brm_bake_opts *o, 
         st = brm_diag_error(d, BRM_E_IO, "%s: cannot write volume: %s%s%s", out_path, brv_result_text(r), why[0] ? ": " : "", why);
         goto done;
     }
-    run_ctx rc = {pl, 0, buf, unit_floats};
-    uint64_t cells_done = 0, total = brm_grid_cells(g);
-    for (uint32_t first = 0; first < pl->unit_count; first += batch) {
-        if (o->cancel && atomic_load(o->cancel)) {
-            st = brm_diag_error(d, BRM_E_INTERRUPTED, "%s: interrupted", tg->name);
-            goto done;
-        }
-        uint32_t n = pl->unit_count - first < batch ? pl->unit_count - first : batch;
-        rc.first = first;
-        if (brm_parallel_for(n, threads, run_unit, &rc, o->cancel) != n) {
-            st = brm_diag_error(d, BRM_E_INTERRUPTED, "%s: interrupted", tg->name);
-            goto done;
-        }
-        for (uint32_t u = 0; u < n; u++)
-            for (uint32_t i = 0; i < pl->bricks_per_unit; i++) {
-                uint32_t b = pl->brick_of(g, first + u, i);
-                r = brv_writer_put_brick(w, b, buf + (size_t)u * unit_floats + (size_t)i * brick_floats);
-                if (r != BRV_OK) {
-                    st = writer_fail(d, out_path, w, r);
-                    goto done;
-                }
-                uint32_t lo[3], hi[3];
-                brm_grid_brick_range(g, b, lo, hi);
-                cells_done += (uint64_t)(hi[0] - lo[0]) * (hi[1] - lo[1]) * (hi[2] - lo[2]);
-            }
-        if (o->progress) o->progress(o->progress_user, cells_done, total);
+    rc.pl = pl;
+    rc.g = g;
+    rc.o = o;
+    rc.w = w;
+    rc.buf = buf;
+    rc.unit_floats = unit_floats;
+    rc.brick_floats = brick_floats;
+    rc.slots = batch;
+    rc.failed = BRV_OK;
+    rc.ready = calloc(batch, 1);
+    rc.total = brm_grid_cells(g);
+    if (!rc.ready || pthread_mutex_init(&rc.mu, NULL) != 0) {
+        st = brm_diag_error(d, BRM_E_NOMEM, "%s: out of memory for the brick buffers", tg->json_path);
+        goto done;
+    }
+    if (pthread_cond_init(&rc.cv, NULL) != 0) {
+        pthread_mutex_destroy(&rc.mu);
+        st = brm_diag_error(d, BRM_E_NOMEM, "%s: out of memory for the brick buffers", tg->json_path);
+        goto done;
+    }
+    sync_ready = true;
+    if (o->cancel && atomic_load(o->cancel)) {
+        st = brm_diag_error(d, BRM_E_INTERRUPTED, "%s: interrupted", tg->name);
+        goto done;
+    }
+    if (brm_parallel_for(pl->unit_count, threads, run_unit, &rc, o->cancel) != pl->unit_count) {
+        st = brm_diag_error(d, BRM_E_INTERRUPTED, "%s: interrupted", tg->name);
+        goto done;
+    }
+    if (rc.failed != BRV_OK) {
+        st = writer_fail(d, out_path, w, rc.failed);
+        goto done;
     }
     r = brv_writer_finish(w);
     if (r != BRV_OK) {
@@ -379,9 +445,14 @@ brm_status brm_run_plan(const brm_scene *s, uint32_t t, const brm_bake_opts *o, 
     long end = ftell(af.f);
     file_open = false;
     if ((st = brm_atomic_commit(&af, d)) != BRM_OK) goto done;
-    stats->cells = total;
+    stats->cells = rc.total;
     stats->bytes = end > 0 ? (uint64_t)end : 0;
 done:
+    if (sync_ready) {
+        pthread_cond_destroy(&rc.cv);
+        pthread_mutex_destroy(&rc.mu);
+    }
+    free(rc.ready);
     if (file_open) brm_atomic_abort(&af);
     brv_writer_free(w);
     free(meta);
