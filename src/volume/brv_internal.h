@@ -130,7 +130,8 @@ void brv_unshuffle(const uint8_t *src, uint8_t *dst, size_t n, unsigned word_byt
 
 /* The inverse filters of one group, fused with the conversion (unfilter.c): n words of a
  * brick with rows of nx cells, byte planes at src, scale 2^ex, floats to out (rgb9e5: three
- * planes of n). simd = 0 forces the scalar reference, which the tests compare against; 2 asks
+ * planes of n). simd = 0 forces the scalar reference, which the tests compare against; 3 forces
+ * SSE2 (1 and 2 may take AVX2 where the processor has it, for f32 rows of 16 cells); 2 asks
  * for streaming (cache-bypassing) stores, used when out is 16-byte aligned: the same values,
  * ordered for other threads only after brv_store_fence. */
 void brv_store_fence(void);
