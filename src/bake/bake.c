@@ -857,6 +857,85 @@ static void frustum_unit(void *ctx, uint32_t unit, int worker, float *out)
 
 /* ---- one target ---------------------------------------------------------------------------- */
 
+/* The voxelizer on a thread of its own, beside the shadow build: much of voxelizing is serial
+ * (the solid index, the flood fill of empty components), and the maps' parallel phases keep the
+ * other cores busy meanwhile. Neither reads what the other writes; each result is keyed by cell
+ * or item, never by thread, so the bytes stay those of the serial order. */
+typedef struct voxel_job {
+    const brm_scene *s;
+    const brm_grid *g;
+    int threads;
+    brm_occupancy *occ;
+    brm_diag d;
+    brm_status st;
+} voxel_job;
+
+static void *voxel_main(void *arg)
+{
+    voxel_job *v = arg;
+    v->st = brm_voxelize(v->s, v->g, v->threads, v->occ, &v->d);
+    return NULL;
+}
+
+/* Voxelizes (world and frustum grids), builds the ray caster and the shadow set, the voxelizer
+ * overlapping the rest when there is more than one thread. Errors are reported in that order:
+ * the voxelizer's, the ray caster's, the shadow set's. */
+static brm_status prepare(const brm_scene *s, const brm_target *tg, const brm_grid *g, int threads, const brm_bake_opts *o,
+                          brm_occupancy *occ, brm_bvh **bvh, brm_shadow_set **ss, brm_bake_stats *stats, brm_diag *d)
+{
+    const bool voxelize = tg->grid != BRM_GRID_PROBES;
+    voxel_job *vj = NULL;
+    brm_diag *sd = NULL;
+    bool started = false;
+    brm_status st;
+    if (voxelize && threads > 1) {
+        vj = malloc(sizeof *vj);
+        sd = malloc(sizeof *sd);
+        if (vj && sd) {
+            *vj = (voxel_job){.s = s, .g = g, .threads = threads / 2, .occ = occ, .st = BRM_OK};
+            brm_diag_init(&vj->d);
+            brm_diag_init(sd);
+            pthread_t tid;
+            started = pthread_create(&tid, NULL, voxel_main, vj) == 0;
+            if (started) {
+                /* The ray caster and the shadow set, into their own diag until the voxelizer's
+                 * result is known (its error comes first). */
+                st = BRM_OK;
+                if (s->tri_count > 0 || s->object_count > 0) st = brm_bvh_build(s, bvh, sd);
+                if (st == BRM_OK) {
+                    double t_shadow = brm_now();
+                    brm_shadow_opts so = {lit_bounds(s, g), min_cell_edge(g), threads, o->reference, *bvh, false, 1.0};
+                    st = brm_shadows_build(s, &so, ss, sd);
+                    stats->shadow_seconds = brm_now() - t_shadow;
+                }
+                pthread_join(tid, NULL);
+                brm_diag_merge_warnings(d, &vj->d);
+                if (vj->st != BRM_OK) {
+                    st = brm_diag_error(d, vj->st, "%s", vj->d.message);
+                } else {
+                    brm_diag_merge_warnings(d, sd);
+                    if (st != BRM_OK) brm_diag_error(d, st, "%s", sd->message);
+                }
+                free(vj);
+                free(sd);
+                return st;
+            }
+        }
+        free(vj);
+        free(sd);
+    }
+    /* One thread (or no second thread to be had): one step after the other. */
+    if (voxelize && (st = brm_voxelize(s, g, threads, occ, d)) != BRM_OK) return st;
+    if (s->tri_count > 0 || s->object_count > 0) {
+        if ((st = brm_bvh_build(s, bvh, d)) != BRM_OK) return st;
+    }
+    double t_shadow = brm_now();
+    brm_shadow_opts so = {lit_bounds(s, g), min_cell_edge(g), threads, o->reference, *bvh, false, 1.0};
+    if ((st = brm_shadows_build(s, &so, ss, d)) != BRM_OK) return st;
+    stats->shadow_seconds = brm_now() - t_shadow;
+    return BRM_OK;
+}
+
 static brm_status bake_grid(const brm_scene *s, uint32_t t, const brm_bake_opts *o, const char *out_path,
                             brm_bake_stats *stats, brm_diag *d)
 {
@@ -871,14 +950,7 @@ static brm_status bake_grid(const brm_scene *s, uint32_t t, const brm_bake_opts 
     bake_ctx c;
     memset(&c, 0, sizeof c);
 
-    if (tg->grid != BRM_GRID_PROBES && (st = brm_voxelize(s, &g, threads, &occ, d)) != BRM_OK) goto done;
-    if (s->tri_count > 0 || s->object_count > 0) {
-        if ((st = brm_bvh_build(s, &bvh, d)) != BRM_OK) goto done;
-    }
-    double t_shadow = brm_now();
-    brm_shadow_opts so = {lit_bounds(s, &g), min_cell_edge(&g), threads, o->reference, bvh, false, 1.0};
-    if ((st = brm_shadows_build(s, &so, &ss, d)) != BRM_OK) goto done;
-    stats->shadow_seconds = brm_now() - t_shadow;
+    if ((st = prepare(s, tg, &g, threads, o, &occ, &bvh, &ss, stats, d)) != BRM_OK) goto done;
 
     if (tg->grid == BRM_GRID_PROBES) {
         st = brm_bake_probes(s, t, o, &g, bvh, ss, out_path, stats, d);
