@@ -353,6 +353,8 @@ BRV_API brv_result brv_verify(const brv_volume *v, uint32_t *brick);
  * one decoder (one brick's payload and scratch). 16³ cells and 4 f16 channels: 32 KiB a
  * brick, so the default 64 bricks take 2 MiB and a whole 256³ volume (4096 bricks) 128 MiB.
  * On Linux a cache of 16 MiB or more is marked for transparent huge pages (madvise, a hint).
+ * The cache memory is committed here (a write to each page), so the sampling calls take no
+ * page faults: creating a sampler of 128 MiB costs the system's page clearing, about 15-25 ms.
  * One thread at a time per sampler; make one per thread. Allocates through the volume's
  * allocator. */
 BRV_API brv_result brv_sampler_create(const brv_volume *v, uint32_t cache_bricks, brv_sampler **out);
