@@ -141,6 +141,21 @@ void brv_unfilter_w32(const uint8_t *src, size_t n, uint32_t nx, int ex, uint32_
  * Returns nonzero when a word is an infinity or NaN (all-ones exponent). */
 int brv_unfilter_f16_halves(const uint8_t *src, size_t n, uint32_t nx, uint16_t *out, int simd);
 
+/* Four f16 channels with rows of 16 cells (n a multiple of 16), merged, prefix-summed and
+ * interleaved in one pass: out[4·i + c]. lo[c] and hi[c] are channel c's two byte planes, or
+ * lo[c] is NULL for a channel whose every word is cval[c]. simd 0: the scalar reference.
+ * Returns nonzero when a word is an infinity or NaN. */
+int brv_unfilter_f16_cells4(const uint8_t *const lo[4], const uint8_t *const hi[4], const uint16_t cval[4], size_t n,
+                            uint16_t *out, int simd);
+
+/* For the sampler: brick b of a volume of exactly four channels, all f16, as the stored halves
+ * interleaved cell by cell (out[4·i + c], the layout of the sampler's slots) and each channel's
+ * scale exponent, the same words as brv_decode_brick_raw16 gives channel-major. *done is false
+ * (and nothing is decoded) when the brick's rows are not 16 cells; the caller then takes
+ * brv_decode_brick_raw16. */
+brv_result brv_decode_brick_cells16(const brv_volume *v, brv_decoder *dec, uint32_t b, uint16_t *out,
+                                    size_t out_count, int8_t *scale_exp, bool *special, bool *done);
+
 /* For the sampler: brick b of a volume whose every channel is f16, as the stored halves
  * (channel-major, as brv_decode_brick_f16) and each channel's scale exponent (value = half ·
  * 2^scale_exp[c]); *special tells whether a word is an infinity or NaN. BRV_E_ARGUMENT when a

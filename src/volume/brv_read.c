@@ -542,17 +542,12 @@ static brv_result group_to_f16(brv_decoder *dec, const rgroup *g, unsigned mode,
     return special ? BRV_E_UNREPRESENTABLE : BRV_OK;
 }
 
-/* Decodes brick b. only < 0: every channel into out (channel-major, n cells each);
- * only ≥ 0: that channel alone into out (n values). Floats to out, or (out is NULL) binary16
- * words to out16. */
-static brv_result decode_brick(const brv_volume *v, brv_decoder *dec, uint32_t b, int only, float *out,
-                               uint16_t *out16, int8_t *raw_ex, size_t out_count, bool check_crc)
+/* Brick b's stored bytes, checked (frame exactly the stored bytes, content no more than a brick
+ * of n cells holds; with check_crc also the CRC of the stored bytes) and decompressed into
+ * dec->payload; *got_out its length. */
+static brv_result brick_payload(const brv_volume *v, brv_decoder *dec, uint32_t b, size_t n, bool check_crc,
+                                size_t *got_out)
 {
-    uint32_t o[3], e[3];
-    if (brv_brick_extent(v, b, o, e) != BRV_OK) return BRV_E_ARGUMENT;
-    size_t n = (size_t)e[0] * e[1] * e[2];
-    size_t need = only < 0 ? n * v->grid.channel_count : n;
-    if (out_count < need) return BRV_E_BUFFER;
     const uint8_t *ent = v->brick_table + (size_t)b * v->brick_entry;
     const uint8_t *src;
     size_t cs = brv_rd32(ent + 8);
@@ -572,6 +567,24 @@ static brv_result decode_brick(const brv_volume *v, brv_decoder *dec, uint32_t b
         return BRV_E_BRICK_CORRUPT;
     size_t got = ZSTD_decompressDCtx(dec->dctx, dec->payload, v->payload_max, src, cs);
     if (ZSTD_isError(got) || got != content) return BRV_E_BRICK_CORRUPT;
+    *got_out = got;
+    return BRV_OK;
+}
+
+/* Decodes brick b. only < 0: every channel into out (channel-major, n cells each);
+ * only ≥ 0: that channel alone into out (n values). Floats to out, or (out is NULL) binary16
+ * words to out16. */
+static brv_result decode_brick(const brv_volume *v, brv_decoder *dec, uint32_t b, int only, float *out,
+                               uint16_t *out16, int8_t *raw_ex, size_t out_count, bool check_crc)
+{
+    uint32_t o[3], e[3];
+    if (brv_brick_extent(v, b, o, e) != BRV_OK) return BRV_E_ARGUMENT;
+    size_t n = (size_t)e[0] * e[1] * e[2];
+    size_t need = only < 0 ? n * v->grid.channel_count : n;
+    if (out_count < need) return BRV_E_BUFFER;
+    size_t got;
+    brv_result fr = brick_payload(v, dec, b, n, check_crc, &got);
+    if (fr != BRV_OK) return fr;
 
     const uint8_t *p = dec->payload, *end = dec->payload + got;
     int want_group = only >= 0 ? v->channel_group[only] : -1;
@@ -648,6 +661,45 @@ brv_result brv_decode_brick_raw16(const brv_volume *v, brv_decoder *dec, uint32_
     brv_result r = decode_brick(v, dec, b, -1, NULL, out, scale_exp, out_count, false);
     *special = r == BRV_E_UNREPRESENTABLE;
     return *special ? BRV_OK : r;
+}
+
+brv_result brv_decode_brick_cells16(const brv_volume *v, brv_decoder *dec, uint32_t b, uint16_t *out,
+                                    size_t out_count, int8_t *scale_exp, bool *special, bool *done)
+{
+    if (done) *done = false;
+    if (!v || !dec || !out || !scale_exp || !special || !done || dec->v != v) return BRV_E_ARGUMENT;
+    if (v->grid.channel_count != 4 || v->group_count != 4) return BRV_E_ARGUMENT;
+    for (uint32_t c = 0; c < 4; c++)
+        if (v->ch[c].encoding != BRV_ENCODING_F16) return BRV_E_ARGUMENT;
+    uint32_t o[3], e[3];
+    if (brv_brick_extent(v, b, o, e) != BRV_OK) return BRV_E_ARGUMENT;
+    if (e[0] != 16) return BRV_OK; /* not done: the caller decodes channel-major */
+    size_t n = (size_t)e[0] * e[1] * e[2];
+    if (out_count < 4 * n) return BRV_E_BUFFER;
+    size_t got;
+    brv_result r = brick_payload(v, dec, b, n, false, &got);
+    if (r != BRV_OK) return r;
+    /* The group headers, checked as decode_brick checks them. */
+    const uint8_t *p = dec->payload, *end = dec->payload + got, *lo[4], *hi[4];
+    uint16_t cval[4] = {0, 0, 0, 0};
+    for (uint32_t gi = 0; gi < 4; gi++) {
+        if ((size_t)(end - p) < BRV_GROUP_HEADER) return BRV_E_BRICK_CORRUPT;
+        unsigned mode = p[0], wb = p[2];
+        int ex = (int8_t)p[1];
+        if (mode > BRV_MODE_CONSTANT || p[3] != 0 || wb != 2 || ex < 0) return BRV_E_BRICK_CORRUPT;
+        p += BRV_GROUP_HEADER;
+        size_t len = mode == BRV_MODE_CONSTANT ? 2 : 2 * n;
+        if ((size_t)(end - p) < len) return BRV_E_BRICK_CORRUPT;
+        scale_exp[gi] = (int8_t)ex;
+        lo[gi] = mode == BRV_MODE_CONSTANT ? NULL : p;
+        hi[gi] = mode == BRV_MODE_CONSTANT ? NULL : p + n;
+        if (mode == BRV_MODE_CONSTANT) cval[gi] = brv_rd16(p);
+        p += len;
+    }
+    if (p != end) return BRV_E_BRICK_CORRUPT;
+    *special = brv_unfilter_f16_cells4(lo, hi, cval, n, out, 1) != 0;
+    *done = true;
+    return BRV_OK;
 }
 
 /* One brick row into the grid, which is far larger than any cache and is not read here again:

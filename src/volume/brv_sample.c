@@ -155,6 +155,18 @@ static brv_result fill(brv_sampler *s, slot *sl, uint32_t b)
     sl->sy = (size_t)nc * sl->ext[0];
     sl->sz = sl->sy * sl->ext[1];
     size_t per = brv_brick_size(s->v);
+    if (s->half && nc == 4 && s->ident) {
+        /* Four f16 channels with rows of 16: decoded straight into the slot, interleaved. */
+        int8_t ex[4];
+        bool done;
+        brv_result r = brv_decode_brick_cells16(s->v, s->dec, b, sl->data, per, ex, &sl->special, &done);
+        if (r != BRV_OK) return r;
+        if (done) {
+            for (uint32_t c = 0; c < 4; c++) sl->scale[c] = ldexpf(1.0f, ex[c]);
+            sl->brick = b;
+            return BRV_OK;
+        }
+    }
     if (s->half) {
         int8_t ex[BRV_MAX_CHANNELS];
         uint16_t *src = s->scratch, *dst = sl->data;

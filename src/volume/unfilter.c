@@ -192,6 +192,48 @@ static int f16h_sse2(const uint8_t *restrict src, size_t n, uint32_t nx, uint16_
     return _mm_movemask_epi8(special) != 0;
 }
 
+/* Four f16 channels of rows of 16 cells, merged, prefix-summed and interleaved (out[4·i + c])
+ * in one pass: lo[c], hi[c] the channel's byte planes, or lo[c] NULL for a constant channel of
+ * value cval[c]. Returns nonzero when a word is an infinity or NaN. */
+static int cells4_sse2(const uint8_t *const lo[4], const uint8_t *const hi[4], const uint16_t cval[4], size_t n,
+                       uint16_t *restrict out)
+{
+    const __m128i expm = _mm_set1_epi16(0x7C00);
+    __m128i special = _mm_setzero_si128();
+    __m128i k[4];
+    for (int c = 0; c < 4; c++) {
+        k[c] = _mm_set1_epi16((short)cval[c]);
+        if (!lo[c]) special = _mm_or_si128(special, _mm_cmpeq_epi16(_mm_and_si128(k[c], expm), expm));
+    }
+    for (size_t row = 0; row < n; row += 16) {
+        __m128i v[4][2];
+        for (int c = 0; c < 4; c++) {
+            if (!lo[c]) {
+                v[c][0] = v[c][1] = k[c];
+                continue;
+            }
+            __m128i l = _mm_loadu_si128((const __m128i *)(const void *)(lo[c] + row));
+            __m128i h = _mm_loadu_si128((const __m128i *)(const void *)(hi[c] + row));
+            __m128i v0 = prefix16(_mm_unpacklo_epi8(l, h));
+            __m128i v1 = _mm_add_epi16(prefix16(_mm_unpackhi_epi8(l, h)), last16(v0));
+            special = _mm_or_si128(special, _mm_cmpeq_epi16(_mm_and_si128(v0, expm), expm));
+            special = _mm_or_si128(special, _mm_cmpeq_epi16(_mm_and_si128(v1, expm), expm));
+            v[c][0] = v0;
+            v[c][1] = v1;
+        }
+        for (int q = 0; q < 2; q++) {
+            __m128i ablo = _mm_unpacklo_epi16(v[0][q], v[1][q]), abhi = _mm_unpackhi_epi16(v[0][q], v[1][q]);
+            __m128i cdlo = _mm_unpacklo_epi16(v[2][q], v[3][q]), cdhi = _mm_unpackhi_epi16(v[2][q], v[3][q]);
+            __m128i *o = (__m128i *)(void *)(out + 4 * (row + 8 * (size_t)q));
+            _mm_storeu_si128(o, _mm_unpacklo_epi32(ablo, cdlo));
+            _mm_storeu_si128(o + 1, _mm_unpackhi_epi32(ablo, cdlo));
+            _mm_storeu_si128(o + 2, _mm_unpacklo_epi32(abhi, cdhi));
+            _mm_storeu_si128(o + 3, _mm_unpackhi_epi32(abhi, cdhi));
+        }
+    }
+    return _mm_movemask_epi8(special) != 0;
+}
+
 /* 16 words from 4 byte planes at index i: four vectors of 4 words each, in order. */
 static inline void words16(const uint8_t *b0, const uint8_t *b1, const uint8_t *b2, const uint8_t *b3, size_t i,
                            __m128i w[4])
@@ -408,4 +450,27 @@ void brv_unfilter_w32(const uint8_t *src, size_t n, uint32_t nx, int ex, uint32_
     (void)simd;
 #endif
     w32_scalar(src, n, nx, sc, code, out);
+}
+
+int brv_unfilter_f16_cells4(const uint8_t *const lo[4], const uint8_t *const hi[4], const uint16_t cval[4], size_t n,
+                            uint16_t *out, int simd)
+{
+#if defined(__SSE2__)
+    if (simd && n % 16 == 0) return cells4_sse2(lo, hi, cval, n, out);
+#else
+    (void)simd;
+#endif
+    unsigned special = 0; /* the scalar reference: each channel as f16h_scalar, then interleaved */
+    for (int c = 0; c < 4; c++) {
+        uint16_t prev = 0;
+        for (size_t i = 0; i < n; i++) {
+            if (lo[c]) {
+                if (i % 16 == 0) prev = 0;
+                prev = (uint16_t)(prev + (uint16_t)(lo[c][i] | (hi[c][i] << 8)));
+            } else prev = cval[c];
+            special |= (prev & 0x7C00u) == 0x7C00u;
+            out[4 * i + (size_t)c] = prev;
+        }
+    }
+    return special != 0;
 }

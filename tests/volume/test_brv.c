@@ -994,6 +994,64 @@ static void sampler_should_interpolate_decoded_values_on_every_path(void **state
     }
 }
 
+/* Four channels: smooth, constant (every brick's group stored as one word), bright (some
+ * bricks scaled), smooth again. */
+static float four_kinds(uint32_t c, uint32_t x, uint32_t y, uint32_t z, void *user)
+{
+    if (c == 1) return 0.25f;
+    if (c == 2) return bright_field(0, x, y, z, user);
+    return fixture_smooth(c == 3 ? 1 : 0, x, y, z, user);
+}
+
+/* A volume of exactly four f16 channels in bricks of 16 decodes whole-row bricks straight into
+ * the sampler's slots (brv_decode_brick_cells16) and the short bricks at the x edge the other
+ * way: both give the trilinear interpolation of the decoded values to float rounding, and the
+ * same bits as a sampler of the same channels in another order (which never takes the direct
+ * path), with every brick cached and with a cache of 3 that evicts. */
+static void sampler_should_fill_four_f16_channels_directly(void **state)
+{
+    (void)state;
+    static const brv_channel_desc ch[4] = {{"a", "", BRV_ENCODING_F16}, {"b", "", BRV_ENCODING_F16},
+                                           {"c", "", BRV_ENCODING_F16}, {"d", "", BRV_ENCODING_F16}};
+    brv_write_desc d = fixture_world(40, 20, 18, ch, 4); /* x: bricks of 16, 16 and 8 cells */
+    d.brick_size = 16;
+    size_t size;
+    uint8_t *buf = write_or_fail(&d, four_kinds, NULL, &size);
+    brv_volume *v = open_or_fail(buf, size);
+    const brv_grid_info *g = brv_grid(v);
+    assert_true(brv_channel(v, 2)->scale_exp_max > 0);
+    float *all = malloc(brv_all_size(v) * sizeof(float));
+    assert_int_equal(brv_decode_all(v, all, brv_all_size(v)), BRV_OK);
+    static const uint32_t rev[4] = {3, 2, 1, 0};
+    for (int cache = 0; cache < 2; cache++) {
+        brv_sampler *s, *r;
+        assert_int_equal(brv_sampler_create(v, cache ? 3 : g->brick_count, &s), BRV_OK);
+        assert_int_equal(brv_sampler_create_channels(v, cache ? 3 : g->brick_count, rev, 4, &r), BRV_OK);
+        srand(99 + cache);
+        for (int k = 0; k < 20000; k++) {
+            double p[3];
+            for (int a = 0; a < 3; a++) {
+                double span = g->bounds_max[a] - g->bounds_min[a];
+                p[a] = g->bounds_min[a] - 0.1 * span + 1.2 * span * rand() / (double)RAND_MAX;
+            }
+            float out[4], back[4];
+            assert_int_equal(brv_sample_world(s, p, out), BRV_OK);
+            assert_int_equal(brv_sample_world(r, p, back), BRV_OK);
+            for (int c = 0; c < 4; c++) {
+                double want = ref_sample(g, all, (uint32_t)c, p);
+                assert_near(out[c], want, 8.0 * ldexp(fabs(want) + 1e-3, -24) + 1e-6 * fabs(want), 0);
+                assert_memory_equal(&out[c], &back[3 - c], sizeof(float));
+            }
+            assert_true(out[1] == 0.25f); /* constant channel: exactly its value */
+        }
+        brv_sampler_free(r);
+        brv_sampler_free(s);
+    }
+    free(all);
+    brv_free(v);
+    free(buf);
+}
+
 /* Streaming stores change where the output goes in the memory system, not what it is: every
  * encoding, aligned and unaligned outputs, floats and halves, bricks and the whole grid, the
  * same as without. */
@@ -1370,6 +1428,7 @@ int main(int argc, char **argv)
         cmocka_unit_test(decode_to_halves_should_equal_rounded_floats),
         cmocka_unit_test(streaming_decoder_should_give_the_same_values),
         cmocka_unit_test(sampler_should_interpolate_decoded_values_on_every_path),
+        cmocka_unit_test(sampler_should_fill_four_f16_channels_directly),
         cmocka_unit_test(open_file_should_read_bricks_on_demand),
         cmocka_unit_test(open_file_should_reject_every_truncation_and_flip_on_disk),
         cmocka_unit_test(file_changed_after_open_should_be_a_named_fault),

@@ -273,6 +273,45 @@ static void halves_unfilter_should_return_the_stored_words(void **state)
     free(b);
 }
 
+/* Four f16 channels merged, prefix-summed and interleaved in one pass (the sampler's slots):
+ * the stored words of each channel at out[4·i + c], a constant channel's word everywhere, the
+ * infinity/NaN flag raised exactly when such a word is present; SSE2 and scalar agree. */
+static void cells4_unfilter_should_interleave_the_stored_words(void **state)
+{
+    (void)state;
+    enum { N = 4096 };
+    uint8_t *words = malloc(2u * N), *planes = malloc(4u * 2u * N);
+    uint16_t *a = malloc(4u * 2u * N), *b = malloc(4u * 2u * N);
+    for (int trial = 0; trial < 3; trial++) {
+        const uint8_t *lo[4], *hi[4];
+        uint16_t cval[4] = {0x3C00u, 0x2E66u, 0x0001u, trial == 2 ? 0x7C00u : 0x7BFFu};
+        for (int c = 0; c < 4; c++) {
+            /* channel 1 constant in trial 1; otherwise scattered finite words (trial 0 has an
+             * infinity in channel 2's last cell) */
+            for (uint32_t w = 0; w < N; w++) brv_wr16(words + 2 * w, (uint16_t)(((w + 977u * c) * 40503u) % 0x7C00u));
+            if (trial == 0 && c == 2) brv_wr16(words + 2 * (N - 1), 0xFC00u);
+            shuffle_delta(words, N, 2, 16, planes + (size_t)c * 2 * N);
+            lo[c] = (trial == 1 && c == 1) || (trial == 2 && c == 3) ? NULL : planes + (size_t)c * 2 * N;
+            hi[c] = lo[c] ? lo[c] + N : NULL;
+        }
+        int want_special = trial != 1;
+        assert_int_equal(brv_unfilter_f16_cells4(lo, hi, cval, N, a, 1), want_special);
+        assert_int_equal(brv_unfilter_f16_cells4(lo, hi, cval, N, b, 0), want_special);
+        assert_memory_equal(a, b, 4u * 2u * N);
+        for (int c = 0; c < 4; c++) {
+            for (uint32_t w = 0; w < N; w++) {
+                uint16_t want = lo[c] ? (uint16_t)(((w + 977u * c) * 40503u) % 0x7C00u) : cval[c];
+                if (trial == 0 && c == 2 && w == N - 1) want = 0xFC00u;
+                assert_int_equal(a[4 * w + (uint32_t)c], want);
+            }
+        }
+    }
+    free(words);
+    free(planes);
+    free(a);
+    free(b);
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
@@ -284,6 +323,7 @@ int main(void)
         cmocka_unit_test(filters_should_be_lossless),
         cmocka_unit_test(unfilter_should_match_scalar_reference_bit_for_bit),
         cmocka_unit_test(halves_unfilter_should_return_the_stored_words),
+        cmocka_unit_test(cells4_unfilter_should_interleave_the_stored_words),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }
