@@ -37,7 +37,8 @@ struct brv_sampler {
     brv_decoder *dec;
     uint32_t count;
     slot *slots;
-    void *pool;
+    void *pool;    /* as allocated */
+    uint8_t *cells; /* pool rounded up to 64 bytes: the slots' data, cache-line aligned */
     float *scales;
     void *scratch; /* one decoded brick, channel-major */
     uint32_t sets; /* count / 2 sets of two slots (one set of one when count is 1) */
@@ -72,6 +73,7 @@ brv_result brv_sampler_create_channels(const brv_volume *v, uint32_t cache_brick
     size_t per = (size_t)g->brick_size * g->brick_size * g->brick_size * nc, total;
     if (per && (size_t)cache_bricks > (size_t)-1 / per / sizeof(float)) return BRV_E_NOMEM;
     total = per * cache_bricks;
+    if (total * es > (size_t)-1 - 64) return BRV_E_NOMEM;
     const brv_allocator *a = brv_volume_allocator(v);
     brv_sampler *s = brv_alloc(a, sizeof *s);
     if (!s) return BRV_E_NOMEM;
@@ -91,13 +93,16 @@ brv_result brv_sampler_create_channels(const brv_volume *v, uint32_t cache_brick
     for (int k = 0; k <= 5; k++)
         if (g->brick_size == 1u << k) s->shift = k;
     s->slots = brv_alloc(a, cache_bricks * sizeof *s->slots);
-    s->pool = brv_alloc(a, total * es);
+    s->pool = brv_alloc(a, total * es + 64);
     s->scratch = brv_alloc(a, brv_brick_size(v) * es);
     if (half) s->scales = brv_alloc(a, (size_t)cache_bricks * nc * sizeof(float));
     s->sets = cache_bricks >= 2 ? cache_bricks / 2 : 1;
-    s->memory = total * es + cache_bricks * (sizeof(slot) + (half ? nc * sizeof(float) : 0));
+    s->memory = total * es + 64 + cache_bricks * (sizeof(slot) + (half ? nc * sizeof(float) : 0));
     brv_result r = brv_decoder_create(v, &s->dec);
     if (r == BRV_OK && (!s->slots || !s->pool || !s->scratch || (half && !s->scales))) r = BRV_E_NOMEM;
+    /* Rows of cells start on cache lines, so a sample's x neighbours share a line as often as
+     * the brick allows (a row of 16 cells of 4 halves: two lines, not three). */
+    if (r == BRV_OK) s->cells = (uint8_t *)s->pool + ((64u - ((uintptr_t)s->pool & 63u)) & 63u);
     if (r != BRV_OK) {
         brv_sampler_free(s);
         return r;
@@ -105,17 +110,17 @@ brv_result brv_sampler_create_channels(const brv_volume *v, uint32_t cache_brick
 #if defined(__linux__) && defined(MADV_HUGEPAGE)
     /* A large cache is read at random: large pages spare a page walk on most reads (a hint). */
     if (total * es >= (16u << 20)) {
-        uintptr_t lo = ((uintptr_t)s->pool + 4095u) & ~(uintptr_t)4095u;
-        uintptr_t hi = ((uintptr_t)s->pool + total * es) & ~(uintptr_t)4095u;
+        uintptr_t lo = ((uintptr_t)s->cells + 4095u) & ~(uintptr_t)4095u;
+        uintptr_t hi = ((uintptr_t)s->cells + total * es) & ~(uintptr_t)4095u;
         if (hi > lo) (void)madvise((void *)lo, hi - lo, MADV_HUGEPAGE);
     }
 #endif
     /* The cache's pages are committed now (one write a page), so sampling pays no page faults:
      * their cost is in this call, whatever the first samples are. */
-    for (size_t at = 0; at < total * es; at += 4096) ((volatile uint8_t *)s->pool)[at] = 0;
+    for (size_t at = 0; at < total * es; at += 4096) ((volatile uint8_t *)s->cells)[at] = 0;
     for (uint32_t i = 0; i < cache_bricks; i++) {
         s->slots[i].brick = UINT32_MAX;
-        s->slots[i].data = (uint8_t *)s->pool + (size_t)i * per * es;
+        s->slots[i].data = s->cells + (size_t)i * per * es;
         s->slots[i].scale = half ? s->scales + (size_t)i * nc : NULL;
     }
     for (int k = 0; k < 3; k++) {
