@@ -18,6 +18,12 @@
 #include <emmintrin.h>
 #endif
 
+#if defined(__GNUC__)
+#define BRV_NOINLINE __attribute__((noinline))
+#else
+#define BRV_NOINLINE
+#endif
+
 typedef struct slot {
     uint32_t brick; /* UINT32_MAX: empty */
     uint32_t ext[3];
@@ -150,7 +156,7 @@ void brv_sampler_free(brv_sampler *s)
 }
 
 /* Decodes brick b into slot sl (interleaving its channels). */
-static brv_result fill(brv_sampler *s, slot *sl, uint32_t b)
+BRV_NOINLINE static brv_result fill(brv_sampler *s, slot *sl, uint32_t b)
 {
     uint32_t o[3], nc = s->nc;
     const uint8_t *map = s->map;
@@ -228,7 +234,7 @@ static inline uint32_t set_of(const brv_sampler *s, uint32_t b)
     return (uint32_t)(((uint64_t)(b * 2654435769u) * s->sets) >> 32);
 }
 
-static brv_result fetch(brv_sampler *s, uint32_t b, const slot **out)
+static inline brv_result fetch(brv_sampler *s, uint32_t b, const slot **out)
 {
     slot *sl;
     if (s->direct) {
