@@ -75,7 +75,7 @@ static size_t frustum_batch_bytes(void)
     return (size_t)FRUSTUM_BATCH * (sizeof(brm_kernel_view_sample) + sizeof(brm_media_point) + sizeof(double));
 }
 
-/* Bricks computed per batch before the writer drains them in order. */
+/* Bricks in flight for world and probe targets (the ring of brm_run_plan). */
 static uint32_t batch_bricks(int threads) { return (uint32_t)threads * 4; }
 
 /* Units in flight (the ring of unit buffers brm_run_plan computes into and writes from, in
@@ -100,7 +100,7 @@ uint64_t brm_bake_estimate_memory(const brm_scene *s, uint32_t t, const brm_bake
     m += brm_shadows_memory(s, &so);
     m += brm_bvh_memory(s);
     if (g.kind == BRM_GRID_PROBES) m += brm_probes_memory(s, t, &g, o);
-    /* The batch of units computed before the writer drains them (brm_run_plan): four bricks a
+    /* The ring of unit buffers brm_run_plan computes into and writes from: four bricks a
      * thread, or for frustum targets up to four columns of bricks a thread (batch_units). */
     uint64_t unit_floats = (uint64_t)BRM_BRICK * BRM_BRICK * BRM_BRICK * 20;
     uint64_t units = batch_bricks(effective_threads(o));
