@@ -205,7 +205,13 @@ static int cells4_sse2(const uint8_t *const lo[4], const uint8_t *const hi[4], c
         k[c] = _mm_set1_epi16((short)cval[c]);
         if (!lo[c]) special = _mm_or_si128(special, _mm_cmpeq_epi16(_mm_and_si128(k[c], expm), expm));
     }
+    /* The slot is read ahead 2 KiB (hints, as addresses: a prefetch never faults), so the
+     * stores find their lines owned. */
+    uintptr_t at = (uintptr_t)out;
+    for (size_t k = 0; k < 2048; k += 64) __builtin_prefetch((const void *)(at + k));
     for (size_t row = 0; row < n; row += 16) {
+        __builtin_prefetch((const void *)(at + 8 * row + 2048));
+        __builtin_prefetch((const void *)(at + 8 * row + 2048 + 64));
         __m128i v[4][2];
         for (int c = 0; c < 4; c++) {
             if (!lo[c]) {
