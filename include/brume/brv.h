@@ -300,7 +300,10 @@ BRV_API void brv_decoder_free(brv_decoder *d);
  * aligned — faster when the output will not be read again soon, as when a whole volume is
  * decoded brick by brick into one large array; slower when it will, as with a small reused
  * buffer. Off by default. The values are the same either way and are visible to other
- * threads when the call returns. Accepts NULL. */
+ * threads when the call returns. Accepts NULL.
+ * (Whatever this setting, f32 channels with rows of 16 cells are un-filtered with AVX2 on
+ * x86-64 processors that have it, chosen at run time, with the output read a little ahead;
+ * the values are the same bits as the portable code's.) */
 BRV_API void brv_decoder_set_streaming(brv_decoder *d, int on);
 
 /* Decodes brick b, every channel, channel-major in the layout brv_writer_put_brick takes:
