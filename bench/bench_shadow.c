@@ -22,6 +22,7 @@
 #include "shadow/shadow_internal.h"
 #include "voxel/bvh.h"
 #include "voxel/grid.h"
+#include "bench_lights.h"
 
 static uint64_t rng_state = 1;
 static double unif(void)
@@ -206,35 +207,6 @@ static double cpu_seconds(void)
     return (double)t.tv_sec + 1e-9 * (double)t.tv_nsec;
 }
 
-/* The lights of bench_targets.c's frustum case: the scene's sun and eight 15 m point lights
- * along the view. */
-static void frustum_lights(brm_scene *s, const brm_target *ft)
-{
-    brm_light sun = {0};
-    for (uint32_t l = 0; l < s->light_count; l++)
-        if (s->lights[l].type == BRM_LIGHT_DIRECTIONAL) sun = s->lights[l];
-    brm_light *lights = realloc(s->lights, 9 * sizeof *lights);
-    if (!lights) exit(1);
-    s->lights = lights;
-    s->light_count = 9;
-    s->lights[0] = sun;
-    brm_vec3 eye = ft->camera.position, fwd = brm_norm(brm_sub(ft->camera.look_at, eye));
-    brm_vec3 side = brm_norm(brm_cross(fwd, brm_v3(0, 1, 0)));
-    for (int i = 0; i < 8; i++) {
-        brm_light *l = &s->lights[1 + i];
-        memset(l, 0, sizeof *l);
-        l->type = BRM_LIGHT_POINT;
-        l->position = brm_add(brm_madd(eye, fwd, 2.0 + 1.6 * i), brm_scale(side, (i & 1) ? 1.5 : -1.5));
-        l->position.y = 2.5 + 0.3 * (i % 3);
-        l->intensity_cd = 300;
-        l->range_m = 15;
-        l->color = brm_v3(1, 0.9, 0.8);
-        l->shadow = true;
-        l->softness_texels = 1.5;
-        snprintf(l->json_path, sizeof l->json_path, "lights[%d]", 1 + i);
-    }
-}
-
 #define N_DEMO_QUERY 100000
 #define N_DEMO_CHECK 1500
 
@@ -255,7 +227,7 @@ static int demo_bench(int threads, bool frustum)
     brm_target *tg = &s->targets[t];
     if (frustum) {
         tg->cells[0] = 160, tg->cells[1] = 90, tg->cells[2] = 128, tg->samples = 4;
-        frustum_lights(s, tg);
+        bench_frustum_lights(s, tg);
     }
     brm_grid g;
     if (brm_grid_init(&g, tg, &d) != BRM_OK) return 1;

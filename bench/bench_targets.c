@@ -21,6 +21,7 @@
 #include "scene/light.h"
 #include "scene/media.h"
 #include "scene/scene.h"
+#include "bench_lights.h"
 
 static brm_bake_stats run(const brm_scene *s, uint32_t t, int threads, const char *out)
 {
@@ -81,36 +82,13 @@ int main(int argc, char **argv)
     }
     brm_target *ft = &s->targets[f];
     ft->cells[0] = 160, ft->cells[1] = 90, ft->cells[2] = 128, ft->samples = 4;
-    /* One sun (the scene's first directional light) and eight point lights of 15 m range along
-     * the view, a metre and a half either side of the centre line. */
-    brm_light sun = {0};
-    for (uint32_t l = 0; l < s->light_count; l++)
-        if (s->lights[l].type == BRM_LIGHT_DIRECTIONAL) sun = s->lights[l];
-    /* The demo's own lights, for the probe part (issue: "over the demo scene"). */
+    /* The demo's own lights, for the probe part (issue: "over the demo scene"); the frustum part
+     * gets the sun and eight point lights of bench_lights.h. */
     uint32_t demo_light_count = s->light_count;
     brm_light *demo_lights = malloc((demo_light_count ? demo_light_count : 1) * sizeof *demo_lights);
     if (!demo_lights) return 1;
     memcpy(demo_lights, s->lights, demo_light_count * sizeof *demo_lights);
-    brm_light *lights = realloc(s->lights, (demo_light_count > 9 ? demo_light_count : 9) * sizeof *lights);
-    if (!lights) return 1;
-    s->lights = lights;
-    s->light_count = 9;
-    s->lights[0] = sun;
-    brm_vec3 eye = ft->camera.position, fwd = brm_norm(brm_sub(ft->camera.look_at, eye));
-    brm_vec3 side = brm_norm(brm_cross(fwd, brm_v3(0, 1, 0)));
-    for (int i = 0; i < 8; i++) {
-        brm_light *l = &s->lights[1 + i];
-        memset(l, 0, sizeof *l);
-        l->type = BRM_LIGHT_POINT;
-        l->position = brm_add(brm_madd(eye, fwd, 2.0 + 1.6 * i), brm_scale(side, (i & 1) ? 1.5 : -1.5));
-        l->position.y = 2.5 + 0.3 * (i % 3);
-        l->intensity_cd = 300;
-        l->range_m = 15;
-        l->color = brm_v3(1, 0.9, 0.8);
-        l->shadow = true;
-        l->softness_texels = 1.5;
-        snprintf(l->json_path, sizeof l->json_path, "lights[%d]", 1 + i);
-    }
+    bench_frustum_lights(s, ft);
     if (do_frustum)
         printf("frustum %ux%ux%u, %u samples, 1 sun + 8 point lights (15 m), shadows on, fog of the demo\n",
                ft->cells[0], ft->cells[1], ft->cells[2], ft->samples);

@@ -446,6 +446,29 @@ static inline uint64_t prim_key(const prim *p)
     return p->tri == UINT32_MAX ? ((uint64_t)1 << 32) | p->object : p->tri;
 }
 
+/* An inner node n: tests both children's boxes, so that only boxes the ray crosses within
+ * [tmin, tmax] are visited, the nearer first (for closest hits the likelier to shorten tmax,
+ * for occlusion the likelier blocker of a ray leaving a surface); the farther one goes on the
+ * stack. Returns 1 with *ni set to the child to visit next, 0 when the ray misses both. */
+static inline int descend(const ray *r, const brm_bvh *b, const node *n, double tmin, double tmax, uint32_t *ni,
+                          uint32_t *stack, int *sp)
+{
+    uint32_t first = n->index, second = n->index + 1;
+    if (r->neg[n->axis]) { uint32_t tmp = first; first = second; second = tmp; }
+    double t0, t1;
+    int h0 = slab(r, &b->nodes[first], tmin, tmax, &t0);
+    int h1 = slab(r, &b->nodes[second], tmin, tmax, &t1);
+    if (h0 && h1) {
+        if (t1 < t0) { uint32_t tmp = first; first = second; second = tmp; }
+        stack[(*sp)++] = second;
+        *ni = first;
+        return 1;
+    }
+    if (h0) { *ni = first; return 1; }
+    if (h1) { *ni = second; return 1; }
+    return 0;
+}
+
 int brm_bvh_intersect(const brm_bvh *b, brm_vec3 o, brm_vec3 dir, double tmin, double tmax, brm_hit *hit)
 {
     if (b->prim_count == 0) return 0;
@@ -477,19 +500,7 @@ int brm_bvh_intersect(const brm_bvh *b, brm_vec3 o, brm_vec3 dir, double tmin, d
                 }
             }
         } else {
-            uint32_t first = n->index, second = n->index + 1;
-            if (r.neg[n->axis]) { uint32_t tmp = first; first = second; second = tmp; }
-            double t0, t1;
-            int h0 = slab(&r, &b->nodes[first], tmin, best_t, &t0);
-            int h1 = slab(&r, &b->nodes[second], tmin, best_t, &t1);
-            if (h0 && h1) {
-                if (t1 < t0) { uint32_t tmp = first; first = second; second = tmp; }
-                stack[sp++] = second;
-                ni = first;
-                continue;
-            }
-            if (h0) { ni = first; continue; }
-            if (h1) { ni = second; continue; }
+            if (descend(&r, b, n, tmin, best_t, &ni, stack, &sp)) continue;
         }
         if (sp == 0) break;
         ni = stack[--sp];
@@ -517,21 +528,7 @@ int brm_bvh_occluded(const brm_bvh *b, brm_vec3 o, brm_vec3 dir, double tmin, do
                 if (prim_hit(&b->prims[i], o, dir, tmin, tmax, &t, NULL)) return 1;
             }
         } else {
-            /* Both children's boxes tested here: only boxes the ray crosses are visited, the
-             * nearer first (the likelier blocker for a ray leaving a surface). */
-            uint32_t first = n->index, second = n->index + 1;
-            if (r.neg[n->axis]) { uint32_t tmp = first; first = second; second = tmp; }
-            double t0, t1;
-            int h0 = slab(&r, &b->nodes[first], tmin, tmax, &t0);
-            int h1 = slab(&r, &b->nodes[second], tmin, tmax, &t1);
-            if (h0 && h1) {
-                if (t1 < t0) { uint32_t tmp = first; first = second; second = tmp; }
-                stack[sp++] = second;
-                ni = first;
-                continue;
-            }
-            if (h0) { ni = first; continue; }
-            if (h1) { ni = second; continue; }
+            if (descend(&r, b, n, tmin, tmax, &ni, stack, &sp)) continue;
         }
         if (sp == 0) break;
         ni = stack[--sp];

@@ -1003,6 +1003,14 @@ static float four_kinds(uint32_t c, uint32_t x, uint32_t y, uint32_t z, void *us
     return fixture_smooth(c == 3 ? 1 : 0, x, y, z, user);
 }
 
+/* Every encoding at once: an f16, an f32, an rgb9e5 triplet and a bright f16 channel. */
+static const brv_channel_desc MIXED_CHANNELS[6] = {{"extinction", "1/m", BRV_ENCODING_F16},
+                                                   {"occupancy", "", BRV_ENCODING_F32},
+                                                   {"inscatter.r", "", BRV_ENCODING_RGB9E5},
+                                                   {"inscatter.g", "", BRV_ENCODING_RGB9E5},
+                                                   {"inscatter.b", "", BRV_ENCODING_RGB9E5},
+                                                   {"sun", "cd/m2", BRV_ENCODING_F16}};
+
 /* A volume of exactly four f16 channels in bricks of 16 decodes whole-row bricks straight into
  * the sampler's slots (brv_decode_brick_cells16) and the short bricks at the x edge the other
  * way: both give the trilinear interpolation of the decoded values to float rounding, and the
@@ -1058,12 +1066,7 @@ static void sampler_should_fill_four_f16_channels_directly(void **state)
 static void streaming_decoder_should_give_the_same_values(void **state)
 {
     (void)state;
-    static const brv_channel_desc ch[6] = {{"extinction", "1/m", BRV_ENCODING_F16},
-                                           {"occupancy", "", BRV_ENCODING_F32},
-                                           {"inscatter.r", "", BRV_ENCODING_RGB9E5},
-                                           {"inscatter.g", "", BRV_ENCODING_RGB9E5},
-                                           {"inscatter.b", "", BRV_ENCODING_RGB9E5},
-                                           {"sun", "cd/m2", BRV_ENCODING_F16}};
+    const brv_channel_desc *ch = MIXED_CHANNELS;
     brv_write_desc d = fixture_world(37, 21, 18, ch, 6);
     size_t size;
     uint8_t *buf = write_or_fail(&d, bright_field, NULL, &size);
@@ -1124,12 +1127,7 @@ static void streaming_decoder_should_give_the_same_values(void **state)
 static void decode_to_halves_should_equal_rounded_floats(void **state)
 {
     (void)state;
-    static const brv_channel_desc ch[6] = {{"extinction", "1/m", BRV_ENCODING_F16},
-                                           {"occupancy", "", BRV_ENCODING_F32},
-                                           {"inscatter.r", "", BRV_ENCODING_RGB9E5},
-                                           {"inscatter.g", "", BRV_ENCODING_RGB9E5},
-                                           {"inscatter.b", "", BRV_ENCODING_RGB9E5},
-                                           {"sun", "cd/m2", BRV_ENCODING_F16}};
+    const brv_channel_desc *ch = MIXED_CHANNELS;
     for (int bright = 0; bright < 2; bright++) {
         brv_write_desc d = fixture_world(37, 21, 18, ch, 6);
         size_t size;
