@@ -43,7 +43,7 @@ void brm_shadows_free(brm_shadow_set *ss);
  * their cap (one grid cell in 8), of which a build typically uses a few per cent, so this is
  * an upper bound. Default map resolution: a texel of opts.cell_size /
  * BRM_SHADOW_TEXELS_PER_CELL at the far side of the target, capped at 4096 texels per side
- * (2048 per cube face); a light's
+ * (BRM_SHADOW_AUTO_MAX_CUBE = 1024 per cube face); a light's
  * shadow.resolution overrides it (16..16384). */
 size_t brm_shadows_memory(const brm_scene *s, const brm_shadow_opts *o);
 
