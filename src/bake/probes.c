@@ -303,20 +303,29 @@ static void surface_direct(const probe_ctx *c, brm_vec3 p, brm_vec3 n, double E[
     }
 }
 
+/* Whether light l lights the front face of triangle tri at p (normal n): 1 with its
+ * illuminance *e and incidence cosine *cosi, both positive; 0 for a light the triangle's list
+ * leaves out, one that does not reach p, or one behind the face. */
+static inline int front_light(const probe_ctx *c, uint32_t tri, uint32_t l, brm_vec3 p, brm_vec3 n, double *e,
+                              double *cosi)
+{
+    if (c->tri_lights && !(c->tri_lights[tri] >> l & 1)) return 0;
+    brm_vec3 to;
+    double dist;
+    *e = brm_light_illuminance(&c->s->lights[l], p, &to, &dist);
+    *cosi = brm_dot(n, to);
+    return *e > 0 && *cosi > 0;
+}
+
 /* The direct light's unshadowed part alone (cheap: no map is read) at a front-face hit on
  * triangle tri. */
 static void surface_unshadowed(const probe_ctx *c, uint32_t tri, brm_vec3 p, brm_vec3 n, double U[3])
 {
     U[0] = U[1] = U[2] = 0.0;
-    const uint64_t mask = c->tri_lights ? c->tri_lights[tri] : 0;
     for (uint32_t l = 0; l < c->s->light_count; l++) {
-        if (c->tri_lights && !(mask >> l & 1)) continue;
         const brm_light *lt = &c->s->lights[l];
-        brm_vec3 to;
-        double dist;
-        double e = brm_light_illuminance(lt, p, &to, &dist);
-        double cosi = brm_dot(n, to);
-        if (e <= 0 || cosi <= 0) continue;
+        double e, cosi;
+        if (!front_light(c, tri, l, p, n, &e, &cosi)) continue;
         e *= cosi;
         U[0] += e * lt->color.x;
         U[1] += e * lt->color.y;
@@ -411,15 +420,10 @@ static void surface_fallback(const probe_ctx *c, uint32_t tri, brm_vec3 p, brm_v
                              double E[3])
 {
     E[0] = E[1] = E[2] = 0.0;
-    const uint64_t mask = c->tri_lights ? c->tri_lights[tri] : 0;
     for (uint32_t l = 0; l < c->s->light_count; l++) {
-        if (c->tri_lights && !(mask >> l & 1)) continue;
         const brm_light *lt = &c->s->lights[l];
-        brm_vec3 to;
-        double dist;
-        double e = brm_light_illuminance(lt, p, &to, &dist);
-        double cosi = brm_dot(n, to);
-        if (e <= 0 || cosi <= 0) continue;
+        double e, cosi;
+        if (!front_light(c, tri, l, p, n, &e, &cosi)) continue;
         const float *x0 = cell->extra[0] + 2 * l, *x1 = cell->extra[1] + 2 * l;
         const float *x2 = cell->extra[2] + 2 * l, *x3 = cell->extra[3] + 2 * l;
         double vis;
