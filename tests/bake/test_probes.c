@@ -113,17 +113,19 @@ static void probe_facing_a_lit_white_wall_should_see_its_exitance(void **state)
     brv_free(v);
 }
 
-static void probe_lattice_facing_a_lit_white_wall_should_see_its_exitance_through_the_surface_cache(void **state)
+/* The wall above with a 9 × 9 lattice 0.5 m in front of it, enough rays that the bake uses the
+ * surface cache for the bounce (nodes at half the 1 m spacing), lit by a sun of 100 lux
+ * travelling along `direction`; every probe's irradiance toward the wall must be `expect`. */
+static void wall_lattice_through_the_surface_cache(const char *direction, double expect)
 {
-    (void)state;
-    /* The wall above with a 9 × 9 lattice 0.5 m in front of it, enough rays that the bake uses
-     * the surface cache for the bounce (nodes at half the 1 m spacing). */
-    const char *json =
-        "{\"brume\": 1, \"name\": \"wall\", \"fog_bounds\": {\"min\": [-1,-21,-21], \"max\": [6,21,21]},"
-        " \"geometry\": [{\"shape\": \"box\", \"min\": [-0.4,-20,-20], \"max\": [0,20,20], \"albedo\": [1,1,1]}],"
-        " \"lights\": [{\"type\": \"directional\", \"direction\": [-1,0,0], \"illuminance_lux\": 100}],"
-        " \"targets\": [{\"name\": \"p\", \"grid\": \"probes\", \"min\": [0.5,-4,-4], \"max\": [0.5,4,4], \"spacing_m\": 1,"
-        "   \"rays\": 2048, \"encoding\": \"f32\"}]}";
+    char json[1024];
+    snprintf(json, sizeof json,
+             "{\"brume\": 1, \"name\": \"wall\", \"fog_bounds\": {\"min\": [-1,-21,-21], \"max\": [6,21,21]},"
+             " \"geometry\": [{\"shape\": \"box\", \"min\": [-0.4,-20,-20], \"max\": [0,20,20], \"albedo\": [1,1,1]}],"
+             " \"lights\": [{\"type\": \"directional\", \"direction\": %s, \"illuminance_lux\": 100}],"
+             " \"targets\": [{\"name\": \"p\", \"grid\": \"probes\", \"min\": [0.5,-4,-4], \"max\": [0.5,4,4], \"spacing_m\": 1,"
+             "   \"rays\": 2048, \"encoding\": \"f32\"}]}",
+             direction);
     brm_scene *s = load_json(json);
     /* The bake caches when the nodes number at most a quarter of the rays. */
     assert_true(brm_surface_cache_nodes(s, 0.5) <= 81 * 2048 / 4);
@@ -136,16 +138,34 @@ static void probe_lattice_facing_a_lit_white_wall_should_see_its_exitance_throug
     assert_true(files_equal(a, b));
     brm_scene_free(s);
     assert_int_equal(brv_channel_size(v), 81);
-    const double E = 100.0;
     for (size_t c = 0; c < 81; c++) {
         double L[9];
         probe_sh(v, 'g', c, L);
-        /* Source: as in the single-probe case above — exitance M = albedo·E from a plane filling
-         * the hemisphere, plus the sun's band-limited ringing E/16 from behind (REFERENCES.md
-         * §3); the wall's edges, 16 m away or more, hide under 0.1 % of the hemisphere. */
-        assert_rel(brm_sh9_irradiance(L, brm_v3(-1, 0, 0)), E * 1.0 + E / 16.0, 0.05);
+        assert_rel(brm_sh9_irradiance(L, brm_v3(-1, 0, 0)), expect, 0.05);
     }
     brv_free(v);
+}
+
+static void probe_lattice_facing_a_lit_white_wall_should_see_its_exitance_through_the_surface_cache(void **state)
+{
+    (void)state;
+    /* Source: as in the single-probe case above — exitance M = albedo·E from a plane filling
+     * the hemisphere, plus the sun's band-limited ringing E/16 from behind (REFERENCES.md §3);
+     * the wall's edges, 16 m away or more, hide under 0.1 % of the hemisphere. */
+    const double E = 100.0;
+    wall_lattice_through_the_surface_cache("[-1,0,0]", E * 1.0 + E / 16.0);
+}
+
+static void probe_lattice_facing_an_obliquely_lit_wall_should_see_the_cosine_of_its_exitance(void **state)
+{
+    (void)state;
+    /* The sun 60° off the wall's normal (travelling along (−1/2, −√3/2, 0)): the wall's
+     * exitance is albedo·E·cos 60° (Lambert's cosine law), delivered whole by a plane filling
+     * the hemisphere; the sun itself, 120° from the probe's normal toward the wall, adds its
+     * band-limited value −5/128·E (Ramamoorthi–Hanrahan bands 0–2, REFERENCES.md §3 table).
+     * Source: Lambert's cosine law and REFERENCES.md §3. */
+    const double E = 100.0;
+    wall_lattice_through_the_surface_cache("[-0.5,-0.8660254037844386,0]", E * 0.5 - E * 5.0 / 128.0);
 }
 
 static void probe_under_a_roof_should_get_no_sun_and_probe_in_a_box_is_invalid(void **state)
@@ -223,6 +243,7 @@ int main(void)
         cmocka_unit_test(directional_light_should_project_as_a_delta),
         cmocka_unit_test(probe_facing_a_lit_white_wall_should_see_its_exitance),
         cmocka_unit_test(probe_lattice_facing_a_lit_white_wall_should_see_its_exitance_through_the_surface_cache),
+        cmocka_unit_test(probe_lattice_facing_an_obliquely_lit_wall_should_see_the_cosine_of_its_exitance),
         cmocka_unit_test(probe_under_a_roof_should_get_no_sun_and_probe_in_a_box_is_invalid),
         cmocka_unit_test(probes_should_be_identical_across_thread_counts_and_relocate_out_of_solids),
     };
