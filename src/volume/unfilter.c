@@ -352,20 +352,20 @@ static void w32_sse2(const uint8_t *restrict src, size_t n, uint32_t nx, float s
 
 enum { PF_AHEAD = 512 }; /* floats */
 
+/* Rows from `row` on (a multiple of 16) in pairs; returns where it stopped. */
 __attribute__((target("avx2"))) static size_t f32_avx2_rows16(const uint8_t *restrict src, size_t n,
-                                                              float *restrict out, int nt)
+                                                              float *restrict out, int nt, size_t row)
 {
     const uint8_t *b0 = src, *b1 = src + n, *b2 = src + 2 * n, *b3 = src + 3 * n;
     const __m256i hi = _mm256_set_epi32(-1, -1, 0, 0, -1, -1, 0, 0);
     __m256i o0, o1, o2, o3;
-    size_t row = 0;
     if (!nt) {
         /* The output is read ahead 2 KiB (hints; a prefetch never faults, so past the end of
          * this group's output too, computed as an address): the lines arrive owned before the
          * stores reach them, so the stores do not wait on memory one by one (256 MiB of floats
          * into a volume far larger than the caches: 42 -> 27 ms). */
         uintptr_t at = (uintptr_t)out;
-        for (size_t k = 0; k < PF_AHEAD && k < n; k += 16) __builtin_prefetch((const void *)(at + 4 * k));
+        for (size_t k = row; k < row + PF_AHEAD && k < n; k += 16) __builtin_prefetch((const void *)(at + 4 * k));
         for (; row + 32 <= n; row += 32) {
             BRV_AVX2_PAIR(b0, b1, b2, b3, row, hi, o0, o1, o2, o3);
             __m256i *p = (__m256i *)(void *)(out + row);
@@ -403,13 +403,76 @@ __attribute__((target("avx2"))) static size_t f32_avx2_rows16(const uint8_t *res
 }
 
 static int have_avx2(void) { return __builtin_cpu_supports("avx2"); }
+
+/* AVX-512 (F and BW, chosen at run time): four rows of 16 cells at a time. A 64-byte load of
+ * a byte plane holds those rows' bytes one row per 128-bit lane, so the in-lane unpacks merge
+ * the planes of four rows at once, as the AVX2 code does for two; the prefix sum within each
+ * group of four words takes one shift and one masked add of a lane broadcast (no mask and
+ * unpack), the carries between the groups three broadcasts; a 4 x 4 transpose of 128-bit lanes
+ * (eight shuffles) puts the words back in row order. Half the shuffles a word of the AVX2
+ * code (23 for 64 words instead of 32), the same sums modulo 2^32 of the same words, so the
+ * same bits. Rows left over (fewer than four) are the AVX2 code's. */
+__attribute__((target("avx512f,avx512bw"))) static size_t f32_avx512_rows16(const uint8_t *restrict src, size_t n,
+                                                                           float *restrict out, int nt)
+{
+    const uint8_t *b0 = src, *b1 = src + n, *b2 = src + 2 * n, *b3 = src + 3 * n;
+    size_t row = 0;
+    uintptr_t at = (uintptr_t)out;
+    if (!nt)
+        for (size_t k = 0; k < PF_AHEAD && k < n; k += 16) __builtin_prefetch((const void *)(at + 4 * k));
+    for (; row + 64 <= n; row += 64) {
+        __m512i x0 = _mm512_loadu_si512((const void *)(b0 + row)), x1 = _mm512_loadu_si512((const void *)(b1 + row));
+        __m512i x2 = _mm512_loadu_si512((const void *)(b2 + row)), x3 = _mm512_loadu_si512((const void *)(b3 + row));
+        __m512i l0 = _mm512_unpacklo_epi8(x0, x1), l1 = _mm512_unpackhi_epi8(x0, x1);
+        __m512i h0 = _mm512_unpacklo_epi8(x2, x3), h1 = _mm512_unpackhi_epi8(x2, x3);
+        /* lane j of w0..w3: row j's words 0-3, 4-7, 8-11, 12-15 */
+        __m512i w0 = _mm512_unpacklo_epi16(l0, h0), w1 = _mm512_unpackhi_epi16(l0, h0);
+        __m512i w2 = _mm512_unpacklo_epi16(l1, h1), w3 = _mm512_unpackhi_epi16(l1, h1);
+        w0 = _mm512_add_epi32(w0, _mm512_slli_epi64(w0, 32));
+        w1 = _mm512_add_epi32(w1, _mm512_slli_epi64(w1, 32));
+        w2 = _mm512_add_epi32(w2, _mm512_slli_epi64(w2, 32));
+        w3 = _mm512_add_epi32(w3, _mm512_slli_epi64(w3, 32));
+        /* words 2 and 3 of each four get word 1 (the sum of words 0 and 1) */
+        w0 = _mm512_mask_add_epi32(w0, 0xCCCC, w0, _mm512_shuffle_epi32(w0, _MM_PERM_BBBB));
+        w1 = _mm512_mask_add_epi32(w1, 0xCCCC, w1, _mm512_shuffle_epi32(w1, _MM_PERM_BBBB));
+        w2 = _mm512_mask_add_epi32(w2, 0xCCCC, w2, _mm512_shuffle_epi32(w2, _MM_PERM_BBBB));
+        w3 = _mm512_mask_add_epi32(w3, 0xCCCC, w3, _mm512_shuffle_epi32(w3, _MM_PERM_BBBB));
+        w1 = _mm512_add_epi32(w1, _mm512_shuffle_epi32(w0, _MM_PERM_DDDD));
+        w2 = _mm512_add_epi32(w2, _mm512_shuffle_epi32(w1, _MM_PERM_DDDD));
+        w3 = _mm512_add_epi32(w3, _mm512_shuffle_epi32(w2, _MM_PERM_DDDD));
+        __m512i t0 = _mm512_shuffle_i32x4(w0, w1, 0x44), t1 = _mm512_shuffle_i32x4(w0, w1, 0xEE);
+        __m512i t2 = _mm512_shuffle_i32x4(w2, w3, 0x44), t3 = _mm512_shuffle_i32x4(w2, w3, 0xEE);
+        __m512i r0 = _mm512_shuffle_i32x4(t0, t2, 0x88), r1 = _mm512_shuffle_i32x4(t0, t2, 0xDD);
+        __m512i r2 = _mm512_shuffle_i32x4(t1, t3, 0x88), r3 = _mm512_shuffle_i32x4(t1, t3, 0xDD);
+        float *p = out + row;
+        if (nt) {
+            _mm512_stream_si512((void *)p, r0);
+            _mm512_stream_si512((void *)(p + 16), r1);
+            _mm512_stream_si512((void *)(p + 32), r2);
+            _mm512_stream_si512((void *)(p + 48), r3);
+        } else {
+            __builtin_prefetch((const void *)(at + 4 * (row + PF_AHEAD)));
+            __builtin_prefetch((const void *)(at + 4 * (row + PF_AHEAD + 16)));
+            __builtin_prefetch((const void *)(at + 4 * (row + PF_AHEAD + 32)));
+            __builtin_prefetch((const void *)(at + 4 * (row + PF_AHEAD + 48)));
+            _mm512_storeu_si512((void *)p, r0);
+            _mm512_storeu_si512((void *)(p + 16), r1);
+            _mm512_storeu_si512((void *)(p + 32), r2);
+            _mm512_storeu_si512((void *)(p + 48), r3);
+        }
+    }
+    return row;
+}
+
+static int have_avx512(void) { return __builtin_cpu_supports("avx512f") && __builtin_cpu_supports("avx512bw"); }
 #endif
 #endif
 
 /* ---- entry points ---------------------------------------------------------------------- */
-/* simd: 0 the scalar reference, 1 SSE2 (or AVX2 where the processor has it), 2 the same with
- * streaming stores when out is 16-byte aligned (the caller then issues brv_store_fence before
- * the output is shared), 3 SSE2 only (for the tests, on processors that have AVX2). */
+/* simd: 0 the scalar reference, 1 SSE2 (or AVX2 or AVX-512 where the processor has them), 2
+ * the same with streaming stores when out is 16-byte aligned (the caller then issues
+ * brv_store_fence before the output is shared), 3 SSE2 only and 4 no AVX-512 (for the tests,
+ * on processors that have them). */
 
 void brv_store_fence(void)
 {
@@ -450,8 +513,13 @@ void brv_unfilter_w32(const uint8_t *src, size_t n, uint32_t nx, int ex, uint32_
         int nt = simd == 2 && ((uintptr_t)out & 15) == 0;
 #if defined(BRV_HAVE_AVX2)
         if (simd != 3 && nx == 16 && code == BRV_ENCODING_F32 && have_avx2()) {
-            /* rows in pairs by AVX2, a last odd row by SSE2 on its own planes' tails */
-            size_t done = f32_avx2_rows16(src, n, out, nt);
+            /* rows in fours by AVX-512 (not for streaming into a destination that is not
+             * 64-byte aligned), then in pairs by AVX2, a last odd row by SSE2 on its own
+             * planes' tails */
+            size_t done = 0;
+            if (simd != 4 && (!nt || ((uintptr_t)out & 63) == 0) && have_avx512())
+                done = f32_avx512_rows16(src, n, out, nt);
+            done = f32_avx2_rows16(src, n, out, nt, done);
             if (done == n) return;
             uint8_t rest[64];
             for (unsigned b = 0; b < 4; b++) memcpy(rest + 16 * b, src + b * n + done, 16);

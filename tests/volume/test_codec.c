@@ -159,7 +159,7 @@ static void unfilter_should_match_scalar_reference_bit_for_bit(void **state)
     (void)state;
     enum { N = 65536 };
     uint8_t *words = malloc(4u * N), *planes = malloc(4u * N);
-    float *a = aligned_alloc(32, 3 * sizeof(float) * N), *b = malloc(3 * sizeof(float) * N); /* a: streamable */
+    float *a = aligned_alloc(64, 3 * sizeof(float) * N), *b = malloc(3 * sizeof(float) * N); /* a: streamable */
     uint32_t seed = 12345;
     for (uint32_t w = 0; w < N; w++) brv_wr16(words + 2 * w, (uint16_t)(w * 40503u)); /* every word, scattered */
     static const uint32_t nxs[] = {16, 8, 32, 5};
@@ -185,15 +185,17 @@ static void unfilter_should_match_scalar_reference_bit_for_bit(void **state)
         seed = seed * 1664525u + 1013904223u;
         brv_wr32(words + 4 * w, seed);
     }
-    /* rows of 16: AVX2 takes them in pairs where the processor has it, an odd last row by SSE2;
-     * every level (1, 2 streaming, 3 SSE2 only) gives the scalar reference's bits */
+    /* rows of 16: AVX-512 takes them in fours and AVX2 in pairs where the processor has them,
+     * an odd last row by SSE2; n runs through every remainder of rows modulo four; every level
+     * (1, 2 streaming, 3 SSE2 only, 4 no AVX-512) gives the scalar reference's bits, into
+     * 64-, 32- and 16-byte aligned destinations */
     for (size_t n = 16 * 4095; n <= 16 * 4096; n += 16) {
         shuffle_delta(words, n, 4, 16, planes);
         brv_unfilter_w32(planes, n, 16, 0, BRV_ENCODING_F32, b, 0);
         for (size_t j = 0; j < n; j++) assert_int_equal(brv_f32_bits(b[j]), brv_rd32(words + 4 * j));
-        for (int lv = 1; lv <= 3; lv++) {
-            for (int shift = 0; shift <= 4; shift += 4) { /* 32-byte aligned, then only 16 */
-                memset(a, 0, (n + 4) * sizeof(float));
+        for (int lv = 1; lv <= 4; lv++) {
+            for (int shift = 0; shift <= 8; shift += 4) { /* 64-byte aligned, then 16, then 32 */
+                memset(a, 0, (n + 8) * sizeof(float));
                 brv_unfilter_w32(planes, n, 16, 0, BRV_ENCODING_F32, a + shift, lv);
                 brv_store_fence();
                 assert_memory_equal(a + shift, b, n * sizeof(float));
