@@ -276,7 +276,7 @@ size_t brm_od_plan(const brm_scene *s, const brm_shadow_opts *o, const media_inf
     double tan_half = ls->cube ? 1.0 : tan(l->outer_deg * BRM_PI / 180.0);
     /* Lateral spacing measured at the far end of the grid, where rays are furthest apart. */
     double sl = fmin(lat / rmax, 2.0 * tan_half / 32.0), sr = fmin(along, rmax / 16.0);
-    uint32_t nl = axis_nodes(-tan_half, tan_half, sl, 4, 512), nr = axis_nodes(0.0, rmax, sr, 4, 1024);
+    uint32_t nl = axis_nodes(-tan_half, tan_half, sl, 4, 512), nr = axis_nodes(0.0, rmax, sr, 4, BRM_OD_MAX_DEPTH_NODES);
     double tot = (double)nl * nl * nr; /* the budget is per view: a cube's faces each get it */
     if (tot > BRM_OD_MAX_NODES * budget) nl = (uint32_t)fmax(8.0, floor(nl * sqrt(BRM_OD_MAX_NODES * budget / tot)));
     size_t bytes = 0;
@@ -493,28 +493,32 @@ static void fill_column(const brm_scene *s, const media_info *mi, const shadow_v
         d = brm_norm(brm_add(v->f, brm_add(brm_scale(v->u, x), brm_scale(v->v, y))));
     }
     /* Walk the column: a segment with no cut inside that fits one Simpson panel reuses the
-     * node values (two evaluations per node); the others take the general path. */
+     * node values (two evaluations per node, all of them taken along the line in one batch:
+     * node k at sample 2(k − first), the midpoints between); the others take the general
+     * path. */
     double cut[MAX_CUTS];
     double tend = v->og_lo[2] + v->og_step[2] * (double)(nk - 1);
     uint32_t nc = line_cuts(s, mi, o, d, t, tend, true, cut), ci = 0;
-    double g = 0.0, sig = sigma_cont(s, mi, brm_madd(o, d, t));
-    for (uint32_t k = 0; k < nk; k++) {
-        if (k < first || k > last) {
-            col[2 * k] = col[2 * k + 1] = 0.0f;
-            continue;
-        }
-        if (k > first) {
-            double t1 = v->og_lo[2] + v->og_step[2] * (double)k;
-            bool clean = !(ci < nc && cut[ci] < t1) && t1 - t <= h;
-            while (ci < nc && cut[ci] < t1) ci++;
-            double s1 = sigma_cont(s, mi, brm_madd(o, d, t1));
-            if (clean && !mi->only_uniform)
-                g += (t1 - t) / 6.0 * (sig + 4.0 * sigma_cont(s, mi, brm_madd(o, d, 0.5 * (t + t1))) + s1);
-            else
-                g += continued_segment(s, mi, o, d, t, t1, h);
-            t = t1;
-            sig = s1;
-        }
+    for (uint32_t k = 0; k < nk; k++)
+        if (k < first || k > last) col[2 * k] = col[2 * k + 1] = 0.0f;
+    if (first > last) return;
+    float sg[2 * BRM_OD_MAX_DEPTH_NODES];
+    brm_media_extinction_line(s, mi->noise_grid, o, d, t, 0.5 * v->og_step[2], 2 * (last - first) + 1, sg);
+    const float *sk = sg - 2 * (size_t)first; /* sk[2k] at node k, sk[2k − 1] before it */
+    double g = 0.0, sig = sk[2 * first];
+    col[2 * first] = 0.0f;
+    col[2 * first + 1] = (float)sig;
+    for (uint32_t k = first + 1; k <= last; k++) {
+        double t1 = v->og_lo[2] + v->og_step[2] * (double)k;
+        bool clean = !(ci < nc && cut[ci] < t1) && t1 - t <= h;
+        while (ci < nc && cut[ci] < t1) ci++;
+        double s1 = sk[2 * k];
+        if (clean && !mi->only_uniform)
+            g += (t1 - t) / 6.0 * (sig + 4.0 * (double)sk[2 * k - 1] + s1);
+        else
+            g += continued_segment(s, mi, o, d, t, t1, h);
+        t = t1;
+        sig = s1;
         col[2 * k] = (float)g;
         col[2 * k + 1] = (float)sig;
     }

@@ -31,6 +31,8 @@
  * checked at cell centres keeps the worst case (a kink anywhere in the cell, at most about
  * twice the centre error) under 1 % in transmittance. */
 #define BRM_OD_CHECK_TAU 0.003
+/* Depth nodes per grid column at most (point and spot lights; directional: 512). */
+#define BRM_OD_MAX_DEPTH_NODES 1024u
 #define BRM_OD_REFINE 4u
 #define BRM_OD_UNFILLED 2u      /* od_bad / blk_bad value of intervals past a column's reach */
 #define BRM_OD_BLOCK_SHARE 32u  /* at most one lateral cell in 32 gets a block (what is left marches) */
