@@ -4,8 +4,9 @@
  * 1. decode throughput of the whole volume, f16 and f32, at one and two threads, next to
  *    ZSTD_decompressDCtx alone on the same brick frames: fair (zstd writes each brick's payload
  *    into its place in a whole-volume buffer, the reader decodes to the same encoding into the
- *    same kind of buffer) and strict (zstd into one small reused buffer, which pays no memory
- *    traffic; the reader into the whole volume or into one reused brick buffer);
+ *    same kind of buffer: with a new decoder's default store mode, BRV_STREAM_AUTO, and with
+ *    BRV_STREAM_OFF and BRV_STREAM_ON) and strict (zstd into one small reused buffer, which
+ *    pays no memory traffic; the reader into the whole volume or into one reused brick buffer);
  * 2. size per encoding on a smooth synthetic field, against raw f16 and against plain zstd of
  *    the raw float32 array;
  * 3. random access: 1 million trilinear samples at random points, one thread, of every
@@ -104,22 +105,30 @@ static vol write_volume(brv_encoding main_enc, brv_encoding rgb_enc, int level)
 enum {
     ZSTD_HOT,      /* ZSTD_decompressDCtx into one reused 32 KiB-class buffer (strict floor) */
     ZSTD_PLACED,   /* ZSTD_decompressDCtx, each payload into its place in a whole-volume buffer */
-    READER_F32,    /* brv_decode_brick, floats into a whole-volume array */
+    READER_F32,    /* brv_decode_brick, floats into a whole-volume array (default store mode) */
     READER_F32_HOT,/* brv_decode_brick into one reused brick buffer */
-    READER_F16,    /* brv_decode_brick_f16, halves into a whole-volume array */
+    READER_F16,    /* brv_decode_brick_f16, halves into a whole-volume array (default store mode) */
     READER_F16_HOT,/* brv_decode_brick_f16 into one reused brick buffer */
-    READER_F32_NT, /* READER_F32 with brv_decoder_set_streaming */
-    READER_F16_NT, /* READER_F16 with brv_decoder_set_streaming */
+    READER_F32_NT, /* READER_F32 with BRV_STREAM_ON */
+    READER_F16_NT, /* READER_F16 with BRV_STREAM_ON */
+    READER_F32_OFF,/* READER_F32 with BRV_STREAM_OFF */
+    READER_F16_OFF,/* READER_F16 with BRV_STREAM_OFF */
     MODES
 };
 static const char *const mode_name[MODES] = {"zstd alone, into one reused buffer",
                                              "zstd alone, each brick into its place in the volume",
-                                             "reader, floats into the whole volume",
+                                             "reader, floats into the whole volume (default)",
                                              "reader, floats into one reused brick buffer",
-                                             "reader, halves into the whole volume",
+                                             "reader, halves into the whole volume (default)",
                                              "reader, halves into one reused brick buffer",
-                                             "reader, floats into the whole volume, streaming",
-                                             "reader, halves into the whole volume, streaming"};
+                                             "reader, floats into the whole volume, stream on",
+                                             "reader, halves into the whole volume, stream on",
+                                             "reader, floats into the whole volume, stream off",
+                                             "reader, halves into the whole volume, stream off"};
+static int is_f16_mode(int m)
+{
+    return m == READER_F16 || m == READER_F16_HOT || m == READER_F16_NT || m == READER_F16_OFF;
+}
 
 typedef struct job {
     const brv_volume *v;
@@ -154,15 +163,16 @@ static void *run_job(void *arg)
     }
     brv_decoder *dec;
     if (brv_decoder_create(j->v, &dec) != BRV_OK) exit(1);
-    brv_decoder_set_streaming(dec, j->mode == READER_F32_NT || j->mode == READER_F16_NT);
+    if (j->mode == READER_F32_NT || j->mode == READER_F16_NT) brv_decoder_set_streaming(dec, BRV_STREAM_ON);
+    if (j->mode == READER_F32_OFF || j->mode == READER_F16_OFF) brv_decoder_set_streaming(dec, BRV_STREAM_OFF);
     float *hot = malloc(per * sizeof(float));
     uint16_t *hot16 = malloc(per * sizeof(uint16_t));
     for (uint32_t b = j->first; b < g->brick_count; b += j->step) {
         brv_result r = BRV_OK;
-        if (j->mode == READER_F32 || j->mode == READER_F32_NT)
+        if (j->mode == READER_F32 || j->mode == READER_F32_NT || j->mode == READER_F32_OFF)
             r = brv_decode_brick(j->v, dec, b, j->out + (size_t)b * per, per);
         else if (j->mode == READER_F32_HOT) r = brv_decode_brick(j->v, dec, b, hot, per);
-        else if (j->mode == READER_F16 || j->mode == READER_F16_NT)
+        else if (j->mode == READER_F16 || j->mode == READER_F16_NT || j->mode == READER_F16_OFF)
             r = brv_decode_brick_f16(j->v, dec, b, j->out16 + (size_t)b * per, per);
         else r = brv_decode_brick_f16(j->v, dec, b, hot16, per);
         if (r != BRV_OK) exit(1);
@@ -225,12 +235,12 @@ static void decode_bench(const char *label, const vol *f, int is_f16)
         double wall[MODES][REPS], cpu[MODES][REPS], mw[MODES], mc[MODES];
         for (int rep = 0; rep < REPS; rep++)
             for (int m = 0; m < MODES; m++) {
-                if (!is_f16 && (m == READER_F16 || m == READER_F16_HOT || m == READER_F16_NT)) continue;
+                if (!is_f16 && is_f16_mode(m)) continue;
                 job proto = {v, 0, 1, m, out, out16, placed, place, f->bytes};
                 run_once(proto, th, &wall[m][rep], &cpu[m][rep]);
             }
         for (int m = 0; m < MODES; m++) {
-            if (!is_f16 && (m == READER_F16 || m == READER_F16_HOT || m == READER_F16_NT)) continue;
+            if (!is_f16 && is_f16_mode(m)) continue;
             qsort(wall[m], REPS, sizeof(double), cmp_double);
             qsort(cpu[m], REPS, sizeof(double), cmp_double);
             mw[m] = wall[m][REPS / 2];
@@ -238,13 +248,15 @@ static void decode_bench(const char *label, const vol *f, int is_f16)
             printf("    %d thread%s %-52s %6.3f s wall %6.3f s cpu\n", th, th > 1 ? "s" : " ", mode_name[m], mw[m], mc[m]);
         }
         int same = is_f16 ? READER_F16 : READER_F32, same_hot = is_f16 ? READER_F16_HOT : READER_F32_HOT;
-        int same_nt = is_f16 ? READER_F16_NT : READER_F32_NT;
+        int same_nt = is_f16 ? READER_F16_NT : READER_F32_NT, same_off = is_f16 ? READER_F16_OFF : READER_F32_OFF;
         printf("    %d thread%s fair   (same encoding, same kind of destination): reader at %5.1f %% of zstd's speed "
-               "(cpu; wall %5.1f %%); with streaming stores %5.1f %% (cpu; wall %5.1f %%)\n", th, th > 1 ? "s" : " ",
+               "(cpu; wall %5.1f %%) by default; stream off %5.1f %% (cpu; wall %5.1f %%), stream on %5.1f %% "
+               "(cpu; wall %5.1f %%)\n", th, th > 1 ? "s" : " ",
                100.0 * mc[ZSTD_PLACED] / mc[same], 100.0 * mw[ZSTD_PLACED] / mw[same],
+               100.0 * mc[ZSTD_PLACED] / mc[same_off], 100.0 * mw[ZSTD_PLACED] / mw[same_off],
                100.0 * mc[ZSTD_PLACED] / mc[same_nt], 100.0 * mw[ZSTD_PLACED] / mw[same_nt]);
         printf("    %d thread%s strict (zstd into one reused buffer): reader floats into the whole volume at %5.1f %% "
-               "(streaming %5.1f %%); reader %s into one reused brick buffer at %5.1f %% (cpu)\n", th, th > 1 ? "s" : " ",
+               "(stream on %5.1f %%); reader %s into one reused brick buffer at %5.1f %% (cpu)\n", th, th > 1 ? "s" : " ",
                100.0 * mc[ZSTD_HOT] / mc[READER_F32], 100.0 * mc[ZSTD_HOT] / mc[READER_F32_NT],
                is_f16 ? "halves" : "floats", 100.0 * mc[ZSTD_HOT] / mc[same_hot]);
         if (is_f16)

@@ -295,15 +295,34 @@ BRV_API brv_result brv_brick_extent(const brv_volume *v, uint32_t b, uint32_t or
 BRV_API brv_result brv_decoder_create(const brv_volume *v, brv_decoder **out);
 /* Frees a decoder; accepts NULL. */
 BRV_API void brv_decoder_free(brv_decoder *d);
-/* on ≠ 0: the decoder writes brv_decode_brick and brv_decode_brick_f16 output with streaming
- * (cache-bypassing) stores where the machine has them (SSE2) and the output is 16-byte
- * aligned — faster when the output will not be read again soon, as when a whole volume is
- * decoded brick by brick into one large array; slower when it will, as with a small reused
- * buffer. Off by default. The values are the same either way and are visible to other
- * threads when the call returns. Accepts NULL.
- * (Whatever this setting, f32 channels with rows of 16 cells are un-filtered with AVX2 on
- * x86-64 processors that have it, chosen at run time, with the output read a little ahead;
- * the values are the same bits as the portable code's.) */
+/* How brv_decode_brick and brv_decode_brick_f16 store their output (the values are the same
+ * bits in every mode, and visible to other threads when the call returns):
+ *   BRV_STREAM_OFF: ordinary stores; the output stays in the caches.
+ *   BRV_STREAM_ON: streaming (cache-bypassing, non-temporal) stores where the machine has them
+ *     (SSE2) and the output is 16-byte aligned; any other nonzero value of `on` means this.
+ *   BRV_STREAM_AUTO, the default of a new decoder: ordinary stores until the decoder's calls
+ *     have written more than BRV_STREAM_AUTO_BYTES (8 MiB) in a forward run — each call's
+ *     output starting at or after the end of the previous call's, as when a volume is decoded
+ *     brick by brick into one large array, by one thread or by several taking turns — then
+ *     streaming stores, until a call's output starts before that end (a reused buffer, a new
+ *     pass over the array), which begins a new run. Why: an ordinary store to a line that is
+ *     not in the caches first reads the line from memory (read for ownership) and later
+ *     writes it back; a streaming store only writes. Once a run has passed 8 MiB its first
+ *     bytes have left a core's caches (an x86-64 core has 1–2 MiB of L2; common practice, no
+ *     source), so keeping the rest in the caches buys nothing. Measured (bench/bench_brv,
+ *     256³ cells, 4 channels, bricks of 16³, 256 MiB of floats): ordinary stores reach 88–90 %
+ *     of ZSTD_decompress's own speed into the same kind of buffer at one and two threads,
+ *     streaming stores 97–100 %. A reused brick buffer never streams. A caller that reads each
+ *     brick right after decoding it into a large pool filled in order should choose
+ *     BRV_STREAM_OFF (its reads would otherwise come from memory).
+ * (Whatever this setting, f32 channels with rows of 16 cells are un-filtered with AVX-512 or
+ * AVX2 on x86-64 processors that have them, chosen at run time, with the output read a little
+ * ahead; the values are the same bits as the portable code's.) Accepts NULL; each call begins
+ * a new run. */
+#define BRV_STREAM_OFF 0
+#define BRV_STREAM_ON 1
+#define BRV_STREAM_AUTO 2
+#define BRV_STREAM_AUTO_BYTES (8u << 20)
 BRV_API void brv_decoder_set_streaming(brv_decoder *d, int on);
 
 /* Decodes brick b, every channel, channel-major in the layout brv_writer_put_brick takes:

@@ -163,6 +163,10 @@ brv_result brv_decode_brick_cells16(const brv_volume *v, brv_decoder *dec, uint3
 brv_result brv_decode_brick_raw16(const brv_volume *v, brv_decoder *dec, uint32_t b, uint16_t *out, size_t out_count,
                                   int8_t *scale_exp, bool *special);
 
+/* Whether the decoder's last brv_decode_brick or brv_decode_brick_f16 call streamed its
+ * output (for the tests of BRV_STREAM_AUTO). */
+bool brv_decoder_streamed(const brv_decoder *d);
+
 /* Allocator defaults. */
 void *brv_alloc(const brv_allocator *a, size_t size);
 /* The allocator the volume was opened with (NULL: malloc/free); its samplers and decoders use it. */

@@ -59,7 +59,10 @@ struct brv_decoder {
     float *scratch; /* one full brick, every channel */
     uint8_t *stored; /* bricks read on demand: one brick's stored bytes */
     uint16_t *half;  /* one full brick as halves */
-    int stream;      /* brv_decoder_set_streaming */
+    int stream;      /* brv_decoder_set_streaming: BRV_STREAM_OFF, _ON or _AUTO */
+    uintptr_t run_end; /* BRV_STREAM_AUTO: where the previous call's output ended */
+    size_t run;        /* and the bytes written by the calls of the forward run up to it */
+    bool streamed;     /* the last brick call streamed its output */
 };
 
 const brv_allocator *brv_volume_allocator(const brv_volume *v) { return v->has_alloc ? &v->alloc : NULL; }
@@ -451,6 +454,7 @@ brv_result brv_decoder_create(const brv_volume *v, brv_decoder **out)
     if (!d) return BRV_E_NOMEM;
     memset(d, 0, sizeof *d);
     d->v = v;
+    d->stream = BRV_STREAM_AUTO;
     d->dctx = ZSTD_createDCtx();
     d->payload = brv_alloc(a, v->payload_max);
     d->scratch = brv_alloc(a, brv_brick_size(v) * sizeof(float));
@@ -466,7 +470,23 @@ brv_result brv_decoder_create(const brv_volume *v, brv_decoder **out)
 
 void brv_decoder_set_streaming(brv_decoder *d, int on)
 {
-    if (d) d->stream = on != 0;
+    if (!d) return;
+    d->stream = on == BRV_STREAM_AUTO ? BRV_STREAM_AUTO : on != 0 ? BRV_STREAM_ON : BRV_STREAM_OFF;
+    d->run = 0;
+}
+
+bool brv_decoder_streamed(const brv_decoder *d) { return d && d->streamed; }
+
+/* Whether a brick call of the public API that writes bytes at out streams them (see
+ * brv_decoder_set_streaming): in BRV_STREAM_AUTO, once the forward run of outputs — each
+ * starting at or after the end of the one before — exceeds BRV_STREAM_AUTO_BYTES. */
+static bool stream_for(brv_decoder *d, const void *out, size_t bytes)
+{
+    if (d->stream != BRV_STREAM_AUTO) return d->stream == BRV_STREAM_ON;
+    uintptr_t at = (uintptr_t)out;
+    d->run = d->run && at >= d->run_end ? d->run + bytes : bytes;
+    d->run_end = at + bytes;
+    return d->run > BRV_STREAM_AUTO_BYTES;
 }
 
 void brv_decoder_free(brv_decoder *d)
@@ -573,15 +593,19 @@ static brv_result brick_payload(const brv_volume *v, brv_decoder *dec, uint32_t 
 
 /* Decodes brick b. only < 0: every channel into out (channel-major, n cells each);
  * only ≥ 0: that channel alone into out (n values). Floats to out, or (out is NULL) binary16
- * words to out16. */
+ * words to out16. caller: a brick call of the public API, whose output may be streamed (the
+ * internal calls decode into the decoder's own buffers, which stay in the caches). */
 static brv_result decode_brick(const brv_volume *v, brv_decoder *dec, uint32_t b, int only, float *out,
-                               uint16_t *out16, int8_t *raw_ex, size_t out_count, bool check_crc)
+                               uint16_t *out16, int8_t *raw_ex, size_t out_count, bool check_crc, bool caller)
 {
     uint32_t o[3], e[3];
     if (brv_brick_extent(v, b, o, e) != BRV_OK) return BRV_E_ARGUMENT;
     size_t n = (size_t)e[0] * e[1] * e[2];
     size_t need = only < 0 ? n * v->grid.channel_count : n;
     if (out_count < need) return BRV_E_BUFFER;
+    bool stream = caller && (out ? stream_for(dec, out, need * sizeof(float))
+                                 : stream_for(dec, out16, need * sizeof(uint16_t)));
+    dec->streamed = stream;
     size_t got;
     brv_result fr = brick_payload(v, dec, b, n, check_crc, &got);
     if (fr != BRV_OK) return fr;
@@ -604,12 +628,12 @@ static brv_result decode_brick(const brv_volume *v, brv_decoder *dec, uint32_t b
         if (wanted && !g->wb) return BRV_E_VERSION; /* a newer minor's encoding */
         if (wanted && !out) {
             uint16_t *dst = only < 0 ? out16 + (size_t)g->first * n : out16;
-            if (group_to_f16(dec, g, mode, wb, ex, p, n, e[0], only, dst, raw_ex, dec->stream ? 2 : 1) != BRV_OK)
+            if (group_to_f16(dec, g, mode, wb, ex, p, n, e[0], only, dst, raw_ex, stream ? 2 : 1) != BRV_OK)
                 range = BRV_E_UNREPRESENTABLE;
         } else if (wanted) {
             float sc = ldexpf(1.0f, ex);
             float *dst = only < 0 ? out + (size_t)g->first * n : (g->count == 1 ? out : dec->scratch);
-            int simd = dec->stream && dst != dec->scratch ? 2 : 1; /* staging stays in the caches */
+            int simd = stream && dst != dec->scratch ? 2 : 1; /* staging stays in the caches */
             if (mode == BRV_MODE_CONSTANT) decode_constant(p, n, g->code, sc, dst);
             else if (wb == 2) brv_unfilter_f16(p, n, e[0], ex, dst, simd);
             else brv_unfilter_w32(p, n, e[0], ex, g->code, dst, simd);
@@ -618,7 +642,7 @@ static brv_result decode_brick(const brv_volume *v, brv_decoder *dec, uint32_t b
         }
         p += len;
     }
-    if (dec->stream) brv_store_fence(); /* streaming stores are ordered before the return */
+    if (stream) brv_store_fence(); /* streaming stores are ordered before the return */
     if (p != end) return BRV_E_BRICK_CORRUPT;
     return range;
 }
@@ -637,7 +661,7 @@ brv_result brv_decode_brick(const brv_volume *v, brv_decoder *dec, uint32_t b, f
     if (!v || !out) return BRV_E_ARGUMENT;
     brv_decoder *tmp;
     brv_result r = with_decoder(v, &dec, &tmp);
-    if (r == BRV_OK) r = decode_brick(v, dec, b, -1, out, NULL, NULL, out_count, false);
+    if (r == BRV_OK) r = decode_brick(v, dec, b, -1, out, NULL, NULL, out_count, false, true);
     brv_decoder_free(tmp);
     return r;
 }
@@ -647,7 +671,7 @@ brv_result brv_decode_brick_f16(const brv_volume *v, brv_decoder *dec, uint32_t 
     if (!v || !out) return BRV_E_ARGUMENT;
     brv_decoder *tmp;
     brv_result r = with_decoder(v, &dec, &tmp);
-    if (r == BRV_OK) r = decode_brick(v, dec, b, -1, NULL, out, NULL, out_count, false);
+    if (r == BRV_OK) r = decode_brick(v, dec, b, -1, NULL, out, NULL, out_count, false, true);
     brv_decoder_free(tmp);
     return r;
 }
@@ -658,7 +682,7 @@ brv_result brv_decode_brick_raw16(const brv_volume *v, brv_decoder *dec, uint32_
     if (!v || !dec || !out || !scale_exp || !special || dec->v != v) return BRV_E_ARGUMENT;
     for (uint32_t c = 0; c < v->grid.channel_count; c++)
         if (v->ch[c].encoding != BRV_ENCODING_F16) return BRV_E_ARGUMENT;
-    brv_result r = decode_brick(v, dec, b, -1, NULL, out, scale_exp, out_count, false);
+    brv_result r = decode_brick(v, dec, b, -1, NULL, out, scale_exp, out_count, false, false);
     *special = r == BRV_E_UNREPRESENTABLE;
     return *special ? BRV_OK : r;
 }
@@ -737,7 +761,7 @@ static brv_result decode_grid(const brv_volume *v, int only, float *out, uint16_
         uint16_t *h = dec->half;
         /* A channel alone decodes into the scratch's tail, clear of the rgb9e5 staging at its head. */
         if (only >= 0) s = dec->scratch + brv_brick_size(v) - n;
-        r = decode_brick(v, dec, b, only, out ? s : NULL, h, NULL, n * nch, false);
+        r = decode_brick(v, dec, b, only, out ? s : NULL, h, NULL, n * nch, false, false);
         if (r == BRV_E_UNREPRESENTABLE) { /* every word was written: go on, report it at the end */
             range = r;
             r = BRV_OK;
@@ -785,7 +809,7 @@ brv_result brv_verify(const brv_volume *v, uint32_t *brick)
     brv_result r = brv_decoder_create(v, &dec);
     if (r != BRV_OK) return r;
     for (uint32_t b = 0; b < v->grid.brick_count; b++) {
-        r = decode_brick(v, dec, b, -1, dec->scratch, NULL, NULL, brv_brick_size(v), true);
+        r = decode_brick(v, dec, b, -1, dec->scratch, NULL, NULL, brv_brick_size(v), true, false);
         if (r == BRV_E_VERSION) r = BRV_OK; /* a newer encoding: its frame and checksum were sound */
         if (r != BRV_OK) {
             if (brick) *brick = b;

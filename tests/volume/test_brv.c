@@ -1060,6 +1060,83 @@ static void sampler_should_fill_four_f16_channels_directly(void **state)
     free(buf);
 }
 
+/* The default store mode (BRV_STREAM_AUTO, brv.h) streams exactly once a forward run of
+ * outputs has passed BRV_STREAM_AUTO_BYTES, begins a new run at an output that starts before
+ * the previous one's end (a reused buffer, a new pass) and on brv_decoder_set_streaming, and
+ * gives the bits of ordinary stores: floats and halves, every encoding, the same brick
+ * decoded into successive places of one large array as a whole-volume decode would. */
+static void auto_streaming_should_begin_after_a_forward_run_with_the_same_values(void **state)
+{
+    (void)state;
+    brv_write_desc d = fixture_world(32, 32, 32, MIXED_CHANNELS, 6); /* 8 full bricks */
+    size_t size;
+    uint8_t *buf = write_or_fail(&d, bright_field, NULL, &size);
+    brv_volume *v = open_or_fail(buf, size);
+    size_t per = brv_brick_size(v);
+    uint32_t nb = brv_grid(v)->brick_count;
+    size_t calls = BRV_STREAM_AUTO_BYTES / (per * sizeof(uint16_t)) + 8; /* past the threshold in halves */
+    float *fa = aligned_alloc(64, calls * per * sizeof(float)), *fo = aligned_alloc(64, calls * per * sizeof(float));
+    uint16_t *ha = aligned_alloc(64, calls * per * 2), *ho = aligned_alloc(64, calls * per * 2);
+    assert_non_null(fa);
+    assert_non_null(fo);
+    assert_non_null(ha);
+    assert_non_null(ho);
+    brv_decoder *da, *doff;
+    assert_int_equal(brv_decoder_create(v, &da), BRV_OK); /* the default: automatic */
+    assert_int_equal(brv_decoder_create(v, &doff), BRV_OK);
+    brv_decoder_set_streaming(doff, BRV_STREAM_OFF);
+    size_t run = 0, streamed = 0;
+    for (size_t i = 0; i < calls; i++) {
+        uint32_t b = (uint32_t)(i % nb);
+        if (i * per * sizeof(float) > BRV_STREAM_AUTO_BYTES + 4 * per * sizeof(float)) break;
+        assert_int_equal(brv_decode_brick(v, da, b, fa + i * per, per), BRV_OK);
+        run += per * sizeof(float);
+        assert_int_equal(brv_decoder_streamed(da), run > BRV_STREAM_AUTO_BYTES);
+        streamed += brv_decoder_streamed(da);
+        assert_int_equal(brv_decode_brick(v, doff, b, fo + i * per, per), BRV_OK);
+        assert_false(brv_decoder_streamed(doff));
+        assert_memory_equal(fa + i * per, fo + i * per, per * sizeof(float));
+    }
+    assert_true(streamed >= 3); /* both store kinds were compared */
+    /* a reused buffer (the same place twice) and a new pass (back to the start): new runs */
+    assert_int_equal(brv_decode_brick(v, da, 1, fa, per), BRV_OK);
+    assert_false(brv_decoder_streamed(da));
+    assert_int_equal(brv_decode_brick(v, da, 1, fa, per), BRV_OK);
+    assert_false(brv_decoder_streamed(da));
+    assert_memory_equal(fa, fo + per, per * sizeof(float));
+    /* halves: the run counts bytes, two a value */
+    run = 0;
+    streamed = 0;
+    brv_decoder_set_streaming(da, BRV_STREAM_AUTO);
+    for (size_t i = 0; i < calls; i++) {
+        uint32_t b = (uint32_t)(i % nb);
+        brv_result r = brv_decode_brick_f16(v, da, b, ha + i * per, per);
+        run += per * sizeof(uint16_t);
+        assert_int_equal(brv_decoder_streamed(da), run > BRV_STREAM_AUTO_BYTES);
+        streamed += brv_decoder_streamed(da);
+        assert_int_equal(brv_decode_brick_f16(v, doff, b, ho + i * per, per), r);
+        assert_memory_equal(ha + i * per, ho + i * per, per * 2);
+    }
+    assert_true(streamed >= 3);
+    /* setting the mode begins a new run; BRV_STREAM_ON streams from the first call */
+    brv_decoder_set_streaming(da, BRV_STREAM_AUTO);
+    brv_result r0 = brv_decode_brick_f16(v, da, 0, ha + calls * per - per, per);
+    assert_true(r0 == BRV_OK || r0 == BRV_E_UNREPRESENTABLE); /* the bright channel does not fit binary16 */
+    assert_false(brv_decoder_streamed(da));
+    brv_decoder_set_streaming(da, BRV_STREAM_ON);
+    assert_int_equal(brv_decode_brick(v, da, 0, fa, per), BRV_OK);
+    assert_true(brv_decoder_streamed(da));
+    assert_memory_equal(fa, fo, per * sizeof(float));
+    brv_decoder_free(da);
+    brv_decoder_free(doff);
+    free(fa);
+    free(fo);
+    free(ha);
+    free(ho);
+    brv_free(v);
+    free(buf);
+}
+
 /* Streaming stores change where the output goes in the memory system, not what it is: every
  * encoding, aligned and unaligned outputs, floats and halves, bricks and the whole grid, the
  * same as without. */
@@ -1078,8 +1155,9 @@ static void streaming_decoder_should_give_the_same_values(void **state)
     brv_decoder *d0, *d1;
     assert_int_equal(brv_decoder_create(v, &d0), BRV_OK);
     assert_int_equal(brv_decoder_create(v, &d1), BRV_OK);
-    brv_decoder_set_streaming(d1, 1);
-    brv_decoder_set_streaming(NULL, 1); /* accepted */
+    brv_decoder_set_streaming(d0, BRV_STREAM_OFF);
+    brv_decoder_set_streaming(d1, BRV_STREAM_ON);
+    brv_decoder_set_streaming(NULL, BRV_STREAM_ON); /* accepted */
     for (uint32_t b = 0; b < brv_grid(v)->brick_count; b++)
         for (int shift = 0; shift < 2; shift++) { /* 16-byte aligned, and not */
             assert_int_equal(brv_decode_brick(v, d0, b, plain + shift, per), BRV_OK);
@@ -1425,6 +1503,7 @@ int main(int argc, char **argv)
         cmocka_unit_test(result_texts_should_come_from_one_list),
         cmocka_unit_test(decode_to_halves_should_equal_rounded_floats),
         cmocka_unit_test(streaming_decoder_should_give_the_same_values),
+        cmocka_unit_test(auto_streaming_should_begin_after_a_forward_run_with_the_same_values),
         cmocka_unit_test(sampler_should_interpolate_decoded_values_on_every_path),
         cmocka_unit_test(sampler_should_fill_four_f16_channels_directly),
         cmocka_unit_test(open_file_should_read_bricks_on_demand),
