@@ -4,15 +4,6 @@
 
 #include <math.h>
 
-/* Window max(0, 1 − (d/r)⁴)², the windowing part of the falloff of Karis 2013 (SIGGRAPH 2013
- * course "Physically Based Shading in Theory and Practice"); SPEC.md uses it with the plain
- * inverse square. */
-static inline double range_window(double d, double range)
-{
-    double x = d / range, x2 = x * x, w = 1.0 - x2 * x2;
-    return w > 0.0 ? w * w : 0.0;
-}
-
 double brm_light_illuminance(const brm_light *l, brm_vec3 p, brm_vec3 *to_light, double *dist)
 {
     if (l->type == BRM_LIGHT_DIRECTIONAL) {
@@ -20,26 +11,7 @@ double brm_light_illuminance(const brm_light *l, brm_vec3 p, brm_vec3 *to_light,
         *dist = HUGE_VAL;
         return l->illuminance_lux;
     }
-    brm_vec3 v = brm_sub(l->position, p);
-    double d2 = brm_dot(v, v), d = sqrt(d2);
-    *dist = d;
-    if (!(d > 0.0)) {
-        /* At the light itself the direction is undefined and the law diverges. */
-        *to_light = brm_v3(0.0, 1.0, 0.0);
-        return 0.0;
-    }
-    brm_vec3 u = brm_scale(v, 1.0 / d);
-    *to_light = u;
-    if (l->range_m > 0.0 && d >= l->range_m) return 0.0;
-    /* Inverse-square law: E = I / d² on a surface facing the light. */
-    double e = l->intensity_cd / d2;
-    if (l->range_m > 0.0) e *= range_window(d, l->range_m);
-    if (l->type == BRM_LIGHT_SPOT) {
-        double cos_a = -brm_dot(u, l->direction);
-        if (cos_a <= l->cos_outer) return 0.0;
-        e *= brm_smoothstep(l->cos_outer, l->cos_inner, cos_a);
-    }
-    return e;
+    return brm_light_illuminance_local(l, p, to_light, dist);
 }
 
 bool brm_light_reaches(const brm_light *l, brm_aabb b)

@@ -8,6 +8,7 @@
 
 #include <assert.h>
 #include <math.h>
+#include <string.h>
 
 #define INV_4PI (1.0 / (4.0 * BRM_PI))
 
@@ -44,6 +45,35 @@ static double cornette_shanks(double g, double c)
 {
     double den = 1.0 + g * g - 2.0 * g * c;
     return 3.0 / (8.0 * BRM_PI) * (1.0 - g * g) / (2.0 + g * g) * (1.0 + c * c) / (den * sqrt(den));
+}
+
+void brm_phase_prepare(const brm_phase *ph, brm_phase_prepared *out)
+{
+    memset(out, 0, sizeof *out);
+    out->model = ph->model;
+    double g = ph->g;
+    switch (ph->model) {
+    case BRM_PHASE_HENYEY_GREENSTEIN:
+        out->k[0] = (1.0 - g * g) * INV_4PI, out->a[0] = 1.0 + g * g, out->b[0] = 2.0 * g;
+        break;
+    case BRM_PHASE_SCHLICK: {
+        double k = schlick_k(g);
+        out->k[0] = (1.0 - k * k) * INV_4PI, out->b[0] = k;
+        break;
+    }
+    case BRM_PHASE_CORNETTE_SHANKS:
+        out->k[0] = 3.0 / (8.0 * BRM_PI) * (1.0 - g * g) / (2.0 + g * g);
+        out->a[0] = 1.0 + g * g, out->b[0] = 2.0 * g;
+        break;
+    case BRM_PHASE_TWO_LOBE:
+        for (int i = 0; i < 2; i++) {
+            double gi = i ? ph->g_back : g;
+            out->k[i] = (1.0 - gi * gi) * INV_4PI, out->a[i] = 1.0 + gi * gi, out->b[i] = 2.0 * gi;
+        }
+        out->w[0] = ph->forward_weight, out->w[1] = 1.0 - ph->forward_weight;
+        break;
+    default: break;
+    }
 }
 
 double brm_phase_eval(const brm_phase *ph, double cos_theta)

@@ -12,6 +12,7 @@
 #include "base/sh.h"
 #include "base/threads.h"
 #include "shadow/shadow_internal.h"
+#include "shadow/sky.h"
 #include "voxel/voxelize.h"
 
 /* SPEC.md: L(ω) = H + (Z − H)·max(y, 0) + (G − H)·max(−y, 0). With a = Z − H, b = G − H and the
@@ -121,10 +122,9 @@ static const float *node_values(const brm_shadow_set *ss, const sky_cache *c, ui
     return c->ok[node] ? c->sh + node * 12 : NULL;
 }
 
-static bool cache_lookup(const brm_shadow_set *ss, const sky_cache *c, brm_vec3 p, double out[3][4])
+/* Cell of p in the cache and the trilinear fractions; false when p lies outside it. */
+static bool cache_locate(const sky_cache *c, brm_vec3 p, int i0[3], double f[3])
 {
-    double f[3];
-    int i0[3];
     for (int a = 0; a < 3; a++) {
         double x = (brm_vget(p, a) - brm_vget(c->lo, a)) / brm_vget(c->step, a);
         double hi = (double)c->n[a] - 1.0;
@@ -137,16 +137,33 @@ static bool cache_lookup(const brm_shadow_set *ss, const sky_cache *c, brm_vec3 
         i0[a] = i;
         f[a] = c->n[a] > 1 ? x - i : 0.0;
     }
+    return true;
+}
+
+/* A cursor corner not read yet. */
+static const float unread_corner[1];
+#define UNREAD (&unread_corner[0])
+
+/* The trilinear interpolation over the free-space nodes of cell i0. With a cursor (cur, set
+ * to this cell), a corner's node is found once per cell; without, every time. Same bits. */
+static bool cache_interp(const brm_shadow_set *ss, const sky_cache *c, const int i0[3], const double f[3],
+                         brm_sky_cursor *cur, double out[3][4])
+{
     double acc[12] = {0}, wsum = 0.0;
     for (int corner = 0; corner < 8; corner++) {
         int di = corner & 1, dj = (corner >> 1) & 1, dk = (corner >> 2) & 1;
         uint32_t ii = (uint32_t)(i0[0] + di), jj = (uint32_t)(i0[1] + dj), kk = (uint32_t)(i0[2] + dk);
         if (ii >= c->n[0] || jj >= c->n[1] || kk >= c->n[2]) continue;
-        size_t node = ii + (size_t)c->n[0] * (jj + (size_t)c->n[1] * kk);
         double w = (di ? f[0] : 1 - f[0]) * (dj ? f[1] : 1 - f[1]) * (dk ? f[2] : 1 - f[2]);
         if (w <= 0.0) continue;
         float tmp[12];
-        const float *v = node_values(ss, c, ii, jj, kk, node, tmp);
+        const float *v = cur ? cur->corner[corner] : UNREAD;
+        if (v == UNREAD) {
+            size_t node = ii + (size_t)c->n[0] * (jj + (size_t)c->n[1] * kk);
+            v = node_values(ss, c, ii, jj, kk, node, tmp);
+            /* A node another thread is still tracing comes back in tmp: not remembered. */
+            if (cur && v != tmp) cur->corner[corner] = v;
+        }
         if (!v) continue;
         for (int q = 0; q < 12; q++) acc[q] += w * v[q];
         wsum += w;
@@ -154,6 +171,37 @@ static bool cache_lookup(const brm_shadow_set *ss, const sky_cache *c, brm_vec3 
     if (wsum <= 1e-9) return false;
     for (int q = 0; q < 12; q++) out[q / 4][q % 4] = acc[q] / wsum;
     return true;
+}
+
+static bool cache_lookup(const brm_shadow_set *ss, const sky_cache *c, brm_vec3 p, double out[3][4])
+{
+    int i0[3];
+    double f[3];
+    if (!cache_locate(c, p, i0, f)) return false;
+    return cache_interp(ss, c, i0, f, NULL, out);
+}
+
+void brm_sky_cursor_init(brm_sky_cursor *cur) { memset(cur, 0, sizeof *cur); }
+
+void brm_sky_incident_cursor(const brm_shadow_set *ss, brm_sky_cursor *cur, brm_vec3 p, uint32_t sample_index,
+                             double out[3][4])
+{
+    if (!ss->sky_present || !ss->sky_trace || !ss->sky_grid.n[0]) {
+        brm_sky_incident(ss, p, sample_index, out);
+        return;
+    }
+    const sky_cache *c = &ss->sky_grid;
+    int i0[3];
+    double f[3];
+    if (cache_locate(c, p, i0, f)) {
+        if (!cur->valid || cur->cell[0] != i0[0] || cur->cell[1] != i0[1] || cur->cell[2] != i0[2]) {
+            cur->valid = 1;
+            for (int a = 0; a < 3; a++) cur->cell[a] = i0[a];
+            for (int k = 0; k < 8; k++) cur->corner[k] = UNREAD;
+        }
+        if (cache_interp(ss, c, i0, f, cur, out)) return;
+    }
+    sky_trace(ss, p, sample_index, ss->sky_rays, out);
 }
 
 void brm_sky_incident(const brm_shadow_set *ss, brm_vec3 p, uint32_t sample_index, double out[3][4])
