@@ -248,6 +248,9 @@ static int demo_bench(int threads, bool frustum)
     printf("  phases (wall s):");
     for (int k = 0; k < BRM_SHADOW_PHASES; k++) printf(" %s %.3f%s", brm_shadow_phase_names[k], ss->phase_seconds[k],
                                                        k + 1 < BRM_SHADOW_PHASES ? "," : "\n");
+    printf("  phases (CPU s): ");
+    for (int k = 0; k < BRM_SHADOW_PHASES; k++) printf(" %s %.3f%s", brm_shadow_phase_names[k], ss->phase_cpu[k],
+                                                       k + 1 < BRM_SHADOW_PHASES ? "," : "\n");
     /* Sample points in the order the kernel takes them: brick by brick (bricks spread evenly
      * over the target), cell by cell inside, one jittered point per cell. */
     brm_vec3 *pts = malloc(N_DEMO_QUERY * sizeof *pts);

@@ -15,6 +15,10 @@
 #include "base/lds.h"
 #include "scene/phase.h"
 
+#if (defined(__x86_64__) || defined(__i386__)) && defined(__GNUC__)
+#include <immintrin.h>
+#endif
+
 /* Per scene: which media are densities and which are noise, and one permutation table per
  * noise medium (Perlin's improved noise keeps a doubled 256-entry table). */
 /* A density medium's coefficients, packed for the density sums (the same values as in its
@@ -497,8 +501,13 @@ double brm_media_extinction_tabulated(const brm_scene *s, const brm_noise_grid *
 #define LINE_OPTIMIZE
 #endif
 
-/* One chunk of brm_media_extinction_line: LINE_CHUNK samples from index k0 (the caller pads
- * the last chunk). Every loop is branch-free per sample so it if-converts and vectorizes;
+/* Loads the eight corners of each sample's noise-table cell: c[q][i] = f[base[i] + offset q]
+ * (offsets 0, 1, o1, o1 + 1, o2, o2 + 1, o3, o3 + 1). NULL: the scalar loop. */
+typedef void (*corner_fn)(const float *f, size_t o1, size_t o2, size_t o3, const uint32_t *base,
+                          float c[8][LINE_CHUNK], uint32_t len);
+
+/* One chunk of brm_media_extinction_line: len ≤ LINE_CHUNK samples from index k0 (the caller
+ * pads the last chunk; len a constant where it is inlined, so the loops' counts are known). Every loop is branch-free per sample so it if-converts and vectorizes;
  * compiled twice below, for the SSE2 baseline and for AVX2 (whose gathers serve the noise
  * table's corners). Same operations in the same order on IEEE singles and doubles, no fused
  * multiply-add (ISO C mode keeps contraction off, and the AVX2 copy does not enable FMA): the
@@ -506,10 +515,11 @@ double brm_media_extinction_tabulated(const brm_scene *s, const brm_noise_grid *
 __attribute__((always_inline)) static inline void line_chunk_body(const brm_noise_table *t, const brm_noise_grid *g,
                                                                   const double o[3], const double d[3],
                                                                   const double lo[3], const double hi[3], double t0,
-                                                                  double dt, uint32_t k0, float *out)
+                                                                  double dt, uint32_t k0, float *out,
+                                                                  corner_fn gather8, const uint32_t len)
 {
     float px[LINE_CHUNK], py[LINE_CHUNK], pz[LINE_CHUNK], sum[LINE_CHUNK];
-    for (uint32_t i = 0; i < LINE_CHUNK; i++) {
+    for (uint32_t i = 0; i < len; i++) {
         const double tt = t0 + dt * (double)(k0 + i);
         double x = o[0] + tt * d[0], y = o[1] + tt * d[1], z = o[2] + tt * d[2];
         x = x < lo[0] ? lo[0] : x, y = y < lo[1] ? lo[1] : y, z = z < lo[2] ? lo[2] : z;
@@ -517,16 +527,21 @@ __attribute__((always_inline)) static inline void line_chunk_body(const brm_nois
         px[i] = (float)x, py[i] = (float)y, pz[i] = (float)z;
         sum[i] = 0.0f;
     }
+    /* The chunk's box: each coordinate is a clamped linear function of t, monotone, so its
+     * extremes are at the chunk's ends. A box medium the chunk's box misses adds nothing. */
+    const float bx0 = px[0] < px[len - 1] ? px[0] : px[len - 1], bx1 = px[0] < px[len - 1] ? px[len - 1] : px[0];
+    const float by0 = py[0] < py[len - 1] ? py[0] : py[len - 1], by1 = py[0] < py[len - 1] ? py[len - 1] : py[0];
+    const float bz0 = pz[0] < pz[len - 1] ? pz[0] : pz[len - 1], bz1 = pz[0] < pz[len - 1] ? pz[len - 1] : pz[0];
     for (uint32_t m = 0; m < t->density_count; m++) {
         const density_term *dm = &t->term[m];
         const float st = (float)dm->sigma_t;
         switch (dm->type) {
         case BRM_MEDIUM_UNIFORM:
-            for (uint32_t i = 0; i < LINE_CHUNK; i++) sum[i] += st;
+            for (uint32_t i = 0; i < len; i++) sum[i] += st;
             break;
         case BRM_MEDIUM_HEIGHT: {
             const float base = (float)dm->base_y, ih = (float)dm->inv_scale_height;
-            for (uint32_t i = 0; i < LINE_CHUNK; i++) {
+            for (uint32_t i = 0; i < len; i++) {
                 const float dy = py[i] - base;
                 const float a = dy > 0.0f ? dy * ih : 0.0f;
                 sum[i] += st * brm_exp_neg_f(a);
@@ -536,8 +551,9 @@ __attribute__((always_inline)) static inline void line_chunk_body(const brm_nois
         case BRM_MEDIUM_BOX: {
             const float x0 = (float)dm->box.min.x, y0 = (float)dm->box.min.y, z0 = (float)dm->box.min.z;
             const float x1 = (float)dm->box.max.x, y1 = (float)dm->box.max.y, z1 = (float)dm->box.max.z;
+            if (bx1 < x0 || bx0 > x1 || by1 < y0 || by0 > y1 || bz1 < z0 || bz0 > z1) break;
             if (dm->inv_edge_fade <= 0.0) {
-                for (uint32_t i = 0; i < LINE_CHUNK; i++) {
+                for (uint32_t i = 0; i < len; i++) {
                     const int in = (px[i] >= x0) & (px[i] <= x1) & (py[i] >= y0) & (py[i] <= y1) & (pz[i] >= z0) &
                                    (pz[i] <= z1);
                     sum[i] += in ? st : 0.0f;
@@ -545,7 +561,7 @@ __attribute__((always_inline)) static inline void line_chunk_body(const brm_nois
                 break;
             }
             const float ie = (float)dm->inv_edge_fade;
-            for (uint32_t i = 0; i < LINE_CHUNK; i++) {
+            for (uint32_t i = 0; i < len; i++) {
                 const float ex0 = px[i] - x0, ex1 = x1 - px[i], ey0 = py[i] - y0, ey1 = y1 - py[i];
                 const float ez0 = pz[i] - z0, ez1 = z1 - pz[i];
                 float e = ex0 < ex1 ? ex0 : ex1;
@@ -566,7 +582,7 @@ __attribute__((always_inline)) static inline void line_chunk_body(const brm_nois
         }
     }
     if (!g) {
-        for (uint32_t i = 0; i < LINE_CHUNK; i++) out[i] = sum[i];
+        for (uint32_t i = 0; i < len; i++) out[i] = sum[i];
         return;
     }
     /* The trilinear noise factor: lattice coordinates in a vectorized loop, the eight corner
@@ -579,7 +595,7 @@ __attribute__((always_inline)) static inline void line_chunk_body(const brm_nois
     const float hx = (float)(g->n[0] - 1), hy = (float)(g->n[1] - 1), hz = (float)(g->n[2] - 1);
     const int32_t mx = (int32_t)g->n[0] - 2, my = (int32_t)g->n[1] - 2, mz = (int32_t)g->n[2] - 2;
     const int32_t sy = (int32_t)g->n[0], sz = (int32_t)(g->n[0] * g->n[1]);
-    for (uint32_t i = 0; i < LINE_CHUNK; i++) {
+    for (uint32_t i = 0; i < len; i++) {
         float fx = (px[i] - gx) * ix, fy = (py[i] - gy) * iy, fz = (pz[i] - gz) * iz;
         fx = fx > 0.0f ? (fx < hx ? fx : hx) : 0.0f;
         fy = fy > 0.0f ? (fy < hy ? fy : hy) : 0.0f;
@@ -591,12 +607,16 @@ __attribute__((always_inline)) static inline void line_chunk_body(const brm_nois
     }
     const float *f = g->f;
     const size_t o1 = (size_t)sy, o2 = (size_t)sz, o3 = (size_t)sy + (size_t)sz;
-    for (uint32_t i = 0; i < LINE_CHUNK; i++) {
-        const float *b = f + base[i];
-        c[0][i] = b[0], c[1][i] = b[1], c[2][i] = b[o1], c[3][i] = b[o1 + 1];
-        c[4][i] = b[o2], c[5][i] = b[o2 + 1], c[6][i] = b[o3], c[7][i] = b[o3 + 1];
+    if (gather8) {
+        gather8(f, o1, o2, o3, base, c, len);
+    } else {
+        for (uint32_t i = 0; i < len; i++) {
+            const float *b = f + base[i];
+            c[0][i] = b[0], c[1][i] = b[1], c[2][i] = b[o1], c[3][i] = b[o1 + 1];
+            c[4][i] = b[o2], c[5][i] = b[o2 + 1], c[6][i] = b[o3], c[7][i] = b[o3 + 1];
+        }
     }
-    for (uint32_t i = 0; i < LINE_CHUNK; i++) {
+    for (uint32_t i = 0; i < len; i++) {
         const float x00 = c[0][i] + cx[i] * (c[1][i] - c[0][i]), x10 = c[2][i] + cx[i] * (c[3][i] - c[2][i]);
         const float x01 = c[4][i] + cx[i] * (c[5][i] - c[4][i]), x11 = c[6][i] + cx[i] * (c[7][i] - c[6][i]);
         const float y0 = x00 + cy[i] * (x10 - x00), y1 = x01 + cy[i] * (x11 - x01);
@@ -606,13 +626,31 @@ __attribute__((always_inline)) static inline void line_chunk_body(const brm_nois
 
 #define LINE_ARGS                                                                                             \
     const brm_noise_table *t, const brm_noise_grid *g, const double o[3], const double d[3], const double lo[3], \
-        const double hi[3], double t0, double dt, uint32_t k0, float *out
-LINE_OPTIMIZE static void line_chunk_sse2(LINE_ARGS) { line_chunk_body(t, g, o, d, lo, hi, t0, dt, k0, out); }
+        const double hi[3], double t0, double dt, uint32_t k0, float *out, uint32_t len
+/* Two lengths: LINE_CHUNK, and LINE_TAIL for what is left (less padding on short lines). */
+#define LINE_TAIL 16
+#define LINE_BOTH(gather)                                                                    \
+    if (len == LINE_CHUNK)                                                                   \
+        line_chunk_body(t, g, o, d, lo, hi, t0, dt, k0, out, gather, LINE_CHUNK);            \
+    else                                                                                     \
+        line_chunk_body(t, g, o, d, lo, hi, t0, dt, k0, out, gather, LINE_TAIL)
+LINE_OPTIMIZE static void line_chunk_sse2(LINE_ARGS) { LINE_BOTH(NULL); }
 #if (defined(__x86_64__) || defined(__i386__)) && defined(__GNUC__)
 #define LINE_HAVE_AVX2 1
+/* The corners by AVX2 gathers, eight samples at a time (the same values as the scalar loads;
+ * the table has at most 2^23 nodes, so the indices fit the gathers' signed 32 bits). */
+__attribute__((target("avx2"))) static void corners_avx2(const float *f, size_t o1, size_t o2, size_t o3,
+                                                          const uint32_t *base, float c[8][LINE_CHUNK], uint32_t len)
+{
+    const float *src[8] = {f, f + 1, f + o1, f + o1 + 1, f + o2, f + o2 + 1, f + o3, f + o3 + 1};
+    for (uint32_t i = 0; i < len; i += 8) {
+        const __m256i bi = _mm256_loadu_si256((const __m256i *)(const void *)(base + i));
+        for (int q = 0; q < 8; q++) _mm256_storeu_ps(&c[q][i], _mm256_i32gather_ps(src[q], bi, 4));
+    }
+}
 __attribute__((target("avx2"))) LINE_OPTIMIZE static void line_chunk_avx2(LINE_ARGS)
 {
-    line_chunk_body(t, g, o, d, lo, hi, t0, dt, k0, out);
+    LINE_BOTH(corners_avx2);
 }
 #endif
 
@@ -640,10 +678,11 @@ int brm_media_extinction_line_simd(const brm_scene *s, const brm_noise_grid *g, 
     (void)simd;
 #endif
     uint32_t k = 0;
-    for (; k + LINE_CHUNK <= n; k += LINE_CHUNK) chunk(t, g, oo, dd, lo, hi, t0, dt, k, out + k);
+    for (; k + LINE_CHUNK <= n; k += LINE_CHUNK) chunk(t, g, oo, dd, lo, hi, t0, dt, k, out + k, LINE_CHUNK);
+    for (; k + LINE_TAIL <= n; k += LINE_TAIL) chunk(t, g, oo, dd, lo, hi, t0, dt, k, out + k, LINE_TAIL);
     if (k < n) {
-        float tail[LINE_CHUNK];
-        chunk(t, g, oo, dd, lo, hi, t0, dt, k, tail);
+        float tail[LINE_TAIL];
+        chunk(t, g, oo, dd, lo, hi, t0, dt, k, tail, LINE_TAIL);
         memcpy(out + k, tail, (n - k) * sizeof *out);
     }
     return used;

@@ -508,15 +508,24 @@ static void fill_column(const brm_scene *s, const media_info *mi, const shadow_v
     double g = 0.0, sig = sk[2 * first];
     col[2 * first] = 0.0f;
     col[2 * first + 1] = (float)sig;
+    const double hs = mi->only_uniform ? HUGE_VAL : h;
     for (uint32_t k = first + 1; k <= last; k++) {
         double t1 = v->og_lo[2] + v->og_step[2] * (double)k;
         bool clean = !(ci < nc && cut[ci] < t1) && t1 - t <= h;
-        while (ci < nc && cut[ci] < t1) ci++;
         double s1 = sk[2 * k];
-        if (clean && !mi->only_uniform)
+        if (clean && !mi->only_uniform) {
             g += (t1 - t) / 6.0 * (sig + 4.0 * (double)sk[2 * k - 1] + s1);
-        else
-            g += continued_segment(s, mi, o, d, t, t1, h);
+        } else {
+            /* Simpson on the pieces between the column's cuts in (t, t1): the cuts of
+             * continued_segment over [t, t1], without finding them again. */
+            double a = t;
+            for (; ci < nc && cut[ci] < t1; ci++)
+                if (cut[ci] > a) {
+                    g += simpson(s, mi, o, d, a, cut[ci], hs, true);
+                    a = cut[ci];
+                }
+            g += simpson(s, mi, o, d, a, t1, hs, true);
+        }
         t = t1;
         sig = s1;
         col[2 * k] = (float)g;

@@ -3,6 +3,7 @@
 #include <math.h>
 #include <stdlib.h>
 #include <string.h>
+#include <time.h>
 
 #include "base/threads.h"
 #include "scene/media.h"
@@ -202,13 +203,20 @@ static brm_status run_per_view(brm_shadow_set *ss, uint32_t total, uint32_t (*co
     return BRM_OK;
 }
 
+static double process_cpu(void)
+{
+    struct timespec t;
+    if (clock_gettime(CLOCK_PROCESS_CPUTIME_ID, &t) != 0) return 0.0;
+    return (double)t.tv_sec + 1e-9 * (double)t.tv_nsec;
+}
+
 const char *const brm_shadow_phase_names[BRM_SHADOW_PHASES] = {
     "noise table", "plan", "rasterize", "grid rows", "grid checks", "map tiles", "blocks", "corrections", "sky"};
 
 brm_status brm_shadows_build(const brm_scene *s, const brm_shadow_opts *o, brm_shadow_set **out, brm_diag *d)
 {
     BRM_CHECK(d, s && o && out, BRM_E_INTERNAL, "shadows: missing scene, options or output");
-    double t_start = brm_now();
+    double t_start = brm_now(), c_start = process_cpu();
     brm_shadow_set *ss = calloc(1, sizeof *ss);
     BRM_CHECK(d, ss, BRM_E_NOMEM, "shadows: out of memory");
     ss->scene = s;
@@ -229,13 +237,15 @@ brm_status brm_shadows_build(const brm_scene *s, const brm_shadow_opts *o, brm_s
         if (st != BRM_OK) goto fail;
         if (ss->noise_grid.f) ss->media.noise_grid = &ss->noise_grid;
     }
-    double t_phase = brm_now();
+    double t_phase = brm_now(), c_phase = process_cpu();
     ss->phase_seconds[0] = t_phase - t_start;
+    ss->phase_cpu[0] = c_phase - c_start;
 #define PHASE_END(i)                                   \
     do {                                               \
-        double t_now_ = brm_now();                     \
+        double t_now_ = brm_now(), c_now_ = process_cpu(); \
         ss->phase_seconds[i] += t_now_ - t_phase;      \
-        t_phase = t_now_;                              \
+        ss->phase_cpu[i] += c_now_ - c_phase;          \
+        t_phase = t_now_, c_phase = c_now_;            \
     } while (0)
     if (s->light_count) {
         ss->lights = calloc(s->light_count, sizeof *ss->lights);

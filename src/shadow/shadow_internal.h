@@ -210,6 +210,9 @@ struct brm_shadow_set {
     double build_seconds;
     /* wall seconds of the build's phases, in the order of brm_shadow_phase_names */
     double phase_seconds[BRM_SHADOW_PHASES];
+    /* CPU seconds of the whole process over the same phases (at one thread: the phase's own
+     * cost, the figure a shared machine disturbs least) */
+    double phase_cpu[BRM_SHADOW_PHASES];
 };
 
 /* ---- media integration (optical_depth.c) ---- */
