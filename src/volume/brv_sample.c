@@ -397,6 +397,54 @@ static brv_result trilinear(brv_sampler *s, const double u[3], float *out)
     return BRV_OK;
 }
 
+#if defined(__SSE2__)
+/* trilinear for the common case in few instructions — halves, channels a multiple of four,
+ * brick sides a power of two, all eight corners in one brick without infinities or NaNs —
+ * else trilinear itself. The same operations on the same values in the same order (the
+ * corner of weight 0 is the lower one, read twice), so the same bits. A sample whose cells
+ * are in memory, not in the caches, waits on them: the fewer instructions a sample takes, the
+ * more of the next samples' reads the processor can start while it waits. */
+static inline brv_result trilinear_fast(brv_sampler *s, const double u[3], float *out)
+{
+    const brv_grid_info *g = s->g;
+    if (!s->half || s->nc % 4 != 0 || s->shift < 0) return trilinear(s, u, out);
+    uint32_t f[3], d[3], same = 1;
+    float t[3];
+    for (int a = 0; a < 3; a++) {
+        uint32_t i1;
+        axis(u[a], g->cells[a], &f[a], &i1, &t[a]);
+        d[a] = i1 - f[a];
+        same &= (f[a] >> s->shift) == (i1 >> s->shift);
+    }
+    if (!same) return trilinear(s, u, out);
+    const slot *sl;
+    uint32_t sh = (uint32_t)s->shift, mask = (1u << sh) - 1u;
+    brv_result r = fetch(s, (f[0] >> sh) + g->bricks[0] * ((f[1] >> sh) + g->bricks[1] * (f[2] >> sh)), &sl);
+    if (r != BRV_OK) return r;
+    if (sl->special) return trilinear(s, u, out);
+    size_t nc = s->nc;
+    const uint16_t *h0 = (const uint16_t *)sl->data + nc * (f[0] & mask) + sl->sy * (f[1] & mask) + sl->sz * (f[2] & mask);
+    size_t ox = nc * d[0], oy = sl->sy * d[1], oz = sl->sz * d[2];
+    __m128 tx = _mm_set1_ps(t[0]), ty = _mm_set1_ps(t[1]), tz = _mm_set1_ps(t[2]);
+    for (size_t c = 0; c < nc; c += 4) {
+        const uint16_t *h = h0 + c;
+        __m128 sc = _mm_loadu_ps(sl->scale + c), p[8];
+        p[0] = _mm_mul_ps(halves4(_mm_loadl_epi64((const __m128i *)(const void *)h)), sc);
+        p[1] = _mm_mul_ps(halves4(_mm_loadl_epi64((const __m128i *)(const void *)(h + ox))), sc);
+        p[2] = _mm_mul_ps(halves4(_mm_loadl_epi64((const __m128i *)(const void *)(h + oy))), sc);
+        p[3] = _mm_mul_ps(halves4(_mm_loadl_epi64((const __m128i *)(const void *)(h + oy + ox))), sc);
+        p[4] = _mm_mul_ps(halves4(_mm_loadl_epi64((const __m128i *)(const void *)(h + oz))), sc);
+        p[5] = _mm_mul_ps(halves4(_mm_loadl_epi64((const __m128i *)(const void *)(h + oz + ox))), sc);
+        p[6] = _mm_mul_ps(halves4(_mm_loadl_epi64((const __m128i *)(const void *)(h + oz + oy))), sc);
+        p[7] = _mm_mul_ps(halves4(_mm_loadl_epi64((const __m128i *)(const void *)(h + oz + oy + ox))), sc);
+        _mm_storeu_ps(out + c, lerp8_4(p, tx, ty, tz));
+    }
+    return BRV_OK;
+}
+#else
+#define trilinear_fast trilinear
+#endif
+
 /* Cell coordinates of a world-grid or probe-grid position. */
 static inline void world_coords(const brv_sampler *s, const double pos[3], double u[3])
 {
@@ -410,7 +458,7 @@ brv_result brv_sample_world(brv_sampler *s, const double pos[3], float *out)
     if (!isfinite(pos[0]) || !isfinite(pos[1]) || !isfinite(pos[2])) return BRV_E_ARGUMENT;
     double u[3];
     world_coords(s, pos, u);
-    return trilinear(s, u, out);
+    return trilinear_fast(s, u, out);
 }
 
 brv_result brv_sample_frustum(brv_sampler *s, double px, double py, double depth, float *out)
@@ -498,7 +546,7 @@ static brv_result batch_sorted(brv_sampler *s, size_t count, const double *pos, 
 #endif
         double u[3];
         world_coords(s, spos + 3 * k, u);
-        brv_result r = trilinear(s, u, out + (size_t)nc * order[k]);
+        brv_result r = trilinear_fast(s, u, out + (size_t)nc * order[k]);
         if (r != BRV_OK) return r;
     }
     return BRV_OK;
