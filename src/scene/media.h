@@ -92,8 +92,8 @@ int brm_media_extinction_line_simd(const brm_scene *s, const brm_noise_grid *g, 
 
 /* exp(−a) for a ≥ 0 in single precision: a degree-7 polynomial on a reduced argument and an
  * exact power of two, within 1e-6 relative of exp(−a) for a in [0, 87), 0 from 87 on (exp(−87) = 1.6e-38) — for the
- * fast path's exponentials (height fog along a line; transmittance exp(−tau)). Inline so
- * loops over it vectorize. */
+ * height fog along a line (brm_media_extinction_line). Inline so loops over it vectorize
+ * (a single call has a long dependency chain: scalar code is better served by libm). */
 __attribute__((always_inline)) static inline float brm_exp_neg_f(float a)
 {
     const float x = -(a < 87.0f ? a : 87.0f);

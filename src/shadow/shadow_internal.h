@@ -6,6 +6,8 @@
 
 #include <stdatomic.h>
 #include <stddef.h>
+#include <stdint.h>
+#include <string.h>
 
 #include "scene/media.h"
 #include "shadow/shadow.h"
@@ -81,6 +83,7 @@ typedef struct shadow_view {
     /* ortho only: P_a(i, j) per axis a whose fog-bounds face the light can enter through */
     float *prefix;              /* 3 · og_n[0] · og_n[1], axis-major; NULL for persp */
     bool prefix_axis[3];
+    double f_inv[3];            /* ortho: 1 / f's components (0 where a component is 0) */
     /* per lateral cell and depth interval: 1 where the build found interpolation off by more
      * than BRM_OD_CHECK_TAU (paths grazing a fade or an edge): lookups there march instead;
      * cleared where a cell correction (below) passed its re-check; BRM_OD_UNFILLED beyond
@@ -215,6 +218,35 @@ struct brm_shadow_set {
     double phase_cpu[BRM_SHADOW_PHASES];
 };
 
+/* ---- exp(−tau) for the transmittance lookups ---- */
+/* 2^(j/32), j = 0..31 (shadow.c). */
+extern const double brm_exp2_32[32];
+/* exp(−tau) for tau ≥ 0 with a short dependency chain (the lookups' latency is the cost, and
+ * libm's exp was a third of a grid lookup): −tau = (32e + j)·ln2/32 + r, |r| ≤ ln2/64, so
+ * exp(−tau) = 2^e · 2^(j/32) · e^r with 2^e put into the table value's exponent field and
+ * e^r by its Taylor polynomial to r^4 (remainder under (ln2/64)^5/5! = 1.3e-12). Within 1e-11
+ * relative of exp (tests); 0 for tau ≥ 700 (exp(−700) = 1e-304). */
+static inline double brm_exp_neg(double tau)
+{
+    if (!(tau < 700.0)) return 0.0;
+    const double x = -tau;
+    /* round(x·32/ln2) by the magic constant 1.5·2^52: its low 32 bits hold the integer */
+    const double kd = x * 46.166241308446828 + 0x1.8p52;
+    uint64_t kb;
+    memcpy(&kb, &kd, sizeof kb);
+    const double n = kd - 0x1.8p52;
+    const double r = x - n * 0.021660849392498290; /* ln2/32 */
+    const uint32_t uk = (uint32_t)kb, j = uk & 31u;
+    const int64_t e = (int64_t)(int32_t)(uk - j) / 32;
+    const double p = 1.0 + r + (r * r) * (0.5 + r * (1.0 / 6.0 + r * (1.0 / 24.0)));
+    uint64_t sb;
+    memcpy(&sb, &brm_exp2_32[j], sizeof sb);
+    sb += (uint64_t)e << 52;
+    double sc;
+    memcpy(&sc, &sb, sizeof sc);
+    return sc * p;
+}
+
 /* ---- media integration (optical_depth.c) ---- */
 void brm_media_info_init(const brm_scene *s, media_info *mi);
 /* ∫ sigma_t over p + t·d, t in [t0, t1], d unit: composite Simpson with panels ≤ h, split at
@@ -251,6 +283,9 @@ size_t brm_od_corr_bytes(const shadow_view *v);
 void brm_od_finish(shadow_view *v);
 /* Optical depth at p from the grid; returns 0 and leaves *tau when p is outside it. */
 int brm_od_lookup(const brm_scene *s, const shadow_view *v, brm_vec3 p, double *tau);
+/* The same for light ls, the view picked as brm_shadow_pick_view does (a cube's face by the
+ * major axis of p − light) from the vector the projection needs anyway. */
+int brm_od_lookup_light(const brm_scene *s, const light_shadow *ls, brm_vec3 p, double *tau);
 
 /* ---- depth maps (shadowmap.c) ---- */
 /* Plans the views and the map resolution of light l for the target (no allocation). */

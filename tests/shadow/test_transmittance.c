@@ -409,9 +409,30 @@ static void transmittance_without_media_should_be_one(void **state)
     brm_scene_free(s);
 }
 
+/* The lookups' exp(−tau) (shadow_internal.h): 2^(j/32) from a table times a degree-4 Taylor
+ * polynomial on |r| ≤ ln2/64, whose Lagrange remainder is under (ln2/64)^5/5! = 1.3e-12
+ * (Source: Taylor's theorem, Lagrange form), so within 1e-11 of libm's exp over the range
+ * transmittance takes, exactly 1 at tau = 0, 0 from 700 on. */
+static void transmittance_exp_should_match_libm(void **state)
+{
+    (void)state;
+    double worst = 0.0;
+    for (int i = 0; i <= 400000; i++) {
+        double tau = i < 200000 ? 20.0 * i / 200000.0 : 20.0 + 679.9 * (i - 200000) / 200000.0;
+        double want = exp(-tau);
+        worst = fmax(worst, fabs(brm_exp_neg(tau) - want) / want);
+    }
+    print_message("transmittance exp: worst relative error %.3g on [0, 700)\n", worst);
+    assert_true(worst < 1e-11);
+    assert_true(brm_exp_neg(0.0) == 1.0);
+    assert_true(brm_exp_neg(700.0) == 0.0 && brm_exp_neg(HUGE_VAL) == 0.0);
+    assert_near(brm_exp_neg(log(2.0)), 0.5, 0.0, 1e-12);
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
+        cmocka_unit_test(transmittance_exp_should_match_libm),
         cmocka_unit_test(uniform_fog_should_follow_beer_lambert_to_the_fog_exit),
         cmocka_unit_test(height_fog_should_match_reference_table_rows),
         cmocka_unit_test(height_fog_should_match_closed_form_for_many_elevations),
