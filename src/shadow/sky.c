@@ -144,32 +144,73 @@ static bool cache_locate(const sky_cache *c, brm_vec3 p, int i0[3], double f[3])
 static const float unread_corner[1];
 #define UNREAD (&unread_corner[0])
 
+/* acc[q] = Σ_k w[k]·v[k][q] over the n corners, in corner order, and out = acc / wsum: plain,
+ * and with AVX (four coefficients a lane-group, chosen at run time) — the same products and
+ * sums in the same order, correctly rounded either way, so the same bits. */
+static void interp_sum_plain(uint32_t n, const double *w, const float *const *v, double wsum, double out[3][4])
+{
+    double acc[12] = {0};
+    for (uint32_t k = 0; k < n; k++)
+        for (int q = 0; q < 12; q++) acc[q] += w[k] * v[k][q];
+    for (int q = 0; q < 12; q++) out[q / 4][q % 4] = acc[q] / wsum;
+}
+
+#if defined(__x86_64__) && defined(__GNUC__)
+#include <immintrin.h>
+#define SKY_AVX2 1
+__attribute__((target("avx2"))) static void interp_sum_avx2(uint32_t n, const double *w, const float *const *v,
+                                                             double wsum, double out[3][4])
+{
+    __m256d a0 = _mm256_setzero_pd(), a1 = a0, a2 = a0;
+    for (uint32_t k = 0; k < n; k++) {
+        __m256d wk = _mm256_set1_pd(w[k]);
+        a0 = _mm256_add_pd(a0, _mm256_mul_pd(wk, _mm256_cvtps_pd(_mm_loadu_ps(v[k]))));
+        a1 = _mm256_add_pd(a1, _mm256_mul_pd(wk, _mm256_cvtps_pd(_mm_loadu_ps(v[k] + 4))));
+        a2 = _mm256_add_pd(a2, _mm256_mul_pd(wk, _mm256_cvtps_pd(_mm_loadu_ps(v[k] + 8))));
+    }
+    __m256d ws = _mm256_set1_pd(wsum);
+    _mm256_storeu_pd(out[0], _mm256_div_pd(a0, ws));
+    _mm256_storeu_pd(out[1], _mm256_div_pd(a1, ws));
+    _mm256_storeu_pd(out[2], _mm256_div_pd(a2, ws));
+}
+#else
+#define SKY_AVX2 0
+#endif
+
 /* The trilinear interpolation over the free-space nodes of cell i0. With a cursor (cur, set
  * to this cell), a corner's node is found once per cell; without, every time. Same bits. */
 static bool cache_interp(const brm_shadow_set *ss, const sky_cache *c, const int i0[3], const double f[3],
                          brm_sky_cursor *cur, double out[3][4])
 {
-    double acc[12] = {0}, wsum = 0.0;
+    double wk[8], wsum = 0.0;
+    const float *vk[8];
+    float tmp[8][12];
+    uint32_t n = 0;
     for (int corner = 0; corner < 8; corner++) {
         int di = corner & 1, dj = (corner >> 1) & 1, dk = (corner >> 2) & 1;
         uint32_t ii = (uint32_t)(i0[0] + di), jj = (uint32_t)(i0[1] + dj), kk = (uint32_t)(i0[2] + dk);
         if (ii >= c->n[0] || jj >= c->n[1] || kk >= c->n[2]) continue;
         double w = (di ? f[0] : 1 - f[0]) * (dj ? f[1] : 1 - f[1]) * (dk ? f[2] : 1 - f[2]);
         if (w <= 0.0) continue;
-        float tmp[12];
         const float *v = cur ? cur->corner[corner] : UNREAD;
         if (v == UNREAD) {
             size_t node = ii + (size_t)c->n[0] * (jj + (size_t)c->n[1] * kk);
-            v = node_values(ss, c, ii, jj, kk, node, tmp);
+            v = node_values(ss, c, ii, jj, kk, node, tmp[corner]);
             /* A node another thread is still tracing comes back in tmp: not remembered. */
-            if (cur && v != tmp) cur->corner[corner] = v;
+            if (cur && v != tmp[corner]) cur->corner[corner] = v;
         }
         if (!v) continue;
-        for (int q = 0; q < 12; q++) acc[q] += w * v[q];
+        wk[n] = w, vk[n] = v, n++;
         wsum += w;
     }
     if (wsum <= 1e-9) return false;
-    for (int q = 0; q < 12; q++) out[q / 4][q % 4] = acc[q] / wsum;
+#if SKY_AVX2
+    if (__builtin_cpu_supports("avx2")) {
+        interp_sum_avx2(n, wk, vk, wsum, out);
+        return true;
+    }
+#endif
+    interp_sum_plain(n, wk, vk, wsum, out);
     return true;
 }
 
