@@ -143,7 +143,8 @@ int brv_unfilter_f16_halves(const uint8_t *src, size_t n, uint32_t nx, uint16_t 
 
 /* Four f16 channels with rows of 16 cells (n a multiple of 16), merged, prefix-summed and
  * interleaved in one pass: out[4·i + c]. lo[c] and hi[c] are channel c's two byte planes, or
- * lo[c] is NULL for a channel whose every word is cval[c]. simd 0: the scalar reference.
+ * lo[c] is NULL for a channel whose every word is cval[c]. simd 0: the scalar reference; 3:
+ * SSE2 only; otherwise AVX2 where the processor has it.
  * Returns nonzero when a word is an infinity or NaN. */
 int brv_unfilter_f16_cells4(const uint8_t *const lo[4], const uint8_t *const hi[4], const uint16_t cval[4], size_t n,
                             uint16_t *out, int simd);

@@ -193,10 +193,11 @@ static int f16h_sse2(const uint8_t *restrict src, size_t n, uint32_t nx, uint16_
 }
 
 /* Four f16 channels of rows of 16 cells, merged, prefix-summed and interleaved (out[4·i + c])
- * in one pass: lo[c], hi[c] the channel's byte planes, or lo[c] NULL for a constant channel of
- * value cval[c]. Returns nonzero when a word is an infinity or NaN. */
+ * in one pass, from cell `from` (a multiple of 16) on: lo[c], hi[c] the channel's byte planes,
+ * or lo[c] NULL for a constant channel of value cval[c]. Returns nonzero when a word is an
+ * infinity or NaN. */
 static int cells4_sse2(const uint8_t *const lo[4], const uint8_t *const hi[4], const uint16_t cval[4], size_t n,
-                       uint16_t *restrict out)
+                       uint16_t *restrict out, size_t from)
 {
     const __m128i expm = _mm_set1_epi16(0x7C00);
     __m128i special = _mm_setzero_si128();
@@ -208,8 +209,9 @@ static int cells4_sse2(const uint8_t *const lo[4], const uint8_t *const hi[4], c
     /* The slot is read ahead 2 KiB (hints, as addresses: a prefetch never faults), so the
      * stores find their lines owned. */
     uintptr_t at = (uintptr_t)out;
-    for (size_t k = 0; k < 2048; k += 64) __builtin_prefetch((const void *)(at + k));
-    for (size_t row = 0; row < n; row += 16) {
+    if (from == 0)
+        for (size_t k = 0; k < 2048; k += 64) __builtin_prefetch((const void *)(at + k));
+    for (size_t row = from; row < n; row += 16) {
         __builtin_prefetch((const void *)(at + 8 * row + 2048));
         __builtin_prefetch((const void *)(at + 8 * row + 2048 + 64));
         __m128i v[4][2];
@@ -465,6 +467,66 @@ __attribute__((target("avx512f,avx512bw"))) static size_t f32_avx512_rows16(cons
 }
 
 static int have_avx512(void) { return __builtin_cpu_supports("avx512f") && __builtin_cpu_supports("avx512bw"); }
+
+/* cells4_sse2 with AVX2, two rows at a time (row r in each vector's low 128-bit lane, row
+ * r + 1 in its high lane, so every in-lane step is the SSE2 code's on two rows); the lanes are
+ * put back in row order by 128-bit permutes on the way out. The same words, so the same bits.
+ * Returns the flag as cells4_sse2 and, in *done, the cells it did (pairs of rows). */
+__attribute__((target("avx2"))) static inline __m256i prefix16_avx2(__m256i v)
+{
+    v = _mm256_add_epi16(v, _mm256_slli_si256(v, 2));
+    v = _mm256_add_epi16(v, _mm256_slli_si256(v, 4));
+    return _mm256_add_epi16(v, _mm256_slli_si256(v, 8));
+}
+
+__attribute__((target("avx2"))) static int cells4_avx2(const uint8_t *const lo[4], const uint8_t *const hi[4],
+                                                       const uint16_t cval[4], size_t n, uint16_t *restrict out,
+                                                       size_t *done)
+{
+    const __m256i expm = _mm256_set1_epi16(0x7C00);
+    __m256i special = _mm256_setzero_si256();
+    __m256i k[4];
+    for (int c = 0; c < 4; c++) {
+        k[c] = _mm256_set1_epi16((short)cval[c]);
+        if (!lo[c]) special = _mm256_or_si256(special, _mm256_cmpeq_epi16(_mm256_and_si256(k[c], expm), expm));
+    }
+    uintptr_t at = (uintptr_t)out; /* read ahead 2 KiB, as cells4_sse2 */
+    for (size_t q = 0; q < 2048; q += 64) __builtin_prefetch((const void *)(at + q));
+    size_t row = 0;
+    for (; row + 32 <= n; row += 32) {
+        for (size_t q = 0; q < 256; q += 64) __builtin_prefetch((const void *)(at + 8 * row + 2048 + q));
+        __m256i v[4][2];
+        for (int c = 0; c < 4; c++) {
+            if (!lo[c]) {
+                v[c][0] = v[c][1] = k[c];
+                continue;
+            }
+            __m256i l = _mm256_loadu_si256((const __m256i *)(const void *)(lo[c] + row));
+            __m256i h = _mm256_loadu_si256((const __m256i *)(const void *)(hi[c] + row));
+            __m256i v0 = prefix16_avx2(_mm256_unpacklo_epi8(l, h));
+            __m256i last = _mm256_shuffle_epi32(_mm256_shufflehi_epi16(v0, 0xFF), 0xFF);
+            __m256i v1 = _mm256_add_epi16(prefix16_avx2(_mm256_unpackhi_epi8(l, h)), last);
+            special = _mm256_or_si256(special, _mm256_cmpeq_epi16(_mm256_and_si256(v0, expm), expm));
+            special = _mm256_or_si256(special, _mm256_cmpeq_epi16(_mm256_and_si256(v1, expm), expm));
+            v[c][0] = v0;
+            v[c][1] = v1;
+        }
+        for (int q = 0; q < 2; q++) { /* cells 8q..8q+7 of both rows */
+            __m256i ablo = _mm256_unpacklo_epi16(v[0][q], v[1][q]), abhi = _mm256_unpackhi_epi16(v[0][q], v[1][q]);
+            __m256i cdlo = _mm256_unpacklo_epi16(v[2][q], v[3][q]), cdhi = _mm256_unpackhi_epi16(v[2][q], v[3][q]);
+            __m256i r0 = _mm256_unpacklo_epi32(ablo, cdlo), r1 = _mm256_unpackhi_epi32(ablo, cdlo);
+            __m256i r2 = _mm256_unpacklo_epi32(abhi, cdhi), r3 = _mm256_unpackhi_epi32(abhi, cdhi);
+            __m256i *o0 = (__m256i *)(void *)(out + 4 * (row + 8 * (size_t)q));
+            __m256i *o1 = (__m256i *)(void *)(out + 4 * (row + 16 + 8 * (size_t)q));
+            _mm256_storeu_si256(o0, _mm256_permute2x128_si256(r0, r1, 0x20));
+            _mm256_storeu_si256(o0 + 1, _mm256_permute2x128_si256(r2, r3, 0x20));
+            _mm256_storeu_si256(o1, _mm256_permute2x128_si256(r0, r1, 0x31));
+            _mm256_storeu_si256(o1 + 1, _mm256_permute2x128_si256(r2, r3, 0x31));
+        }
+    }
+    *done = row;
+    return _mm256_movemask_epi8(special) != 0;
+}
 #endif
 #endif
 
@@ -540,7 +602,15 @@ int brv_unfilter_f16_cells4(const uint8_t *const lo[4], const uint8_t *const hi[
                             uint16_t *out, int simd)
 {
 #if defined(__SSE2__)
-    if (simd && n % 16 == 0) return cells4_sse2(lo, hi, cval, n, out);
+    if (simd && n % 16 == 0) {
+        size_t done = 0;
+        int special = 0;
+#if defined(BRV_HAVE_AVX2)
+        if (simd != 3 && have_avx2()) special = cells4_avx2(lo, hi, cval, n, out, &done);
+#endif
+        if (done == n) return special;
+        return cells4_sse2(lo, hi, cval, n, out, done) | special;
+    }
 #else
     (void)simd;
 #endif

@@ -277,37 +277,44 @@ static void halves_unfilter_should_return_the_stored_words(void **state)
 
 /* Four f16 channels merged, prefix-summed and interleaved in one pass (the sampler's slots):
  * the stored words of each channel at out[4·i + c], a constant channel's word everywhere, the
- * infinity/NaN flag raised exactly when such a word is present; SSE2 and scalar agree. */
+ * infinity/NaN flag raised exactly when such a word is present (IEEE 754-2008 binary16:
+ * exponent field 31); AVX2 (rows in pairs, a last odd row by SSE2), SSE2 alone and the scalar
+ * reference agree, for an even and an odd number of rows. */
 static void cells4_unfilter_should_interleave_the_stored_words(void **state)
 {
     (void)state;
     enum { N = 4096 };
     uint8_t *words = malloc(2u * N), *planes = malloc(4u * 2u * N);
     uint16_t *a = malloc(4u * 2u * N), *b = malloc(4u * 2u * N);
-    for (int trial = 0; trial < 3; trial++) {
-        const uint8_t *lo[4], *hi[4];
-        uint16_t cval[4] = {0x3C00u, 0x2E66u, 0x0001u, trial == 2 ? 0x7C00u : 0x7BFFu};
-        for (int c = 0; c < 4; c++) {
-            /* channel 1 constant in trial 1; otherwise scattered finite words (trial 0 has an
-             * infinity in channel 2's last cell) */
-            for (uint32_t w = 0; w < N; w++) brv_wr16(words + 2 * w, (uint16_t)(((w + 977u * c) * 40503u) % 0x7C00u));
-            if (trial == 0 && c == 2) brv_wr16(words + 2 * (N - 1), 0xFC00u);
-            shuffle_delta(words, N, 2, 16, planes + (size_t)c * 2 * N);
-            lo[c] = (trial == 1 && c == 1) || (trial == 2 && c == 3) ? NULL : planes + (size_t)c * 2 * N;
-            hi[c] = lo[c] ? lo[c] + N : NULL;
-        }
-        int want_special = trial != 1;
-        assert_int_equal(brv_unfilter_f16_cells4(lo, hi, cval, N, a, 1), want_special);
-        assert_int_equal(brv_unfilter_f16_cells4(lo, hi, cval, N, b, 0), want_special);
-        assert_memory_equal(a, b, 4u * 2u * N);
-        for (int c = 0; c < 4; c++) {
-            for (uint32_t w = 0; w < N; w++) {
-                uint16_t want = lo[c] ? (uint16_t)(((w + 977u * c) * 40503u) % 0x7C00u) : cval[c];
-                if (trial == 0 && c == 2 && w == N - 1) want = 0xFC00u;
-                assert_int_equal(a[4 * w + (uint32_t)c], want);
+    for (uint32_t n = N - 16; n <= N; n += 16)
+        for (int trial = 0; trial < 4; trial++) {
+            const uint8_t *lo[4], *hi[4];
+            uint16_t cval[4] = {0x3C00u, 0x2E66u, 0x0001u, trial == 2 ? 0x7C00u : 0x7BFFu};
+            /* special word: trial 0 in channel 2's last cell, trial 3 in channel 0's cell 100
+             * (a pair of rows); trial 2 a constant infinity; trial 1 none, channel 1 constant */
+            uint32_t sc = trial == 0 ? 2 : trial == 3 ? 0 : 9, sw = trial == 0 ? n - 1 : 100;
+            for (uint32_t c = 0; c < 4; c++) {
+                for (uint32_t w = 0; w < n; w++) brv_wr16(words + 2 * w, (uint16_t)(((w + 977u * c) * 40503u) % 0x7C00u));
+                if (c == sc) brv_wr16(words + 2 * sw, 0xFC00u);
+                shuffle_delta(words, n, 2, 16, planes + (size_t)c * 2 * N);
+                lo[c] = (trial == 1 && c == 1) || (trial == 2 && c == 3) ? NULL : planes + (size_t)c * 2 * N;
+                hi[c] = lo[c] ? lo[c] + n : NULL;
+            }
+            int want_special = trial != 1;
+            assert_int_equal(brv_unfilter_f16_cells4(lo, hi, cval, n, b, 0), want_special);
+            for (int lv = 1; lv <= 3; lv += 2) { /* 1: AVX2 where the processor has it; 3: SSE2 */
+                memset(a, 0, 4u * 2u * N);
+                assert_int_equal(brv_unfilter_f16_cells4(lo, hi, cval, n, a, lv), want_special);
+                assert_memory_equal(a, b, 4u * 2u * n);
+            }
+            for (uint32_t c = 0; c < 4; c++) {
+                for (uint32_t w = 0; w < n; w++) {
+                    uint16_t want = lo[c] ? (uint16_t)(((w + 977u * c) * 40503u) % 0x7C00u) : cval[c];
+                    if (c == sc && w == sw) want = 0xFC00u;
+                    assert_int_equal(a[4 * w + c], want);
+                }
             }
         }
-    }
     free(words);
     free(planes);
     free(a);
