@@ -515,20 +515,25 @@ typedef void (*corner_fn)(const float *f, size_t o1, size_t o2, size_t o3, const
 __attribute__((always_inline)) static inline void line_chunk_body(const brm_noise_table *t, const brm_noise_grid *g,
                                                                   const double o[3], const double d[3],
                                                                   const double lo[3], const double hi[3], double t0,
-                                                                  double dt, uint32_t k0, float *out,
-                                                                  corner_fn gather8, const uint32_t len)
+                                                                  double dt, const double *tv, uint32_t k0,
+                                                                  float *out, corner_fn gather8, const uint32_t len)
 {
     float px[LINE_CHUNK], py[LINE_CHUNK], pz[LINE_CHUNK], sum[LINE_CHUNK];
+    double tt[LINE_CHUNK];
+    if (tv)
+        for (uint32_t i = 0; i < len; i++) tt[i] = tv[k0 + i];
+    else
+        for (uint32_t i = 0; i < len; i++) tt[i] = t0 + dt * (double)(k0 + i);
     for (uint32_t i = 0; i < len; i++) {
-        const double tt = t0 + dt * (double)(k0 + i);
-        double x = o[0] + tt * d[0], y = o[1] + tt * d[1], z = o[2] + tt * d[2];
+        double x = o[0] + tt[i] * d[0], y = o[1] + tt[i] * d[1], z = o[2] + tt[i] * d[2];
         x = x < lo[0] ? lo[0] : x, y = y < lo[1] ? lo[1] : y, z = z < lo[2] ? lo[2] : z;
         x = x > hi[0] ? hi[0] : x, y = y > hi[1] ? hi[1] : y, z = z > hi[2] ? hi[2] : z;
         px[i] = (float)x, py[i] = (float)y, pz[i] = (float)z;
         sum[i] = 0.0f;
     }
-    /* The chunk's box: each coordinate is a clamped linear function of t, monotone, so its
-     * extremes are at the chunk's ends. A box medium the chunk's box misses adds nothing. */
+    /* The chunk's box: each coordinate is a clamped linear function of t, monotone, so with
+     * t increasing along the chunk (both callers' order) its extremes are at the chunk's
+     * ends. A box medium the chunk's box misses adds nothing. */
     const float bx0 = px[0] < px[len - 1] ? px[0] : px[len - 1], bx1 = px[0] < px[len - 1] ? px[len - 1] : px[0];
     const float by0 = py[0] < py[len - 1] ? py[0] : py[len - 1], by1 = py[0] < py[len - 1] ? py[len - 1] : py[0];
     const float bz0 = pz[0] < pz[len - 1] ? pz[0] : pz[len - 1], bz1 = pz[0] < pz[len - 1] ? pz[len - 1] : pz[0];
@@ -626,14 +631,14 @@ __attribute__((always_inline)) static inline void line_chunk_body(const brm_nois
 
 #define LINE_ARGS                                                                                             \
     const brm_noise_table *t, const brm_noise_grid *g, const double o[3], const double d[3], const double lo[3], \
-        const double hi[3], double t0, double dt, uint32_t k0, float *out, uint32_t len
+        const double hi[3], double t0, double dt, const double *tv, uint32_t k0, float *out, uint32_t len
 /* Two lengths: LINE_CHUNK, and LINE_TAIL for what is left (less padding on short lines). */
 #define LINE_TAIL 16
 #define LINE_BOTH(gather)                                                                    \
     if (len == LINE_CHUNK)                                                                   \
-        line_chunk_body(t, g, o, d, lo, hi, t0, dt, k0, out, gather, LINE_CHUNK);            \
+        line_chunk_body(t, g, o, d, lo, hi, t0, dt, tv, k0, out, gather, LINE_CHUNK);        \
     else                                                                                     \
-        line_chunk_body(t, g, o, d, lo, hi, t0, dt, k0, out, gather, LINE_TAIL)
+        line_chunk_body(t, g, o, d, lo, hi, t0, dt, tv, k0, out, gather, LINE_TAIL)
 LINE_OPTIMIZE static void line_chunk_sse2(LINE_ARGS) { LINE_BOTH(NULL); }
 #if (defined(__x86_64__) || defined(__i386__)) && defined(__GNUC__)
 #define LINE_HAVE_AVX2 1
@@ -654,14 +659,15 @@ __attribute__((target("avx2"))) LINE_OPTIMIZE static void line_chunk_avx2(LINE_A
 }
 #endif
 
-int brm_media_extinction_line_simd(const brm_scene *s, const brm_noise_grid *g, brm_vec3 o, brm_vec3 d, double t0,
-                                   double dt, uint32_t n, float *out, int simd)
+/* Both public calls: samples at t0 + k·dt, or at tv[k] when tv is not NULL. */
+static int extinction_batch(const brm_scene *s, const brm_noise_grid *g, brm_vec3 o, brm_vec3 d, double t0, double dt,
+                            const double *tv, uint32_t n, float *out, int simd)
 {
     assert(s->media_ready);
     const brm_noise_table *t = s->noise;
     if (t->noise_count > 0 && (!g || !g->f)) { /* exact noise: per point */
         for (uint32_t k = 0; k < n; k++) {
-            brm_vec3 q = brm_madd(o, d, t0 + dt * (double)k);
+            brm_vec3 q = brm_madd(o, d, tv ? tv[k] : t0 + dt * (double)k);
             out[k] = (float)brm_media_extinction(s, brm_vmin(brm_vmax(q, s->fog_bounds.min), s->fog_bounds.max));
         }
         return 0;
@@ -678,18 +684,36 @@ int brm_media_extinction_line_simd(const brm_scene *s, const brm_noise_grid *g, 
     (void)simd;
 #endif
     uint32_t k = 0;
-    for (; k + LINE_CHUNK <= n; k += LINE_CHUNK) chunk(t, g, oo, dd, lo, hi, t0, dt, k, out + k, LINE_CHUNK);
-    for (; k + LINE_TAIL <= n; k += LINE_TAIL) chunk(t, g, oo, dd, lo, hi, t0, dt, k, out + k, LINE_TAIL);
+    for (; k + LINE_CHUNK <= n; k += LINE_CHUNK) chunk(t, g, oo, dd, lo, hi, t0, dt, tv, k, out + k, LINE_CHUNK);
+    for (; k + LINE_TAIL <= n; k += LINE_TAIL) chunk(t, g, oo, dd, lo, hi, t0, dt, tv, k, out + k, LINE_TAIL);
     if (k < n) {
         float tail[LINE_TAIL];
-        chunk(t, g, oo, dd, lo, hi, t0, dt, k, tail, LINE_TAIL);
+        double ttail[LINE_TAIL];
+        if (tv) { /* pad by repeating the last point: the chunk's box stays the points' */
+            for (uint32_t i = 0; i < LINE_TAIL; i++) ttail[i] = tv[k + i < n ? k + i : n - 1];
+            chunk(t, g, oo, dd, lo, hi, t0, dt, ttail, 0, tail, LINE_TAIL);
+        } else {
+            chunk(t, g, oo, dd, lo, hi, t0, dt, NULL, k, tail, LINE_TAIL);
+        }
         memcpy(out + k, tail, (n - k) * sizeof *out);
     }
     return used;
 }
 
+int brm_media_extinction_line_simd(const brm_scene *s, const brm_noise_grid *g, brm_vec3 o, brm_vec3 d, double t0,
+                                   double dt, uint32_t n, float *out, int simd)
+{
+    return extinction_batch(s, g, o, d, t0, dt, NULL, n, out, simd);
+}
+
 void brm_media_extinction_line(const brm_scene *s, const brm_noise_grid *g, brm_vec3 o, brm_vec3 d, double t0,
                                double dt, uint32_t n, float *out)
 {
-    brm_media_extinction_line_simd(s, g, o, d, t0, dt, n, out, 1);
+    extinction_batch(s, g, o, d, t0, dt, NULL, n, out, 1);
+}
+
+void brm_media_extinction_points(const brm_scene *s, const brm_noise_grid *g, brm_vec3 o, brm_vec3 d, const double *t,
+                                 uint32_t n, float *out)
+{
+    extinction_batch(s, g, o, d, 0.0, 0.0, t, n, out, 1);
 }

@@ -85,6 +85,9 @@ double brm_media_extinction_tabulated(const brm_scene *s, const brm_noise_grid *
  * exact double path. */
 void brm_media_extinction_line(const brm_scene *s, const brm_noise_grid *g, brm_vec3 o, brm_vec3 d, double t0,
                                double dt, uint32_t n, float *out);
+/* The same at o + t[k]·d, t increasing (for the chunks' boxes), k < n: irregular samples. */
+void brm_media_extinction_points(const brm_scene *s, const brm_noise_grid *g, brm_vec3 o, brm_vec3 d, const double *t,
+                                 uint32_t n, float *out);
 /* The same with the instruction set chosen: simd 0 the SSE2 baseline, 1 AVX2 where the
  * processor has it. Returns 1 when AVX2 ran (tests compare the two bit for bit). */
 int brm_media_extinction_line_simd(const brm_scene *s, const brm_noise_grid *g, brm_vec3 o, brm_vec3 d, double t0,

@@ -100,6 +100,8 @@ static int cmp_double(const void *a, const void *b)
 }
 
 #define MAX_CUTS (4 + 4 * BRM_MAX_MEDIA + BRM_MAX_MEDIA)
+/* Where a batched piece's end samples sit inside it, as a share of its length (fill_column). */
+#define PIECE_END 1e-3
 
 /* The places in (a, b), sorted, where sigma_t has a jump or a kink along p + t·d: box faces,
  * base planes, and (cont) the fog-bounds faces, where the continuation has kinks. */
@@ -513,6 +515,38 @@ static void fill_column(const brm_scene *s, const media_info *mi, const shadow_v
     col[2 * first] = 0.0f;
     col[2 * first + 1] = (float)sig;
     const double hs = mi->only_uniform ? HUGE_VAL : h;
+    /* The segments with cuts inside: Simpson on the pieces between the column's cuts (the
+     * cuts continued_segment would find over [t, t1], not searched again). A piece fits one
+     * panel (it is shorter than a node step, the step no longer than h); its three samples
+     * join one batch along the line. The ends are taken PIECE_END of the piece's length
+     * inside it, so that a float position cannot fall across the jump at a hard box face
+     * that bounds the piece; the slivers left at the ends count by the trapezoid rule:
+     * exact for constant sigma~, off by O(PIECE_END²·len²·sigma~') otherwise. */
+    double pa[2 * MAX_CUTS + 2], pb[2 * MAX_CUTS + 2], pt[3 * (2 * MAX_CUTS + 2)];
+    uint32_t np = 0;
+    {
+        double ta = t;
+        uint32_t cj = ci;
+        for (uint32_t k = first + 1; k <= last && cj < nc && !mi->only_uniform; k++) {
+            double t1 = v->og_lo[2] + v->og_step[2] * (double)k;
+            if (!(cut[cj] < t1)) {
+                ta = t1;
+                continue;
+            }
+            double a = ta;
+            for (; cj < nc && cut[cj] < t1; cj++)
+                if (cut[cj] > a && np < 2 * MAX_CUTS + 1) pa[np] = a, pb[np++] = cut[cj], a = cut[cj];
+            if (np < 2 * MAX_CUTS + 2) pa[np] = a, pb[np++] = t1;
+            ta = t1;
+        }
+    }
+    float pv[3 * (2 * MAX_CUTS + 2)];
+    for (uint32_t q = 0; q < np; q++) {
+        double e = PIECE_END * (pb[q] - pa[q]);
+        pt[3 * q] = pa[q] + e, pt[3 * q + 1] = 0.5 * (pa[q] + pb[q]), pt[3 * q + 2] = pb[q] - e;
+    }
+    if (np) brm_media_extinction_points(s, mi->noise_grid, o, d, pt, 3 * np, pv);
+    uint32_t pq = 0;
     for (uint32_t k = first + 1; k <= last; k++) {
         double t1 = v->og_lo[2] + v->og_step[2] * (double)k;
         bool clean = !(ci < nc && cut[ci] < t1) && t1 - t <= h;
@@ -520,15 +554,22 @@ static void fill_column(const brm_scene *s, const media_info *mi, const shadow_v
         if (clean && !mi->only_uniform) {
             g += (t1 - t) / 6.0 * (sig + 4.0 * (double)sk[2 * k - 1] + s1);
         } else {
-            /* Simpson on the pieces between the column's cuts in (t, t1): the cuts of
-             * continued_segment over [t, t1], without finding them again. */
             double a = t;
-            for (; ci < nc && cut[ci] < t1; ci++)
-                if (cut[ci] > a) {
-                    g += simpson(s, mi, o, d, a, cut[ci], hs, true);
-                    a = cut[ci];
+            bool more = true;
+            while (more) {
+                more = ci < nc && cut[ci] < t1;
+                double b = more ? cut[ci++] : t1;
+                if (more && !(b > a)) continue;
+                double len = b - a;
+                if (pq < np && pa[pq] == a && pb[pq] == b && len <= hs) {
+                    double e = PIECE_END * len, f0 = pv[3 * pq], f1 = pv[3 * pq + 2];
+                    g += (len - 2.0 * e) / 6.0 * (f0 + 4.0 * (double)pv[3 * pq + 1] + f1) + e * (f0 + f1);
+                } else {
+                    g += simpson(s, mi, o, d, a, b, hs, true); /* not batched (longer than a panel) */
                 }
-            g += simpson(s, mi, o, d, a, t1, hs, true);
+                if (pq < np && pa[pq] == a && pb[pq] == b) pq++;
+                a = b;
+            }
         }
         t = t1;
         sig = s1;
