@@ -30,6 +30,7 @@ void brm_media_info_init(const brm_scene *s, media_info *mi)
         case BRM_MEDIUM_BOX:
             mi->only_uniform = false;
             mi->boxes[mi->box_count++] = m->box;
+            if (!(m->edge_fade_m > 0.0) && m->sigma_t > 0.0) mi->hard[mi->hard_count++] = m->box;
             if (m->edge_fade_m > 0.0) {
                 mi->feature = fmin(mi->feature, m->edge_fade_m);
                 mi->feature_lateral = fmin(mi->feature_lateral, m->edge_fade_m);
@@ -230,6 +231,7 @@ size_t brm_od_plan(const brm_scene *s, const brm_shadow_opts *o, const media_inf
 {
     ls->has_od = ls->active && mi->any && brm_media_any_in(s, o->bounds);
     if (!ls->has_od) return 0;
+    for (uint32_t k = 0; k < ls->view_count; k++) ls->views[k].hard_count = mi->hard_count, ls->views[k].hard = mi->hard;
     /* Lookups come from samples in fog, so the grid need cover only the target's part of the
      * fog bounds (a frustum's bounding box reaches far outside them; covering it all starved
      * the lateral resolution and sent most lookups to the fallback march). */
@@ -970,6 +972,47 @@ static int grid_eval(const shadow_view *v, double x, double y, double z, int fac
     return 1;
 }
 
+/* Whether the depth interval of grid point (x, y, z) may hold a hard box face crossed by one
+ * of the columns of its lateral cell (shadow_view.hard): the box spanned by the four corner
+ * columns' segments over the interval (their eight ends; a cone's segments bulge out of
+ * that by at most r·(angle²)/2, allowed for) meets a hard box's surface, i.e. meets the box
+ * without lying inside it. Conservative: the lookup then marches. */
+static int near_hard_face(const shadow_view *v, double x, double y, double z)
+{
+    uint32_t c[3];
+    double q[3] = {x, y, z};
+    for (int a = 0; a < 3; a++) {
+        double f = (q[a] - v->og_lo[a]) * v->og_inv[a], lim = (double)(v->og_n[a] - 1);
+        f = f < 0.0 ? 0.0 : f > lim ? lim : f;
+        double fl = (double)(uint32_t)f;
+        if (fl > lim - 1.0) fl = lim - 1.0;
+        c[a] = (uint32_t)fl;
+    }
+    brm_aabb span = brm_aabb_empty();
+    double r1 = v->og_lo[2] + v->og_step[2] * (c[2] + 1.0);
+    for (int k = 0; k < 8; k++) {
+        double cx = v->og_lo[0] + v->og_step[0] * (c[0] + (double)(k & 1));
+        double cy = v->og_lo[1] + v->og_step[1] * (c[1] + (double)((k >> 1) & 1));
+        double cz = v->og_lo[2] + v->og_step[2] * (c[2] + (double)(k >> 2));
+        brm_vec3 w = v->kind == BRM_VIEW_ORTHO
+                         ? brm_add(brm_add(brm_scale(v->u, cx), brm_scale(v->v, cy)), brm_scale(v->f, cz))
+                         : brm_madd(v->origin, brm_norm(brm_add(v->f, brm_add(brm_scale(v->u, cx), brm_scale(v->v, cy)))), cz);
+        brm_aabb_grow(&span, w);
+    }
+    double e = 1e-6 * (1.0 + fabs(r1));
+    if (v->kind != BRM_VIEW_ORTHO) e += r1 * (v->og_step[0] * v->og_step[0] + v->og_step[1] * v->og_step[1]);
+    span.min = brm_sub(span.min, brm_v3(e, e, e));
+    span.max = brm_add(span.max, brm_v3(e, e, e));
+    for (uint32_t b = 0; b < v->hard_count; b++) {
+        const brm_aabb h = v->hard[b];
+        if (!brm_aabb_overlaps(span, h)) continue;
+        bool inside = span.min.x > h.min.x && span.max.x < h.max.x && span.min.y > h.min.y && span.max.y < h.max.y &&
+                      span.min.z > h.min.z && span.max.z < h.max.z;
+        if (!inside) return 1;
+    }
+    return 0;
+}
+
 /* Ortho: p inside the fog bounds. */
 static inline int lookup_ortho(const brm_scene *s, const shadow_view *v, brm_vec3 p, double *tau)
 {
@@ -987,7 +1030,9 @@ static inline int lookup_ortho(const brm_scene *s, const shadow_view *v, brm_vec
     }
     if (best < 0) return 0;
     double g, pre;
-    if (!grid_eval(v, brm_dot(p, v->u), brm_dot(p, v->v), brm_dot(p, v->f), best, &g, &pre)) return 0;
+    const double x = brm_dot(p, v->u), y = brm_dot(p, v->v), z = brm_dot(p, v->f);
+    if (!grid_eval(v, x, y, z, best, &g, &pre)) return 0;
+    if (v->hard_count && near_hard_face(v, x, y, z)) return 0;
     double t = pre + g;
     *tau = t > 0.0 ? t : 0.0;
     return 1;
@@ -1002,6 +1047,7 @@ static inline int lookup_persp(const brm_scene *s, const shadow_view *v, brm_vec
     const double x = brm_dot(d, v->u) * iz, y = brm_dot(d, v->v) * iz;
     double g;
     if (!grid_eval(v, x, y, r, -1, &g, NULL)) return 0;
+    if (v->hard_count && near_hard_face(v, x, y, r)) return 0;
     const brm_aabb fb = s->fog_bounds;
     if (!brm_aabb_contains(fb, v->origin)) {
         /* The light is outside the fog: subtract what G holds before the path enters it. */
@@ -1010,6 +1056,7 @@ static inline int lookup_persp(const brm_scene *s, const shadow_view *v, brm_vec
         double t0, t1, g0;
         if (!brm_ray_aabb(v->origin, inv, fb, 0.0, r, &t0, &t1)) return 0;
         if (!grid_eval(v, x, y, t0, -1, &g0, NULL)) return 0;
+        if (v->hard_count && near_hard_face(v, x, y, t0)) return 0;
         g -= g0;
     }
     *tau = g > 0.0 ? g : 0.0;

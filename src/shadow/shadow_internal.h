@@ -127,6 +127,12 @@ typedef struct shadow_view {
      * columns (no block, no correction, no flag), so most lookups read this and the
      * columns alone; NULL when out of memory (every lookup takes the general path) */
     uint16_t *cell_clean;       /* 2 · (og_n[0] − 1) · (og_n[1] − 1): lo, hi */
+    /* The media's hard box faces (media_info.hard of the set): G has a kink where a column
+     * crosses one, which the Hermite steps along depth cannot follow (off by up to about
+     * jump · step / 10 in tau) and the build's checks at the nodes cannot see, so a lookup
+     * whose depth interval may hold such a crossing in any of its cell's columns marches. */
+    uint32_t hard_count;
+    const brm_aabb *hard;
 } shadow_view;
 /* The grids store G = ∫ sigma~ along the path from the column's first filled depth node
  * (ortho: od_first) or from the light (persp), where sigma~(q) = sigma_t(q clamped into the fog bounds): sigma_t continued
@@ -166,6 +172,8 @@ typedef struct media_info {
     uint32_t plane_count;       /* and horizontal planes (height fog's base) */
     double plane_y[BRM_MAX_MEDIA];
     const brm_noise_grid *noise_grid; /* fast path: the tabulated noise factor; NULL = exact */
+    uint32_t hard_count;        /* box media without an edge fade: sigma_t jumps at their faces */
+    brm_aabb hard[BRM_MAX_MEDIA];
 } media_info;
 
 /* The sky: visible-sky SH (bands 0–1, 3 colours) on a lattice over the target, each
