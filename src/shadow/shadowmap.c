@@ -186,6 +186,42 @@ static inline void store(shadow_view *v, uint32_t i, uint32_t j, double depth)
     if (d < *t) *t = d;
 }
 
+#if defined(__x86_64__) && defined(__GNUC__)
+#include <immintrin.h>
+#define SHADOWMAP_AVX2 1
+/* Texels [lo, hi] of one row of a triangle's run, four at a time with AVX: the per-texel
+ * depth of raster_tri2d (plane value at the texel centre, clamped to the triangle's range,
+ * then the bias: q + b for ortho, (1/q)·(1 + b) for persp, b = bias·texel) rounded to float
+ * and kept where it is nearer — the same IEEE operations in the same order, so the same
+ * bits. Returns the first texel left for the scalar loop. */
+__attribute__((target("avx2"))) static int64_t fill_run_avx2(float *row, int64_t lo, int64_t hi, const rvert *t0,
+                                                              double gx, double gy, double cy, double qlo, double qhi,
+                                                              bool persp, double bt)
+{
+    const __m256d vx0 = _mm256_set1_pd(t0->x), vq0 = _mm256_set1_pd(t0->q), vgx = _mm256_set1_pd(gx);
+    const __m256d ygy = _mm256_set1_pd(gy * (cy - t0->y));
+    const __m256d vlo = _mm256_set1_pd(qlo), vhi = _mm256_set1_pd(qhi);
+    const __m256d one = _mm256_set1_pd(1.0), vb = _mm256_set1_pd(persp ? 1.0 + bt : bt);
+    const __m256d step = _mm256_set_pd(3.5, 2.5, 1.5, 0.5);
+    int64_t i = lo;
+    for (; i + 3 <= hi; i += 4) {
+        __m256d cx = _mm256_add_pd(_mm256_set1_pd((double)i), step);
+        __m256d q = _mm256_add_pd(_mm256_add_pd(vq0, _mm256_mul_pd(vgx, _mm256_sub_pd(cx, vx0))), ygy);
+        /* brm_clamp(q, qlo, qhi): x < lo ? lo : x > hi ? hi : x */
+        q = _mm256_blendv_pd(q, vhi, _mm256_cmp_pd(q, vhi, _CMP_GT_OQ));
+        q = _mm256_blendv_pd(q, vlo, _mm256_cmp_pd(q, vlo, _CMP_LT_OQ));
+        __m256d depth = persp ? _mm256_mul_pd(_mm256_div_pd(one, q), vb) : _mm256_add_pd(q, vb);
+        __m128 d = _mm256_cvtpd_ps(depth);
+        __m128 old = _mm_loadu_ps(row + i);
+        /* if (d < old) old = d: minps gives its second operand unless the first is less */
+        _mm_storeu_ps(row + i, _mm_min_ps(d, old));
+    }
+    return i;
+}
+#else
+#define SHADOWMAP_AVX2 0
+#endif
+
 /* The edge test of raster_tri2d at texel centre cx, written once so the run search and
  * the original per-texel form agree bit for bit: A·cx + (B·cy) + C not below tol. */
 static inline bool edge_ok(double a, double bc, double c, double tol, double cx) { return !(a * cx + bc + c < tol); }
@@ -217,6 +253,9 @@ static void raster_tri2d(shadow_view *v, uint32_t row0, uint32_t row1, const rve
         C[k] = -(A[k] * a->x + B[k] * a->y) + slack * (fabs(A[k]) + fabs(B[k]));
     }
     bool persp = v->kind == BRM_VIEW_PERSP;
+#if SHADOWMAP_AVX2
+    const bool have_avx2 = __builtin_cpu_supports("avx2");
+#endif
     double qlo = fmin(t[0].q, fmin(t[1].q, t[2].q)), qhi = fmax(t[0].q, fmax(t[1].q, t[2].q));
     bool flat = fabs(area2) < 1e-9;
     double gx = 0.0, gy = 0.0;
@@ -262,7 +301,12 @@ static void raster_tri2d(shadow_view *v, uint32_t row0, uint32_t row1, const rve
             else hi = g - 1 < hi ? g - 1 : hi;
         }
         if (lo > hi) continue;
-        for (int64_t i = lo; i <= hi; i++) {
+        int64_t i = lo;
+#if SHADOWMAP_AVX2
+        if (!flat && have_avx2)
+            i = fill_run_avx2(v->depth + (size_t)j * v->res, lo, hi, &t[0], gx, gy, cy, qlo, qhi, persp, bias * v->texel);
+#endif
+        for (; i <= hi; i++) {
             double cx = (double)i + 0.5;
             double q = flat ? qflat : brm_clamp(t[0].q + gx * (cx - t[0].x) + gy * (cy - t[0].y), qlo, qhi);
             double depth = persp ? (1.0 / q) * (1.0 + bias * v->texel) : q + bias * v->texel;
