@@ -600,15 +600,18 @@ __attribute__((always_inline)) static inline void line_chunk_body(const brm_nois
     const float hx = (float)(g->n[0] - 1), hy = (float)(g->n[1] - 1), hz = (float)(g->n[2] - 1);
     const int32_t mx = (int32_t)g->n[0] - 2, my = (int32_t)g->n[1] - 2, mz = (int32_t)g->n[2] - 2;
     const int32_t sy = (int32_t)g->n[0], sz = (int32_t)(g->n[0] * g->n[1]);
+    const float fsy = (float)sy, fsz = (float)sz;
     for (uint32_t i = 0; i < len; i++) {
         float fx = (px[i] - gx) * ix, fy = (py[i] - gy) * iy, fz = (pz[i] - gz) * iz;
-        fx = fx > 0.0f ? (fx < hx ? fx : hx) : 0.0f;
-        fy = fy > 0.0f ? (fy < hy ? fy : hy) : 0.0f;
-        fz = fz > 0.0f ? (fz < hz ? fz : hz) : 0.0f;
+        /* clamps one at a time: max and min instructions, not blends */
+        fx = fx > 0.0f ? fx : 0.0f, fy = fy > 0.0f ? fy : 0.0f, fz = fz > 0.0f ? fz : 0.0f;
+        fx = fx < hx ? fx : hx, fy = fy < hy ? fy : hy, fz = fz < hz ? fz : hz;
         int32_t jx = (int32_t)fx, jy = (int32_t)fy, jz = (int32_t)fz;
         jx = jx < mx ? jx : mx, jy = jy < my ? jy : my, jz = jz < mz ? jz : mz;
-        cx[i] = fx - (float)jx, cy[i] = fy - (float)jy, cz[i] = fz - (float)jz;
-        base[i] = (uint32_t)(jx + sy * jy + sz * jz);
+        const float gjx = (float)jx, gjy = (float)jy, gjz = (float)jz;
+        cx[i] = fx - gjx, cy[i] = fy - gjy, cz[i] = fz - gjz;
+        /* the node index in single precision is exact: the table has under 2^23 nodes */
+        base[i] = (uint32_t)(int32_t)(gjx + fsy * gjy + fsz * gjz);
     }
     const float *f = g->f;
     const size_t o1 = (size_t)sy, o2 = (size_t)sz, o3 = (size_t)sy + (size_t)sz;
