@@ -398,16 +398,67 @@ static brv_result trilinear(brv_sampler *s, const double u[3], float *out)
 }
 
 #if defined(__SSE2__)
-/* trilinear for the common case in few instructions — halves, channels a multiple of four,
- * brick sides a power of two, all eight corners in one brick without infinities or NaNs —
- * else trilinear itself. The same operations on the same values in the same order (the
- * corner of weight 0 is the lower one, read twice), so the same bits. A sample whose cells
- * are in memory, not in the caches, waits on them: the fewer instructions a sample takes, the
- * more of the next samples' reads the processor can start while it waits. */
+/* The eight corners of a sample in one slot: cell at, neighbours ox, oy, oz elements on (0 for
+ * a neighbour of weight 0), every channel: float slots, and halves whose channel count is not
+ * a multiple of four (the rest one by one). As trilinear computes them, so the same bits. */
+BRV_NOINLINE static void corners_any(const brv_sampler *s, const slot *sl, size_t at, size_t ox, size_t oy, size_t oz,
+                                     const float t[3], float *out)
+{
+    size_t nc = s->nc, c = 0;
+    __m128 tx = _mm_set1_ps(t[0]), ty = _mm_set1_ps(t[1]), tz = _mm_set1_ps(t[2]), p[8];
+    if (s->half) {
+        const uint16_t *h0 = (const uint16_t *)sl->data + at;
+        for (; c + 4 <= nc; c += 4) {
+            const uint16_t *h = h0 + c;
+            __m128 sc = _mm_loadu_ps(sl->scale + c);
+            const size_t off[8] = {0, ox, oy, oy + ox, oz, oz + ox, oz + oy, oz + oy + ox};
+            for (int k = 0; k < 8; k++)
+                p[k] = _mm_mul_ps(halves4(_mm_loadl_epi64((const __m128i *)(const void *)(h + off[k]))), sc);
+            _mm_storeu_ps(out + c, lerp8_4(p, tx, ty, tz));
+        }
+        for (; c < nc; c++) {
+            const uint16_t *h = h0 + c;
+            float sc = sl->scale[c];
+            float q[8] = {brv_f16_to_f32(h[0]) * sc,           brv_f16_to_f32(h[ox]) * sc,
+                          brv_f16_to_f32(h[oy]) * sc,          brv_f16_to_f32(h[oy + ox]) * sc,
+                          brv_f16_to_f32(h[oz]) * sc,          brv_f16_to_f32(h[oz + ox]) * sc,
+                          brv_f16_to_f32(h[oz + oy]) * sc,     brv_f16_to_f32(h[oz + oy + ox]) * sc};
+            out[c] = lerp8(q, t);
+        }
+        return;
+    }
+    const float *f0 = (const float *)sl->data + at;
+    for (; c + 4 <= nc; c += 4) {
+        const float *q = f0 + c;
+        p[0] = _mm_loadu_ps(q);
+        p[1] = _mm_loadu_ps(q + ox);
+        p[2] = _mm_loadu_ps(q + oy);
+        p[3] = _mm_loadu_ps(q + oy + ox);
+        p[4] = _mm_loadu_ps(q + oz);
+        p[5] = _mm_loadu_ps(q + oz + ox);
+        p[6] = _mm_loadu_ps(q + oz + oy);
+        p[7] = _mm_loadu_ps(q + oz + oy + ox);
+        _mm_storeu_ps(out + c, lerp8_4(p, tx, ty, tz));
+    }
+    for (; c < nc; c++) {
+        const float *q = f0 + c;
+        float v[8] = {q[0], q[ox], q[oy], q[oy + ox], q[oz], q[oz + ox], q[oz + oy], q[oz + oy + ox]};
+        out[c] = lerp8(v, t);
+    }
+}
+
+/* trilinear for the common case in few instructions — brick sides a power of two, all eight
+ * corners in one brick (without infinities or NaNs when it holds halves) — else trilinear
+ * itself. The same operations on the same values in the same order (four channels at a time,
+ * the rest one by one; the corner of weight 0 is the lower one, read twice), so the same
+ * bits. A sample whose cells are in memory, not in the caches, waits on them: the fewer
+ * instructions a sample takes, the more of the next samples' reads the processor can start
+ * while it waits. Halves in fours are inline; float slots and other channel counts go to
+ * corners_any. */
 static inline brv_result trilinear_fast(brv_sampler *s, const double u[3], float *out)
 {
     const brv_grid_info *g = s->g;
-    if (!s->half || s->nc % 4 != 0 || s->shift < 0) return trilinear(s, u, out);
+    if (s->shift < 0) return trilinear(s, u, out);
     uint32_t f[3], d[3], same = 1;
     float t[3];
     for (int a = 0; a < 3; a++) {
@@ -421,10 +472,15 @@ static inline brv_result trilinear_fast(brv_sampler *s, const double u[3], float
     uint32_t sh = (uint32_t)s->shift, mask = (1u << sh) - 1u;
     brv_result r = fetch(s, (f[0] >> sh) + g->bricks[0] * ((f[1] >> sh) + g->bricks[1] * (f[2] >> sh)), &sl);
     if (r != BRV_OK) return r;
-    if (sl->special) return trilinear(s, u, out);
+    if (s->half && sl->special) return trilinear(s, u, out);
     size_t nc = s->nc;
-    const uint16_t *h0 = (const uint16_t *)sl->data + nc * (f[0] & mask) + sl->sy * (f[1] & mask) + sl->sz * (f[2] & mask);
+    size_t at = nc * (f[0] & mask) + sl->sy * (f[1] & mask) + sl->sz * (f[2] & mask);
     size_t ox = nc * d[0], oy = sl->sy * d[1], oz = sl->sz * d[2];
+    if (!s->half || nc % 4 != 0) {
+        corners_any(s, sl, at, ox, oy, oz, t, out);
+        return BRV_OK;
+    }
+    const uint16_t *h0 = (const uint16_t *)sl->data + at;
     __m128 tx = _mm_set1_ps(t[0]), ty = _mm_set1_ps(t[1]), tz = _mm_set1_ps(t[2]);
     for (size_t c = 0; c < nc; c += 4) {
         const uint16_t *h = h0 + c;
