@@ -10,10 +10,13 @@
  * 2. size per encoding on a smooth synthetic field, against raw f16 and against plain zstd of
  *    the raw float32 array;
  * 3. random access: 1 million trilinear samples at random points, one thread, of every
- *    channel and of the extinction alone (a sampler of one channel).
+ *    channel and of the extinction alone (a sampler of one channel), the volume in memory
+ *    (brv_open_memory) and, for every channel, opened from a file (brv_open_file: each brick
+ *    read with pread when the sampler first needs it).
  * Invented data (smooth analytic fields), for measurement only. */
 #include <math.h>
 #include <pthread.h>
+#include <unistd.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -290,10 +293,19 @@ static void decode_bench(const char *label, const vol *f, int is_f16)
 /* 1M trilinear samples, one thread: one call a point (cold: a new sampler; then warm) and the
  * batch call (cold: a new sampler; then warm), REPS_RA rounds, medians of wall and CPU time. */
 enum { REPS_RA = 3 };
-static void random_access(const vol *f, uint32_t cache, const char *pattern, const uint32_t *pick, uint32_t npick)
+static void random_access(const vol *f, uint32_t cache, const char *pattern, const uint32_t *pick, uint32_t npick,
+                          int from_file)
 {
     brv_volume *v;
-    if (brv_open_memory(f->bytes, f->size, NULL, &v) != BRV_OK) exit(1);
+    char path[4096] = "";
+    if (from_file) { /* a temporary file, removed once opened (the open descriptor keeps it) */
+        const char *dir = getenv("TMPDIR");
+        snprintf(path, sizeof path, "%s/bench_brv_XXXXXX", dir && *dir ? dir : "/tmp");
+        int fd = mkstemp(path);
+        if (fd < 0 || write(fd, f->bytes, f->size) != (ssize_t)f->size || close(fd) != 0) exit(1);
+        if (brv_open_file(path, NULL, &v) != BRV_OK) exit(1);
+        unlink(path);
+    } else if (brv_open_memory(f->bytes, f->size, NULL, &v) != BRV_OK) exit(1);
     srand(1);
     enum { M = 1000000 };
     double *pts = malloc(sizeof(double) * 3 * M);
@@ -344,10 +356,10 @@ static void random_access(const vol *f, uint32_t cache, const char *pattern, con
         mc[k] = cpu[k][REPS_RA / 2];
     }
     qsort(create[0], REPS_RA, sizeof(double), cmp_double);
-    printf("  1M %-6s samples of %u channel%s, cache %4u bricks (%6.1f MiB), medians of %d (cpu s / wall s):\n"
+    printf("  1M %-6s samples of %u channel%s, cache %4u bricks (%6.1f MiB), volume %s, medians of %d (cpu s / wall s):\n"
            "     one call a point: cold %.3f / %.3f, warm %.3f / %.3f;  batch: cold %.3f / %.3f, warm %.3f / %.3f"
            "  (checksums %.6g, %.6g)\n     creating the sampler (commits its cache memory): %.3f s cpu\n",
-           pattern, nc, nc > 1 ? "s" : "", cache, mem / 1048576.0, REPS_RA, mc[0], mw[0], mc[1], mw[1], mc[2], mw[2], mc[3], mw[3],
+           pattern, nc, nc > 1 ? "s" : "", cache, mem / 1048576.0, from_file ? "from a file" : "in memory", REPS_RA, mc[0], mw[0], mc[1], mw[1], mc[2], mw[2], mc[3], mw[3],
            sum / (2 * REPS_RA), bsum / (2 * REPS_RA), create[0][REPS_RA / 2]);
     free(batch);
     free(pts);
@@ -361,9 +373,10 @@ int main(int argc, char **argv)
         vol f16 = write_volume(BRV_ENCODING_F16, BRV_ENCODING_F16, 9);
         printf("random access (trilinear, all 4 channels, f16 volume %u^3, 1 thread)\n", N);
         static const uint32_t extinction[1] = {0};
-        random_access(&f16, (N / 16) * (N / 16) * (N / 16), "random", NULL, 0);
-        random_access(&f16, (N / 16) * (N / 16) * (N / 16), "random", extinction, 1);
-        random_access(&f16, 64, "march", NULL, 0);
+        random_access(&f16, (N / 16) * (N / 16) * (N / 16), "random", NULL, 0, 0);
+        random_access(&f16, (N / 16) * (N / 16) * (N / 16), "random", NULL, 0, 1);
+        random_access(&f16, (N / 16) * (N / 16) * (N / 16), "random", extinction, 1, 0);
+        random_access(&f16, 64, "march", NULL, 0, 0);
         free(f16.bytes);
         return 0;
     }
@@ -418,11 +431,12 @@ int main(int argc, char **argv)
     decode_bench("cmp", &vols[2], 0);
     printf("\nrandom access (trilinear, all 4 channels, f16 volume, 1 thread)\n");
     uint32_t all = (N / 16) * (N / 16) * (N / 16);
-    random_access(&vols[1], all, "random", NULL, 0);
+    random_access(&vols[1], all, "random", NULL, 0, 0);
+    random_access(&vols[1], all, "random", NULL, 0, 1);
     static const uint32_t extinction[1] = {0};
-    random_access(&vols[1], all, "random", extinction, 1);
-    random_access(&vols[1], 64, "march", NULL, 0);
-    if (N <= 128) random_access(&vols[1], 512, "random", NULL, 0);
+    random_access(&vols[1], all, "random", extinction, 1, 0);
+    random_access(&vols[1], 64, "march", NULL, 0, 0);
+    if (N <= 128) random_access(&vols[1], 512, "random", NULL, 0, 0);
     for (int e = 0; e < 3; e++) free(vols[e].bytes);
     return 0;
 }
