@@ -459,8 +459,15 @@ double brm_shadowmap_pcf(const shadow_view *v, brm_vec3 p, double r)
     double x0 = X - r, x1 = X + r, y0 = Y - r, y1 = Y + r;
     double res = (double)v->res;
     if (x1 <= 0.0 || y1 <= 0.0 || x0 >= res || y0 >= res) return 1.0;
-    int64_t i0 = (int64_t)floor(fmax(x0, 0.0)), i1 = (int64_t)ceil(fmin(x1, res)) - 1;
-    int64_t j0 = (int64_t)floor(fmax(y0, 0.0)), j1 = (int64_t)ceil(fmin(y1, res)) - 1;
+    /* floor(max(x0, 0)) and ceil(min(x1, res)) − 1 without library calls: here x0 < res and
+     * x1 > 0, so both arguments lie in [0, res], where truncation is floor and one more where
+     * it falls short is ceil (a NaN coordinate takes the same ends as fmax and fmin give). */
+    const double cx0 = x0 > 0.0 ? x0 : 0.0, cy0 = y0 > 0.0 ? y0 : 0.0;
+    const double cx1 = x1 < res ? x1 : res, cy1 = y1 < res ? y1 : res;
+    int64_t i0 = (int64_t)cx0, j0 = (int64_t)cy0;
+    int64_t i1 = (int64_t)cx1, j1 = (int64_t)cy1;
+    i1 += (double)i1 < cx1, j1 += (double)j1 < cy1;
+    i1 -= 1, j1 -= 1;
     /* The depth ranges of the tiles under the footprint first (a small table that stays in
      * cache, where the map itself mostly does not): no texel of theirs hides p, or every one
      * does, decides the lookup without reading the map — the same answer the comparisons
@@ -471,8 +478,10 @@ double brm_shadowmap_pcf(const shadow_view *v, brm_vec3 p, double r)
         float lo = INFINITY, hi = -INFINITY;
         for (uint32_t tj = tj0; tj <= tj1; tj++)
             for (uint32_t ti = ti0; ti <= ti1; ti++) {
-                lo = fminf(lo, v->tile_min[tj * v->tiles + ti]);
-                hi = fmaxf(hi, v->tile_max[tj * v->tiles + ti]);
+                /* fminf and fmaxf (lo and hi are never NaN; a NaN entry leaves them) */
+                const float a = v->tile_min[tj * v->tiles + ti], b = v->tile_max[tj * v->tiles + ti];
+                if (a < lo) lo = a;
+                if (b > hi) hi = b;
             }
         if (z <= (double)lo) return 1.0;
         if (z > (double)hi && x0 >= 0.0 && y0 >= 0.0 && x1 <= res && y1 <= res) return 0.0;
@@ -566,8 +575,10 @@ int brm_shadowmap_classify(const shadow_view *v, brm_aabb b, double r)
     float lo = INFINITY, hi = -INFINITY;
     for (uint32_t j = j0; j <= j1; j++)
         for (uint32_t i = i0; i <= i1; i++) {
-            lo = fminf(lo, v->tile_min[j * v->tiles + i]);
-            hi = fmaxf(hi, v->tile_max[j * v->tiles + i]);
+            /* fminf and fmaxf, as in brm_shadowmap_pcf */
+            const float a = v->tile_min[j * v->tiles + i], b = v->tile_max[j * v->tiles + i];
+            if (a < lo) lo = a;
+            if (b > hi) hi = b;
         }
     if ((double)lo >= z1) return 1;             /* no texel hides even the farthest point */
     if (inside && (double)hi < z0) return 0;    /* every texel hides even the nearest point */
