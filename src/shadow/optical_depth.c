@@ -507,9 +507,12 @@ static void fill_column(const brm_scene *s, const media_info *mi, const shadow_v
     double cut[MAX_CUTS];
     double tend = v->og_lo[2] + v->og_step[2] * (double)(nk - 1);
     uint32_t nc = line_cuts(s, mi, o, d, t, tend, true, cut), ci = 0;
-    for (uint32_t k = 0; k < nk; k++)
-        if (k < first || k > last) col[2 * k] = col[2 * k + 1] = 0.0f;
-    if (first > last) return;
+    if (first > last) {
+        memset(col, 0, 2 * (size_t)nk * sizeof *col);
+        return;
+    }
+    memset(col, 0, 2 * (size_t)first * sizeof *col);
+    memset(col + 2 * (size_t)(last + 1), 0, 2 * (size_t)(nk - 1 - last) * sizeof *col);
     float sg[2 * BRM_OD_MAX_DEPTH_NODES];
     brm_media_extinction_line(s, mi->noise_grid, o, d, t, 0.5 * v->og_step[2], 2 * (last - first) + 1, sg);
     const float *sk = sg - 2 * (size_t)first; /* sk[2k] at node k, sk[2k − 1] before it */
@@ -554,7 +557,7 @@ static void fill_column(const brm_scene *s, const media_info *mi, const shadow_v
         bool clean = !(ci < nc && cut[ci] < t1) && t1 - t <= h;
         double s1 = sk[2 * k];
         if (clean && !mi->only_uniform) {
-            g += (t1 - t) / 6.0 * (sig + 4.0 * (double)sk[2 * k - 1] + s1);
+            g += (t1 - t) * (1.0 / 6.0) * (sig + 4.0 * (double)sk[2 * k - 1] + s1);
         } else {
             double a = t;
             bool more = true;
