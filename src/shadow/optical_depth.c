@@ -273,8 +273,8 @@ size_t brm_od_plan(const brm_scene *s, const brm_shadow_opts *o, const media_inf
         }
         v->cone_tan = HUGE_VAL;
         size_t bytes = ((size_t)n[0] * n[1] * n[2] * 2 + (size_t)3 * n[0] * n[1]) * sizeof(float) +
-                       (size_t)n[0] * n[1] * 2 * sizeof(uint16_t) + (size_t)(n[0] - 1) * (n[1] - 1) * (n[2] - 1) +
-                       block_bytes(v);
+                       (size_t)n[0] * n[1] * (2 * sizeof(uint16_t) + sizeof(int64_t)) +
+                       (size_t)(n[0] - 1) * (n[1] - 1) * (n[2] - 1) + block_bytes(v);
         return bytes + corr_bytes(ls);
     }
     brm_vec3 pos = l->position;
@@ -294,7 +294,7 @@ size_t brm_od_plan(const brm_scene *s, const brm_shadow_opts *o, const media_inf
         axis_set(v, 1, -tan_half, tan_half, nl, true);
         axis_set(v, 2, 0.0, rmax, nr, false);
         v->cone_tan = !ls->cube && l->type == BRM_LIGHT_SPOT ? tan_half : HUGE_VAL;
-        bytes += (size_t)nl * nl * nr * 2 * sizeof(float) + (size_t)nl * nl * 2 * sizeof(uint16_t) +
+        bytes += (size_t)nl * nl * nr * 2 * sizeof(float) + (size_t)nl * nl * (2 * sizeof(uint16_t) + sizeof(int64_t)) +
                  (size_t)(nl - 1) * (nl - 1) * (nr - 1) + block_bytes(v);
     }
     return bytes + corr_bytes(ls);
@@ -450,6 +450,21 @@ void brm_od_plan_reach(const brm_scene *s, shadow_view *v)
     free(reach);
 }
 
+int brm_od_alloc(shadow_view *v)
+{
+    const size_t cols = (size_t)v->og_n[0] * v->og_n[1];
+    v->od_col = malloc(cols * sizeof *v->od_col);
+    if (!v->od_col) return 0;
+    int64_t at = 0;
+    for (size_t c = 0; c < cols; c++) {
+        v->od_col[c] = at - (int64_t)v->od_first[c];
+        at += (int64_t)v->od_last[c] - (int64_t)v->od_first[c] + 1;
+    }
+    v->od_nodes = (size_t)at;
+    v->od = malloc((v->od_nodes ? v->od_nodes : 1) * 2 * sizeof *v->od);
+    return v->od != NULL;
+}
+
 /* The depth intervals [*lo, *hi) of lateral cell (ci, cj) whose nodes are filled in all four
  * of its columns (empty when *lo ≥ *hi). */
 static void cell_range(const shadow_view *v, uint32_t ci, uint32_t cj, uint32_t *lo, uint32_t *hi)
@@ -476,7 +491,7 @@ static void flag_unfilled(uint8_t *bad, uint32_t nk, uint32_t lo, uint32_t hi)
  * and every P_a by one constant of opposite sign: P_a + G, all lookups and checks read, is
  * the same, and so is its interpolation, which is linear in the columns' values.) */
 static void fill_column(const brm_scene *s, const media_info *mi, const shadow_view *v, double x, double y,
-                        const bool need[3], uint32_t first, uint32_t last, float *col, float pre[3])
+                        const bool need[3], uint32_t first, uint32_t last, float *col, float pre[3], bool packed)
 {
     uint32_t nk = v->og_n[2];
     double h = fmax(mi->feature / 2.0, 1.0001 * v->og_step[2]);
@@ -507,18 +522,24 @@ static void fill_column(const brm_scene *s, const media_info *mi, const shadow_v
     double cut[MAX_CUTS];
     double tend = v->og_lo[2] + v->og_step[2] * (double)(nk - 1);
     uint32_t nc = line_cuts(s, mi, o, d, t, tend, true, cut), ci = 0;
-    if (first > last) {
-        memset(col, 0, 2 * (size_t)nk * sizeof *col);
-        return;
+    size_t c0 = 0; /* node k's G at col[2k − c0] */
+    if (packed) { /* col holds nodes first..last only */
+        if (first > last) return;
+        c0 = 2 * (size_t)first;
+    } else {
+        if (first > last) {
+            memset(col, 0, 2 * (size_t)nk * sizeof *col);
+            return;
+        }
+        memset(col, 0, 2 * (size_t)first * sizeof *col);
+        memset(col + 2 * (size_t)(last + 1), 0, 2 * (size_t)(nk - 1 - last) * sizeof *col);
     }
-    memset(col, 0, 2 * (size_t)first * sizeof *col);
-    memset(col + 2 * (size_t)(last + 1), 0, 2 * (size_t)(nk - 1 - last) * sizeof *col);
     float sg[2 * BRM_OD_MAX_DEPTH_NODES];
     brm_media_extinction_line(s, mi->noise_grid, o, d, t, 0.5 * v->og_step[2], 2 * (last - first) + 1, sg);
     const float *sk = sg - 2 * (size_t)first; /* sk[2k] at node k, sk[2k − 1] before it */
     double g = 0.0, sig = sk[2 * first];
-    col[2 * first] = 0.0f;
-    col[2 * first + 1] = (float)sig;
+    col[2 * (size_t)first - c0] = 0.0f;
+    col[2 * (size_t)first + 1 - c0] = (float)sig;
     const double hs = mi->only_uniform ? HUGE_VAL : h;
     /* The segments with cuts inside: Simpson on the pieces between the column's cuts (the
      * cuts continued_segment would find over [t, t1], not searched again). A piece fits one
@@ -578,14 +599,13 @@ static void fill_column(const brm_scene *s, const media_info *mi, const shadow_v
         }
         t = t1;
         sig = s1;
-        col[2 * k] = (float)g;
-        col[2 * k + 1] = (float)sig;
+        col[2 * (size_t)k - c0] = (float)g;
+        col[2 * (size_t)k + 1 - c0] = (float)sig;
     }
 }
 
 void brm_od_fill_row(const brm_scene *s, const media_info *mi, shadow_view *v, uint32_t j)
 {
-    uint32_t nk = v->og_n[2];
     double y = v->og_lo[1] + v->og_step[1] * (double)j;
     size_t plane = (size_t)v->og_n[0] * v->og_n[1];
     for (uint32_t i = 0; i < v->og_n[0]; i++) {
@@ -601,7 +621,8 @@ void brm_od_fill_row(const brm_scene *s, const media_info *mi, shadow_view *v, u
                     if (e >= 0) need[e] = true;
                 }
         float pre[3];
-        fill_column(s, mi, v, x, y, need, v->od_first[cell], v->od_last[cell], v->od + 2 * (size_t)nk * cell, pre);
+        fill_column(s, mi, v, x, y, need, v->od_first[cell], v->od_last[cell],
+                    v->od + 2 * (size_t)(v->od_col[cell] + v->od_first[cell]), pre, true);
         if (v->kind == BRM_VIEW_ORTHO)
             for (int a = 0; a < 3; a++) v->prefix[a * plane + cell] = pre[a];
     }
@@ -640,7 +661,7 @@ void brm_od_check_row(const brm_scene *s, const media_info *mi, shadow_view *v, 
             flag_unfilled(bad, nk, 0, 0);
             continue;
         }
-        fill_column(s, mi, v, x, y, need, lo, valid, scratch, pre);
+        fill_column(s, mi, v, x, y, need, lo, valid, scratch, pre, false);
         size_t c00 = (size_t)i + (size_t)n0 * j, c[4] = {c00, c00 + 1, c00 + n0, c00 + n0 + 1};
         double p_int = 0.0, p_ex = 0.0;
         if (e >= 0) {
@@ -650,7 +671,7 @@ void brm_od_check_row(const brm_scene *s, const media_info *mi, shadow_view *v, 
         for (uint32_t k = 0; k + 1 < nk; k++) bad[k] = 0;
         for (uint32_t k = lo; k <= valid; k++) {
             double g_int = 0.0;
-            for (int q = 0; q < 4; q++) g_int += 0.25 * v->od[2 * ((size_t)nk * c[q] + k)];
+            for (int q = 0; q < 4; q++) g_int += 0.25 * v->od[2 * (size_t)(v->od_col[c[q]] + k)];
             double err = fabs((g_int + p_int) - ((double)scratch[2 * k] + p_ex));
             if (err > BRM_OD_CHECK_TAU) {
                 if (k > 0) bad[k - 1] = 1;
@@ -699,7 +720,7 @@ void brm_od_fill_block(const brm_scene *s, const media_info *mi, shadow_view *v,
             double x = v->og_lo[0] + v->og_step[0] * ((double)ci + (double)bi / R);
             double y = v->og_lo[1] + v->og_step[1] * ((double)cj + (double)bj / R);
             float pre[3];
-            fill_column(s, mi, v, x, y, need, lo, valid, od + 2 * (size_t)nk * (bi + R1 * bj), pre);
+            fill_column(s, mi, v, x, y, need, lo, valid, od + 2 * (size_t)nk * (bi + R1 * bj), pre, false);
             if (v->kind == BRM_VIEW_ORTHO)
                 for (int a = 0; a < 3; a++) v->blk_pre[((size_t)b * 3 + a) * R1 * R1 + bi + R1 * bj] = pre[a];
         }
@@ -715,7 +736,7 @@ void brm_od_fill_block(const brm_scene *s, const media_info *mi, shadow_view *v,
                 if (e >= 0) nd[e] = true;
             }
             float pre[3];
-            fill_column(s, mi, v, x, y, nd, lo, valid, scratch, pre);
+            fill_column(s, mi, v, x, y, nd, lo, valid, scratch, pre, false);
             size_t q0 = si + R1 * sj, q[4] = {q0, q0 + 1, q0 + R1, q0 + R1 + 1};
             double p_int = 0.0, p_ex = 0.0;
             if (e >= 0) {
@@ -829,7 +850,7 @@ void brm_od_fill_correction(const brm_scene *s, const media_info *mi, shadow_vie
             return;
         }
         float pre[3];
-        fill_column(s, mi, v, x, y, need, lo, valid, scratch, pre);
+        fill_column(s, mi, v, x, y, need, lo, valid, scratch, pre, false);
         double wb[4] = {(1.0 - px) * (1.0 - py), px * (1.0 - py), (1.0 - px) * py, px * py}, wc[BRM_OD_CORR_PTS];
         corr_weights(px, py, wc);
         double p_int = 0.0, p_ex = 0.0;
@@ -839,7 +860,7 @@ void brm_od_fill_correction(const brm_scene *s, const media_info *mi, shadow_vie
         }
         for (uint32_t k = lo; k <= valid; k++) {
             double g_int = 0.0;
-            for (int m = 0; m < 4; m++) g_int += wb[m] * v->od[2 * ((size_t)nk * cn[m] + k)];
+            for (int m = 0; m < 4; m++) g_int += wb[m] * v->od[2 * (size_t)(v->od_col[cn[m]] + k)];
             double miss = ((double)scratch[2 * k] + p_ex) - (g_int + p_int);
             if (q < NP) {
                 dg[(size_t)k * NP + q] = (float)miss;
@@ -910,10 +931,11 @@ static int grid_eval(const shadow_view *v, double x, double y, double z, int fac
         const float wx = (float)w[0], wy = (float)w[1];
         const float wq[4] = {(1.0f - wx) * (1.0f - wy), wx * (1.0f - wy), (1.0f - wx) * wy, wx * wy};
         const size_t c00 = c[0] + (size_t)n0 * c[1];
-        const float *n = v->od + 2 * ((size_t)nk * c00 + c[2]);
-        const size_t s1 = 2 * (size_t)nk, s2 = 2 * (size_t)nk * n0;
+        const int64_t *oc = v->od_col + c00;
+        const float *n00 = v->od + 2 * (size_t)(oc[0] + c[2]), *n10 = v->od + 2 * (size_t)(oc[1] + c[2]);
+        const float *n01 = v->od + 2 * (size_t)(oc[n0] + c[2]), *n11 = v->od + 2 * (size_t)(oc[n0 + 1] + c[2]);
         float a[4];
-        for (int q = 0; q < 4; q++) a[q] = wq[0] * n[q] + wq[1] * n[s1 + q] + wq[2] * n[s2 + q] + wq[3] * n[s2 + s1 + q];
+        for (int q = 0; q < 4; q++) a[q] = wq[0] * n00[q] + wq[1] * n10[q] + wq[2] * n01[q] + wq[3] * n11[q];
         *g_out = (double)(a[0] * hb[0] + a[1] * hb[1] + a[2] * hb[2] + a[3] * hb[3]);
         if (face >= 0) {
             const float *pr = v->prefix + (size_t)face * n0 * v->og_n[1] + c00;
@@ -939,7 +961,7 @@ static int grid_eval(const shadow_view *v, double x, double y, double z, int fac
         }
         for (int q = 0; q < 4; q++) {
             size_t cc = (c[0] + (uint32_t)(q & 1)) + (size_t)n0 * (c[1] + (uint32_t)(q >> 1));
-            col[q] = v->od + 2 * (size_t)nk * cc;
+            col[q] = v->od + 2 * (size_t)(v->od_col[cc] + c[2]); /* read only when not flagged */
             if (face >= 0) pre[q] = v->prefix + (size_t)face * n0 * v->og_n[1] + cc;
         }
     } else {
@@ -950,7 +972,7 @@ static int grid_eval(const shadow_view *v, double x, double y, double z, int fac
         bad = v->blk_bad + ((size_t)b * R * R + si + R * sj) * (nk - 1);
         for (int q = 0; q < 4; q++) {
             size_t cc = (size_t)b * R1 * R1 + (si + (uint32_t)(q & 1)) + R1 * (sj + (uint32_t)(q >> 1));
-            col[q] = v->blk_od + 2 * (size_t)nk * cc;
+            col[q] = v->blk_od + 2 * ((size_t)nk * cc + c[2]);
             if (face >= 0) pre[q] = v->blk_pre + ((size_t)b * 3 + (size_t)face) * R1 * R1 + (cc - (size_t)b * R1 * R1);
         }
     }
@@ -959,7 +981,7 @@ static int grid_eval(const shadow_view *v, double x, double y, double z, int fac
     double h00 = 2 * t3 - 3 * t2 + 1, h10 = (t3 - 2 * t2 + t) * hz, h01 = -2 * t3 + 3 * t2, h11 = (t3 - t2) * hz;
     double g = 0.0, pp = 0.0;
     for (int q = 0; q < 4; q++) {
-        const float *n = col[q] + 2 * (size_t)c[2];
+        const float *n = col[q]; /* nodes c[2] and c[2] + 1 */
         double wq = (q & 1 ? wx : 1.0 - wx) * (q >> 1 ? wy : 1.0 - wy);
         g += wq * (h00 * n[0] + h10 * n[1] + h01 * n[2] + h11 * n[3]);
         if (face >= 0) pp += wq * *pre[q];

@@ -276,7 +276,6 @@ brm_status brm_shadows_build(const brm_scene *s, const brm_shadow_opts *o, brm_s
                 n_raster += (v->res + RASTER_BAND - 1) / RASTER_BAND;
             }
             if (ls->has_od) {
-                v->od = malloc((size_t)v->og_n[0] * v->og_n[1] * v->og_n[2] * 2 * sizeof(float));
                 if (v->kind == BRM_VIEW_ORTHO) v->prefix = malloc((size_t)3 * v->og_n[0] * v->og_n[1] * sizeof(float));
                 size_t lat = (size_t)(v->og_n[0] - 1) * (v->og_n[1] - 1), r1 = BRM_OD_REFINE + 1;
                 v->od_bad = calloc(lat * (v->og_n[2] - 1), 1);
@@ -293,7 +292,7 @@ brm_status brm_shadows_build(const brm_scene *s, const brm_shadow_opts *o, brm_s
                 }
                 n_od += v->og_n[1];
             }
-            if ((ls->has_map && !v->depth) || (ls->has_od && (!v->od || !v->od_bad || (v->kind == BRM_VIEW_ORTHO && !v->prefix)))) {
+            if ((ls->has_map && !v->depth) || (ls->has_od && (!v->od_bad || (v->kind == BRM_VIEW_ORTHO && !v->prefix)))) {
                 st = brm_diag_error(d, BRM_E_NOMEM, "shadows: out of memory for %s's maps (%zu bytes planned)",
                                     s->lights[l].json_path, ss->bytes);
                 goto fail;
@@ -322,6 +321,17 @@ brm_status brm_shadows_build(const brm_scene *s, const brm_shadow_opts *o, brm_s
                                            : brm_diag_error(d, BRM_E_NOMEM, "shadows: out of memory");
         goto fail;
     }
+    /* The node arrays, packed to each column's reach (the plan counted whole columns). */
+    for (uint32_t l = 0; l < s->light_count; l++)
+        for (uint32_t k = 0; k < ss->lights[l].view_count && ss->lights[l].has_od; k++) {
+            shadow_view *v = &ss->lights[l].views[k];
+            if (!brm_od_alloc(v)) {
+                st = brm_diag_error(d, BRM_E_NOMEM, "shadows: out of memory for %s's optical-depth grid",
+                                    s->lights[l].json_path);
+                goto fail;
+            }
+            ss->bytes -= ((size_t)v->og_n[0] * v->og_n[1] * v->og_n[2] - v->od_nodes) * 2 * sizeof(float);
+        }
     PHASE_END(1);
     bool ran_all = brm_parallel_for(n_raster, threads, raster_item, &ctx, &brm_interrupted) == n_raster;
     PHASE_END(2);
@@ -441,6 +451,7 @@ void brm_shadows_free(brm_shadow_set *ss)
             free(ss->lights[l].views[k].tile_min);
             free(ss->lights[l].views[k].tile_max);
             free(ss->lights[l].views[k].od);
+            free(ss->lights[l].views[k].od_col);
             free(ss->lights[l].views[k].prefix);
             free(ss->lights[l].views[k].od_bad);
             free(ss->lights[l].views[k].od_last);

@@ -38,10 +38,11 @@ typedef struct brm_shadow_set brm_shadow_set;
 
 brm_status brm_shadows_build(const brm_scene *s, const brm_shadow_opts *o, brm_shadow_set **out, brm_diag *d);
 void brm_shadows_free(brm_shadow_set *ss);
-/* Bytes brm_shadows_build will allocate (for the memory estimate): exact for the maps and
- * grids; refinement blocks for optical-depth cells that interpolate poorly are counted up to
- * their cap (one grid cell in 8), of which a build typically uses a few per cent, so this is
- * an upper bound. Default map resolution: a texel of opts.cell_size /
+/* Bytes brm_shadows_build will allocate (for the memory estimate): exact for the maps; the
+ * grids' columns are counted whole, where the build stores each only as far as the fog
+ * bounds reach along it (on the demo's frustum about half); refinement blocks for
+ * optical-depth cells that interpolate poorly are counted up to their cap (one grid cell in
+ * 8), of which a build typically uses a few per cent, so this is an upper bound. Default map resolution: a texel of opts.cell_size /
  * BRM_SHADOW_TEXELS_PER_CELL at the far side of the target, capped at 4096 texels per side
  * (BRM_SHADOW_AUTO_MAX_CUBE = 1024 per cube face); a light's
  * shadow.resolution overrides it (16..16384). */

@@ -79,7 +79,12 @@ typedef struct shadow_view {
     uint32_t og_n[3];           /* nodes per axis, 0 = no grid */
     double og_lo[3], og_step[3];
     double og_inv[3];           /* 1 / og_step */
-    float *od;                  /* 2 floats per node (G, sigma), k fastest, then i, then j */
+    float *od;                  /* 2 floats per node (G, sigma), k fastest, then i, then j;
+                                   packed: a column keeps only its filled nodes od_first..
+                                   od_last (below), node k of column c at od_col[c] + k */
+    int64_t *od_col;            /* per column: its node 0's index in od (may be negative: only
+                                   k in [od_first, od_last] is stored) */
+    size_t od_nodes;            /* nodes stored in od */
     /* ortho only: P_a(i, j) per axis a whose fog-bounds face the light can enter through */
     float *prefix;              /* 3 · og_n[0] · og_n[1], axis-major; NULL for persp */
     bool prefix_axis[3];
@@ -91,9 +96,9 @@ typedef struct shadow_view {
     uint8_t *od_bad;            /* (og_n[0] − 1) · (og_n[1] − 1) · (og_n[2] − 1) */
     /* per column: the last depth node filled (brm_od_plan_reach). Lookups come only from
      * points inside the fog bounds, so a column is filled up to where the paths of the cells
-     * around it leave the bounds, one node of margin beyond; the nodes after it are 0 and
-     * the intervals they bound are flagged BRM_OD_UNFILLED (a point found there anyway
-     * marches, exactly as in a flagged cell) */
+     * around it leave the bounds, one node of margin beyond; the nodes after it are not
+     * stored (od_col) and the intervals they bound are flagged BRM_OD_UNFILLED (a point
+     * found there anyway marches, exactly as in a flagged cell) */
     uint16_t *od_last;          /* og_n[0] · og_n[1] */
     uint16_t *od_first;         /* per column: the first depth node filled (ortho; 0 persp) */
     double cone_tan;            /* a one-view spot: tan of its outer half-angle (cells wholly
@@ -267,6 +272,9 @@ size_t brm_od_plan(const brm_scene *s, const brm_shadow_opts *o, const media_inf
 /* Sets v->od_first and v->od_last (allocated by the caller) from where the paths of each
  * lateral cell enter (ortho) and leave the fog bounds. */
 void brm_od_plan_reach(const brm_scene *s, shadow_view *v);
+/* After brm_od_plan_reach: sets od_col and od_nodes (the packed layout) and allocates od.
+ * Returns 0 when out of memory. */
+int brm_od_alloc(shadow_view *v);
 /* Fills row j of view v's grid. */
 void brm_od_fill_row(const brm_scene *s, const media_info *mi, shadow_view *v, uint32_t j);
 /* Flags the cells of row j (between node rows j and j + 1) whose interpolation is off;

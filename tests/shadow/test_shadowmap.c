@@ -279,8 +279,10 @@ static void build_should_not_depend_on_thread_count(void **state)
             const shadow_view *va = &la->views[k], *vb = &lb->views[k];
             assert_int_equal(va->res, vb->res);
             assert_memory_equal(va->depth, vb->depth, (size_t)va->res * va->res * sizeof(float));
-            size_t n = (size_t)va->og_n[0] * va->og_n[1] * va->og_n[2] * 2;
+            size_t n = va->od_nodes * 2;
             assert_true(n > 0);
+            assert_int_equal(va->od_nodes, vb->od_nodes);
+            assert_memory_equal(va->od_col, vb->od_col, (size_t)va->og_n[0] * va->og_n[1] * sizeof(int64_t));
             assert_memory_equal(va->od, vb->od, n * sizeof(float));
             assert_int_equal(va->blk_count, vb->blk_count);
             size_t nb = (size_t)va->blk_count * (BRM_OD_REFINE + 1) * (BRM_OD_REFINE + 1) * va->og_n[2] * 2;
@@ -298,7 +300,8 @@ static void build_should_not_depend_on_thread_count(void **state)
         }
     }
     /* The memory estimate bounds what the build allocated: exact but for the refinement
-     * blocks and cell corrections it reserves in full and the build allocates as needed. */
+     * blocks and cell corrections it reserves in full and the build allocates as needed,
+     * and for the grid columns it counts whole and the build packs to their reach. */
     brm_shadow_opts o = {target, 0.1, 1, false, NULL, false, 1.0};
     size_t est = brm_shadows_memory(s, &o), got = brm_shadows_bytes(a);
     size_t reserve = 0;
@@ -309,6 +312,10 @@ static void build_should_not_depend_on_thread_count(void **state)
             reserve += (size_t)(v->blk_cap - v->blk_count) *
                        (r1 * r1 * v->og_n[2] * 2 * sizeof(float) + BRM_OD_REFINE * BRM_OD_REFINE * (v->og_n[2] - 1) +
                         (v->kind == BRM_VIEW_ORTHO ? 3 * r1 * r1 * sizeof(float) : 0));
+            /* the estimate counts whole columns; the build stores each as far as it reaches */
+            size_t whole = (size_t)v->og_n[0] * v->og_n[1] * v->og_n[2];
+            assert_true(v->od_nodes <= whole);
+            reserve += (whole - v->od_nodes) * 2 * sizeof(float);
         }
     /* and the cell corrections: the estimate counts corr_pool of them per light, the build
      * may take more out of what the unused blocks leave (5·og_n[2] floats, og_n[2] − 1
