@@ -75,6 +75,13 @@ static size_t frustum_batch_bytes(void)
     return (size_t)FRUSTUM_BATCH * (sizeof(brm_kernel_view_sample) + sizeof(brm_media_point) + sizeof(double));
 }
 
+/* Samples a world worker evaluates light by light (64 cells at 4 samples), and their scratch. */
+enum { WORLD_BATCH = 256 };
+static size_t world_batch_bytes(void)
+{
+    return (size_t)WORLD_BATCH * (sizeof(brm_kernel_iso_sample) + sizeof(brm_media_point));
+}
+
 /* Bricks in flight for world and probe targets (the ring of brm_run_plan). */
 static uint32_t batch_bricks(int threads) { return (uint32_t)threads * 4; }
 
@@ -109,6 +116,7 @@ uint64_t brm_bake_estimate_memory(const brm_scene *s, uint32_t t, const brm_bake
         units = batch_units(effective_threads(o), g.bricks[2]);
         m += (uint64_t)effective_threads(o) * (frustum_column_bytes(&g) + frustum_batch_bytes());
     }
+    if (g.kind == BRM_GRID_WORLD) m += (uint64_t)effective_threads(o) * world_batch_bytes();
     m += units * unit_floats * sizeof(float);
     m += (uint64_t)brm_grid_brick_count(&g) * 64;   /* the writer's brick table */
     /* zstd's compression context at the levels used, encode buffers, the scene, the process:
@@ -480,6 +488,8 @@ typedef struct bake_ctx {
     brm_kernel_view_sample *batch;  /* per worker: FRUSTUM_BATCH samples for the frustum tiles */
     brm_media_point *batch_mp;      /* per worker: their media points */
     double *batch_w;                /* per worker: their volume weights */
+    brm_kernel_iso_sample *iso;     /* per worker: WORLD_BATCH samples for the world cells */
+    brm_media_point *iso_mp;        /* per worker: their media points */
 } bake_ctx;
 
 /* Lights that can reach box b, into this worker's list: culled by range and cone, and by the
@@ -586,6 +596,77 @@ static void world_cell(bake_ctx *j, uint32_t i, uint32_t jj, uint32_t k, const u
     }
 }
 
+/* The cells of box [a, e) of a world brick, all lit by the same light list: their samples go
+ * through the kernel a batch at a time, light by light (brm_kernel_eval_iso_batch), and each
+ * cell's averages are summed in world_cell's order, so the same values. */
+static void world_cells(bake_ctx *j, const uint32_t a[3], const uint32_t e[3], const uint32_t lo[3], uint32_t nx,
+                        uint32_t ny, size_t nc, const uint32_t *lights, uint32_t nl, int worker, float *out,
+                        uint64_t *evals)
+{
+    const brm_grid *g = j->grid;
+    const uint32_t S = sample_count(j->target);
+    if (S > WORLD_BATCH) {
+        for (uint32_t k = a[2]; k < e[2]; k++)
+            for (uint32_t jj = a[1]; jj < e[1]; jj++)
+                for (uint32_t i = a[0]; i < e[0]; i++) world_cell(j, i, jj, k, lo, nx, ny, nc, lights, nl, worker, out, evals);
+        return;
+    }
+    brm_kernel_iso_sample *bs = j->iso + (size_t)worker * WORLD_BATCH;
+    brm_media_point *mp = j->iso_mp + (size_t)worker * WORLD_BATCH;
+    double (*u)[3] = j->scratch + (size_t)worker * BRM_MAX_CELL_SAMPLES;
+    enum { MAX_CELLS = WORLD_BATCH };
+    size_t cell_li[MAX_CELLS];
+    double cell_occ[MAX_CELLS];
+    uint32_t cell_n[MAX_CELLS]; /* samples the cell put in the batch: S, or 0 when solid */
+    uint32_t cells = 0, n = 0;
+    const uint32_t total = (e[0] - a[0]) * (e[1] - a[1]) * (e[2] - a[2]);
+    uint32_t seen = 0;
+    for (uint32_t k = a[2]; k < e[2]; k++)
+        for (uint32_t jj = a[1]; jj < e[1]; jj++)
+            for (uint32_t i = a[0]; i < e[0]; i++) {
+                seen++;
+                size_t gi = brm_grid_index(g, i, jj, k);
+                double occ = j->occ->fraction[gi];
+                cell_li[cells] = (size_t)(i - lo[0]) + nx * ((size_t)(jj - lo[1]) + ny * (size_t)(k - lo[2]));
+                cell_occ[cells] = occ;
+                cell_n[cells] = 0;
+                if (1.0 - occ > 0.0) {
+                    brm_cell_samples(j->seed ^ (uint64_t)gi * 0x9e3779b97f4a7c15ull, S, u);
+                    for (uint32_t si = 0; si < S; si++) {
+                        bs[n].p = brm_grid_point(g, i + u[si][0], jj + u[si][1], k + u[si][2]);
+                        bs[n].sample_index = (uint32_t)(gi * S + si);
+                        n++;
+                    }
+                    cell_n[cells] = S;
+                }
+                cells++;
+                if (cells < MAX_CELLS && n + S <= WORLD_BATCH && seen < total) continue;
+                brm_kernel_eval_iso_batch(&j->kernel, bs, n, lights, nl, mp);
+                const brm_kernel_iso_sample *q = bs;
+                for (uint32_t c = 0; c < cells; c++) {
+                    double ext = 0.0, ins[3] = {0, 0, 0}, dir[3][4] = {{0}};
+                    for (uint32_t si = 0; si < cell_n[c]; si++, q++) {
+                        *evals += q->light_evals;
+                        ext += q->sigma_t;
+                        for (int ch = 0; ch < 3; ch++) {
+                            ins[ch] += q->inscatter[ch];
+                            for (int m = 0; m < 4; m++) dir[ch][m] += q->dir[ch][m];
+                        }
+                    }
+                    /* As world_cell: averages over the free part (solid parts carry no fog). */
+                    const size_t li = cell_li[c];
+                    double w = (1.0 - cell_occ[c]) / (double)S;
+                    out[W_EXT * nc + li] = (float)(ext * w);
+                    out[W_OCC * nc + li] = (float)cell_occ[c];
+                    for (int ch = 0; ch < 3; ch++) {
+                        out[(W_INS + ch) * nc + li] = (float)(ins[ch] * w);
+                        for (int m = 0; m < 4; m++) out[(W_DIR + 4 * ch + m) * nc + li] = (float)(dir[ch][m] * w);
+                    }
+                }
+                cells = n = 0;
+            }
+}
+
 static void world_unit(void *ctx, uint32_t b, int worker, float *out)
 {
     bake_ctx *j = ctx;
@@ -620,10 +701,7 @@ static void world_unit(void *ctx, uint32_t b, int worker, float *out)
                     n = refine_lights(j, ob, lights, nl, worker, &sub);
                     ls = sub;
                 }
-                for (uint32_t k = a[2]; k < e[2]; k++)
-                    for (uint32_t jj = a[1]; jj < e[1]; jj++)
-                        for (uint32_t i = a[0]; i < e[0]; i++)
-                            world_cell(j, i, jj, k, lo, nx, ny, nc, ls, n, worker, out, &evals);
+                world_cells(j, a, e, lo, nx, ny, nc, ls, n, worker, out, &evals);
             }
     j->light_samples[worker] += evals;
 }
@@ -982,8 +1060,13 @@ static brm_status bake_grid(const brm_scene *s, uint32_t t, const brm_bake_opts 
         c.batch_mp = malloc((size_t)threads * FRUSTUM_BATCH * sizeof *c.batch_mp);
         c.batch_w = malloc((size_t)threads * FRUSTUM_BATCH * sizeof *c.batch_w);
     }
+    if (tg->grid == BRM_GRID_WORLD) {
+        c.iso = malloc((size_t)threads * WORLD_BATCH * sizeof *c.iso);
+        c.iso_mp = malloc((size_t)threads * WORLD_BATCH * sizeof *c.iso_mp);
+    }
     if (!c.light_lists || !c.sub_lists || !c.light_samples || !c.scratch ||
-        (tg->grid == BRM_GRID_FRUSTUM && (!c.column || !c.batch || !c.batch_mp || !c.batch_w))) {
+        (tg->grid == BRM_GRID_FRUSTUM && (!c.column || !c.batch || !c.batch_mp || !c.batch_w)) ||
+        (tg->grid == BRM_GRID_WORLD && (!c.iso || !c.iso_mp))) {
         st = brm_diag_error(d, BRM_E_NOMEM, "%s: out of memory", tg->json_path);
         goto done;
     }
@@ -1015,6 +1098,8 @@ done:
     free(c.batch);
     free(c.batch_mp);
     free(c.batch_w);
+    free(c.iso);
+    free(c.iso_mp);
     brm_shadows_free(ss);
     brm_bvh_free(bvh);
     brm_occupancy_free(&occ);

@@ -105,6 +105,7 @@ typedef struct batch_soa {
     uint32_t idx[BATCH_CHUNK];          /* their places in the caller's array */
     double px[BATCH_CHUNK], py[BATCH_CHUNK], pz[BATCH_CHUNK];
     double vx[BATCH_CHUNK], vy[BATCH_CHUNK], vz[BATCH_CHUNK];
+    double ux[BATCH_CHUNK], uy[BATCH_CHUNK], uz[BATCH_CHUNK]; /* out of the falloff stage: toward the light */
     uint32_t media_mask;                /* media present at some live sample */
     bool dense;                         /* every live sample lists its media in rising index
                                            order: the dense phase sum below adds them in the
@@ -120,7 +121,7 @@ typedef struct batch_soa {
 /* Falloff of a point or spot light at every live sample (brm_light_illuminance_local without
  * branches: the same terms, a zero where the call returns early) and the cosine between the
  * view and the direction toward the light, for samples [t0, b->n). */
-static void falloff_plain(const brm_light *l, const batch_soa *b, uint32_t t0, double *E, double *CV)
+static void falloff_plain(const brm_light *l, batch_soa *b, uint32_t t0, double *E, double *CV)
 {
     const double lx = l->position.x, ly = l->position.y, lz = l->position.z;
     const double I = l->intensity_cd, range = l->range_m;
@@ -138,6 +139,7 @@ static void falloff_plain(const brm_light *l, const batch_soa *b, uint32_t t0, d
         }
         E[t] = d > 0.0 ? e : 0.0;
         CV[t] = b->vx[t] * ux + b->vy[t] * uy + b->vz[t] * uz;
+        b->ux[t] = ux, b->uy[t] = uy, b->uz[t] = uz;
     }
 }
 
@@ -163,7 +165,7 @@ static void phase_plain(const brm_scene *s, const batch_soa *b, const brm_phase_
 /* c ? a : b per lane. */
 AVX_FN static inline __m256d sel(__m256d c, __m256d a, __m256d b) { return _mm256_blendv_pd(b, a, c); }
 
-AVX_FN static void falloff_avx2(const brm_light *l, const batch_soa *b, double *E, double *CV)
+AVX_FN static void falloff_avx2(const brm_light *l, batch_soa *b, double *E, double *CV)
 {
     const __m256d lx = _mm256_set1_pd(l->position.x), ly = _mm256_set1_pd(l->position.y),
                   lz = _mm256_set1_pd(l->position.z);
@@ -206,6 +208,7 @@ AVX_FN static void falloff_avx2(const brm_light *l, const batch_soa *b, double *
                                                  _mm256_mul_pd(_mm256_loadu_pd(b->vy + t), uy)),
                                    _mm256_mul_pd(_mm256_loadu_pd(b->vz + t), uz));
         _mm256_storeu_pd(CV + t, cv);
+        _mm256_storeu_pd(b->ux + t, ux), _mm256_storeu_pd(b->uy + t, uy), _mm256_storeu_pd(b->uz + t, uz);
     }
     falloff_plain(l, b, t, E, CV);
 }
@@ -240,7 +243,7 @@ AVX_FN static void phase_avx2(const brm_scene *s, const batch_soa *b, const brm_
 #define KERNEL_AVX2 0
 #endif
 
-static void stage_falloff_plain(const brm_light *l, const batch_soa *b, double *E, double *CV)
+static void stage_falloff_plain(const brm_light *l, batch_soa *b, double *E, double *CV)
 {
     falloff_plain(l, b, 0, E, CV);
 }
@@ -251,7 +254,7 @@ static void stage_phase_plain(const brm_scene *s, const batch_soa *b, const brm_
 }
 
 typedef struct batch_stages {
-    void (*falloff)(const brm_light *, const batch_soa *, double *, double *);
+    void (*falloff)(const brm_light *, batch_soa *, double *, double *);
     void (*phase)(const brm_scene *, const batch_soa *, const brm_phase_prepared *, uint32_t, const uint32_t *,
                   const double *, uint32_t, double *, double *, double *);
 } batch_stages;
@@ -422,5 +425,105 @@ void brm_kernel_eval_view_batch(const brm_kernel *k, brm_kernel_view_sample *smp
     for (uint32_t i0 = 0; i0 < n; i0 += BATCH_CHUNK) {
         uint32_t c = n - i0 < BATCH_CHUNK ? n - i0 : BATCH_CHUNK;
         view_batch_chunk(k, smp + i0, c, lights, light_count, mp + i0, ph, g1, &st, &b);
+    }
+}
+
+/* One pass of brm_kernel_eval_iso_batch over n ≤ BATCH_CHUNK samples: the stages of
+ * view_batch_chunk up to the transmittance, then kernel_eval's view-independent sums. */
+static void iso_batch_chunk(const brm_kernel *k, brm_kernel_iso_sample *smp, uint32_t n, const uint32_t *lights,
+                            uint32_t light_count, brm_media_point *mp, const batch_stages *st, batch_soa *b)
+{
+    const brm_scene *s = k->scene;
+    b->n = 0;
+    for (uint32_t i = 0; i < n; i++) {
+        brm_kernel_iso_sample *q = &smp[i];
+        brm_media_eval(s, q->p, &mp[i]);
+        q->sigma_t = mp[i].sigma_t;
+        q->light_evals = 0;
+        memset(q->inscatter, 0, sizeof q->inscatter);
+        memset(q->dir, 0, sizeof q->dir);
+        if (mp[i].sigma_s.x <= 0.0 && mp[i].sigma_s.y <= 0.0 && mp[i].sigma_s.z <= 0.0) continue;
+        uint32_t t = b->n++;
+        b->idx[t] = i;
+        b->px[t] = q->p.x, b->py[t] = q->p.y, b->pz[t] = q->p.z;
+        b->vx[t] = b->vy[t] = b->vz[t] = 0.0; /* no view: the cosines go unused */
+    }
+    const uint32_t nlive = b->n;
+    uint32_t on[BATCH_CHUNK];
+    double E[BATCH_CHUNK], CV[BATCH_CHUNK], e[BATCH_CHUNK];
+    for (uint32_t li = 0; li < light_count; li++) {
+        const uint32_t index = lights[li] & ~BRM_KERNEL_LIT;
+        const bool lit = (lights[li] & BRM_KERNEL_LIT) != 0;
+        const brm_light *l = &s->lights[index];
+        const bool directional = l->type == BRM_LIGHT_DIRECTIONAL;
+        const brm_vec3 sun = brm_scale(l->direction, -1.0);
+        uint32_t m = 0;
+        for (uint32_t t = 0; t < nlive; t++) smp[b->idx[t]].light_evals++;
+        if (directional) {
+            const double e0 = l->illuminance_lux;
+            if (e0 <= 0.0) continue;
+            for (uint32_t t = 0; t < nlive; t++) on[m] = t, e[m] = e0, m++;
+        } else {
+            st->falloff(l, b, E, CV);
+            for (uint32_t t = 0; t < nlive; t++) {
+                if (E[t] <= 0.0) continue;
+                on[m] = t, e[m] = E[t];
+                m++;
+            }
+        }
+        if (!lit) {
+            uint32_t m2 = 0;
+            for (uint32_t t = 0; t < m; t++) {
+                double v = brm_shadow_visibility(k->shadows, index, smp[b->idx[on[t]]].p);
+                if (v <= 0.0) continue;
+                on[m2] = on[t], e[m2] = e[t] * v;
+                m2++;
+            }
+            m = m2;
+        }
+        const double col[3] = {l->color.x, l->color.y, l->color.z};
+        for (uint32_t t = 0; t < m; t++) {
+            const uint32_t i = b->idx[on[t]];
+            brm_kernel_iso_sample *q = &smp[i];
+            double ee = e[t] * brm_shadow_transmittance(k->shadows, index, q->p);
+            if (ee <= 0.0) continue;
+            /* As in kernel_eval: a light's projection onto Y_lm is e·Y_lm(toward the light). */
+            const double rgb[3] = {ee * col[0], ee * col[1], ee * col[2]};
+            const double ss[3] = {mp[i].sigma_s.x, mp[i].sigma_s.y, mp[i].sigma_s.z};
+            const brm_vec3 u = directional ? sun : brm_v3(b->ux[on[t]], b->uy[on[t]], b->uz[on[t]]);
+            double y[4];
+            brm_sh4(u, y);
+            for (int c = 0; c < 3; c++) {
+                double a = ss[c] * rgb[c];
+                q->inscatter[c] += a * (1.0 / (4.0 * BRM_PI));
+                for (int mm = 0; mm < 4; mm++) q->dir[c][mm] += a * y[mm];
+            }
+        }
+    }
+    if (!s->sky.present) return;
+    brm_sky_cursor cur;
+    brm_sky_cursor_init(&cur);
+    for (uint32_t t = 0; t < nlive; t++) {
+        const uint32_t i = b->idx[t];
+        brm_kernel_iso_sample *q = &smp[i];
+        double sky[3][4];
+        brm_sky_incident_cursor(k->shadows, &cur, q->p, q->sample_index, sky);
+        const double ss[3] = {mp[i].sigma_s.x, mp[i].sigma_s.y, mp[i].sigma_s.z};
+        for (int c = 0; c < 3; c++) {
+            /* As in kernel_eval: sigma_s/(4π)·∫L dω = sigma_s·L_00·Y00. */
+            q->inscatter[c] += ss[c] * sky[c][0] * BRM_SH_C0;
+            for (int mm = 0; mm < 4; mm++) q->dir[c][mm] += ss[c] * sky[c][mm];
+        }
+    }
+}
+
+void brm_kernel_eval_iso_batch(const brm_kernel *k, brm_kernel_iso_sample *smp, uint32_t n, const uint32_t *lights,
+                               uint32_t light_count, brm_media_point *mp)
+{
+    const batch_stages st = pick_stages();
+    batch_soa b;
+    for (uint32_t i0 = 0; i0 < n; i0 += BATCH_CHUNK) {
+        uint32_t c = n - i0 < BATCH_CHUNK ? n - i0 : BATCH_CHUNK;
+        iso_batch_chunk(k, smp + i0, c, lights, light_count, mp + i0, &st, &b);
     }
 }

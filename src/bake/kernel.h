@@ -55,4 +55,21 @@ typedef struct brm_kernel_view_sample {
 void brm_kernel_eval_view_batch(const brm_kernel *k, brm_kernel_view_sample *smp, uint32_t n, const uint32_t *lights,
                                 uint32_t light_count, brm_media_point *mp);
 
+/* One sample of a batch for brm_kernel_eval_iso_batch: p and sample_index in; the rest out,
+ * the view-independent fields of brm_kernel_out (what the world baker reads). */
+typedef struct brm_kernel_iso_sample {
+    brm_vec3 p;
+    uint32_t sample_index;
+    uint32_t light_evals;       /* out: as brm_kernel_out */
+    double sigma_t;             /* out */
+    double inscatter[3];        /* out */
+    double dir[3][4];           /* out */
+} brm_kernel_iso_sample;
+
+/* brm_kernel_eval(k, p, lights, light_count, sample_index, NULL, out) for n samples that share
+ * one light list, light by light as brm_kernel_eval_view_batch does: each sample's fields get
+ * the bits the single call gives them. mp: n media points of scratch. */
+void brm_kernel_eval_iso_batch(const brm_kernel *k, brm_kernel_iso_sample *smp, uint32_t n, const uint32_t *lights,
+                               uint32_t light_count, brm_media_point *mp);
+
 #endif

@@ -213,6 +213,40 @@ static void view_batch_over_clusters_should_give_the_bits_of_single_samples(void
     brm_scene_free(s);
 }
 
+/* The world baker's batch (inscatter and the dir.* projection) against one sample at a
+ * time, with the sun marked lit as culling would, the point light and the spot mixed. */
+static void iso_batch_over_clusters_should_give_the_bits_of_single_samples(void **state)
+{
+    (void)state;
+    brm_scene *s = load_json(room_json);
+    brm_shadow_set *ss = room_shadows(s);
+    brm_kernel k = {s, ss};
+    enum { N = 600 };
+    static brm_kernel_iso_sample smp[N];
+    static brm_media_point mp[N];
+    const uint32_t lights[3] = {0 | BRM_KERNEL_LIT, 1, 2};
+    for (uint32_t i = 0; i < N; i++) {
+        smp[i].p = cluster_point(i);
+        smp[i].sample_index = 5 * i + 2;
+    }
+    brm_kernel_eval_iso_batch(&k, smp, N, lights, 3, mp);
+    uint32_t lit = 0;
+    for (uint32_t i = 0; i < N; i++) {
+        brm_kernel_out ko;
+        brm_kernel_eval(&k, smp[i].p, lights, 3, smp[i].sample_index, NULL, &ko);
+        assert_true(smp[i].sigma_t == ko.sigma_t);
+        assert_int_equal(smp[i].light_evals, ko.light_evals);
+        for (int c = 0; c < 3; c++) {
+            assert_true(smp[i].inscatter[c] == ko.inscatter[c]);
+            for (int m = 0; m < 4; m++) assert_true(smp[i].dir[c][m] == ko.dir[c][m]);
+        }
+        lit += ko.inscatter[1] > 0.0;
+    }
+    assert_true(lit > N / 2);
+    brm_shadows_free(ss);
+    brm_scene_free(s);
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
@@ -221,6 +255,7 @@ int main(void)
         cmocka_unit_test(sky_cursor_should_give_the_bits_of_single_lookups),
         cmocka_unit_test(pcf_tile_ranges_should_not_change_a_lookup),
         cmocka_unit_test(view_batch_over_clusters_should_give_the_bits_of_single_samples),
+        cmocka_unit_test(iso_batch_over_clusters_should_give_the_bits_of_single_samples),
     };
     return cmocka_run_group_tests(tests, setup, teardown);
 }
