@@ -467,9 +467,27 @@ static inline brv_result trilinear_fast(brv_sampler *s, const double u[3], float
         d[a] = i1 - f[a];
         same &= (f[a] >> s->shift) == (i1 >> s->shift);
     }
-    if (!same) return trilinear(s, u, out);
-    const slot *sl;
     uint32_t sh = (uint32_t)s->shift, mask = (1u << sh) - 1u;
+    if (!same) {
+        /* Corners in several bricks (about one sample in five with bricks of 16): four halves
+         * a corner, each converted as soon as its brick is fetched (a later fetch may evict
+         * it), in trilinear's order; anything else is trilinear's. */
+        if (!s->half || s->nc != 4) return trilinear(s, u, out);
+        __m128 p[8];
+        for (int k = 0; k < 8; k++) {
+            uint32_t x = f[0] + (k & 1) * d[0], y = f[1] + ((k >> 1) & 1) * d[1], z = f[2] + (k >> 2) * d[2];
+            const slot *cs;
+            brv_result r = fetch(s, (x >> sh) + g->bricks[0] * ((y >> sh) + g->bricks[1] * (z >> sh)), &cs);
+            if (r != BRV_OK) return r;
+            if (cs->special) return trilinear(s, u, out);
+            const uint16_t *h = (const uint16_t *)cs->data + 4 * (size_t)(x & mask) + cs->sy * (y & mask) +
+                                cs->sz * (z & mask);
+            p[k] = _mm_mul_ps(halves4(_mm_loadl_epi64((const __m128i *)(const void *)h)), _mm_loadu_ps(cs->scale));
+        }
+        _mm_storeu_ps(out, lerp8_4(p, _mm_set1_ps(t[0]), _mm_set1_ps(t[1]), _mm_set1_ps(t[2])));
+        return BRV_OK;
+    }
+    const slot *sl;
     brv_result r = fetch(s, (f[0] >> sh) + g->bricks[0] * ((f[1] >> sh) + g->bricks[1] * (f[2] >> sh)), &sl);
     if (r != BRV_OK) return r;
     if (s->half && sl->special) return trilinear(s, u, out);
