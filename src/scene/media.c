@@ -699,10 +699,23 @@ LINE_OPTIMIZE static void line_chunk_sse2(LINE_ARGS) { LINE_BOTH(NULL); }
 __attribute__((target("avx2"))) static void corners_avx2(const float *f, size_t o1, size_t o2, size_t o3,
                                                           const uint32_t *base, float c[8][LINE_CHUNK], uint32_t len)
 {
-    const float *src[8] = {f, f + 1, f + o1, f + o1 + 1, f + o2, f + o2 + 1, f + o3, f + o3 + 1};
+    /* Each corner pair along x (c000 and c100, ...) is adjacent in the table: one 64-bit
+     * gather element fetches both, four samples a gather, then the pairs are split into
+     * their two rows and put back in sample order. */
+    const double *src[4] = {(const double *)(const void *)f, (const double *)(const void *)(f + o1),
+                            (const double *)(const void *)(f + o2), (const double *)(const void *)(f + o3)};
     for (uint32_t i = 0; i < len; i += 8) {
-        const __m256i bi = _mm256_loadu_si256((const __m256i *)(const void *)(base + i));
-        for (int q = 0; q < 8; q++) _mm256_storeu_ps(&c[q][i], _mm256_i32gather_ps(src[q], bi, 4));
+        const __m128i b0 = _mm_loadu_si128((const __m128i *)(const void *)(base + i));
+        const __m128i b1 = _mm_loadu_si128((const __m128i *)(const void *)(base + i + 4));
+        for (int r = 0; r < 4; r++) {
+            const __m256 a = _mm256_castpd_ps(_mm256_i32gather_pd(src[r], b0, 4));
+            const __m256 b = _mm256_castpd_ps(_mm256_i32gather_pd(src[r], b1, 4));
+            /* a = (x0 y0 x1 y1 | x2 y2 x3 y3), b the same for samples 4..7 */
+            const __m256 lo = _mm256_shuffle_ps(a, b, 0x88), hi = _mm256_shuffle_ps(a, b, 0xDD);
+            /* (s0 s1 s4 s5 | s2 s3 s6 s7) -> (s0 .. s7) */
+            _mm256_storeu_ps(&c[2 * r][i], _mm256_castpd_ps(_mm256_permute4x64_pd(_mm256_castps_pd(lo), 0xD8)));
+            _mm256_storeu_ps(&c[2 * r + 1][i], _mm256_castpd_ps(_mm256_permute4x64_pd(_mm256_castps_pd(hi), 0xD8)));
+        }
     }
 }
 __attribute__((target("avx2"))) LINE_OPTIMIZE static void line_chunk_avx2(LINE_ARGS)
