@@ -94,12 +94,6 @@ static double simpson(const brm_scene *s, const media_info *mi, brm_vec3 p, brm_
     return sum * w / 6.0;
 }
 
-static int cmp_double(const void *a, const void *b)
-{
-    double x = *(const double *)a, y = *(const double *)b;
-    return (x > y) - (x < y);
-}
-
 #define MAX_CUTS (4 + 4 * BRM_MAX_MEDIA + BRM_MAX_MEDIA)
 /* Where a batched piece's end samples sit inside it, as a share of its length (fill_column). */
 #define PIECE_END 1e-3
@@ -124,7 +118,13 @@ static uint32_t line_cuts(const brm_scene *s, const media_info *mi, brm_vec3 p, 
         double t = (mi->plane_y[k] - p.y) / d.y;
         if (t > a && t < b) cut[nc++] = t;
     }
-    qsort(cut, nc, sizeof cut[0], cmp_double);
+    /* insertion sort: a handful of values, no comparator calls */
+    for (uint32_t i = 1; i < nc; i++) {
+        double x = cut[i];
+        uint32_t j = i;
+        for (; j > 0 && cut[j - 1] > x; j--) cut[j] = cut[j - 1];
+        cut[j] = x;
+    }
     return nc;
 }
 
