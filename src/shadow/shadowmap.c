@@ -218,6 +218,33 @@ __attribute__((target("avx2"))) static int64_t fill_run_avx2(float *row, int64_t
     }
     return i;
 }
+
+/* The depth range of one full 16 × 16 tile at t (rows `stride` floats apart), eight texels a
+ * lane-group: minps/maxps keep their second operand unless the first is below/above it, which
+ * is the scalar loop's "if (x < lo) lo = x" (a NaN texel never enters); the lanes are then
+ * reduced the same way. The extremes of a set do not depend on the order they are taken in,
+ * so the values are the scalar loop's (up to the sign of a zero, which compares equal and is
+ * all the ranges are used for). */
+__attribute__((target("avx2"))) static void tile_range_avx2(const float *t, uint32_t stride, float *lo_out,
+                                                             float *hi_out)
+{
+    __m256 lo = _mm256_set1_ps(INFINITY), hi = _mm256_set1_ps(-INFINITY);
+    for (uint32_t j = 0; j < 16; j++) {
+        const float *row = t + (size_t)j * stride;
+        __m256 a = _mm256_loadu_ps(row), b = _mm256_loadu_ps(row + 8);
+        lo = _mm256_min_ps(a, lo), lo = _mm256_min_ps(b, lo);
+        hi = _mm256_max_ps(a, hi), hi = _mm256_max_ps(b, hi);
+    }
+    float l[8], h[8];
+    _mm256_storeu_ps(l, lo);
+    _mm256_storeu_ps(h, hi);
+    float rl = l[0], rh = h[0];
+    for (int k = 1; k < 8; k++) {
+        if (l[k] < rl) rl = l[k];
+        if (h[k] > rh) rh = h[k];
+    }
+    *lo_out = rl, *hi_out = rh;
+}
 #else
 #define SHADOWMAP_AVX2 0
 #endif
@@ -338,12 +365,22 @@ static brm_vec3 to_view(const shadow_view *v, brm_vec3 p)
 
 static void raster_tri(shadow_view *v, uint32_t row0, uint32_t row1, const brm_tri *tri)
 {
+    brm_vec3 vs[3];
+    for (int k = 0; k < 3; k++) vs[k] = to_view(v, tri->v[k]);
+    /* A triangle wholly in front of the view whose projection misses rows [row0, row1) or the
+     * map: raster_tri2d's own first test would return on these very vertices, so return before
+     * working out its normal and bias (every band of a view sees every triangle). */
+    if (v->kind == BRM_VIEW_ORTHO || (vs[0].z >= v->z_near && vs[1].z >= v->z_near && vs[2].z >= v->z_near)) {
+        rvert t[3];
+        for (int k = 0; k < 3; k++) t[k] = to_raster(v, vs[k]);
+        double minx = fmin(t[0].x, fmin(t[1].x, t[2].x)), maxx = fmax(t[0].x, fmax(t[1].x, t[2].x));
+        double miny = fmin(t[0].y, fmin(t[1].y, t[2].y)), maxy = fmax(t[0].y, fmax(t[1].y, t[2].y));
+        if (maxx < 0.0 || maxy < (double)row0 || minx >= (double)v->res || miny >= (double)row1) return;
+    }
     brm_vec3 n = brm_cross(brm_sub(tri->v[1], tri->v[0]), brm_sub(tri->v[2], tri->v[0]));
     double nl = brm_len(n);
     if (!(nl > 0.0)) return;
     n = brm_scale(n, 1.0 / nl);
-    brm_vec3 vs[3];
-    for (int k = 0; k < 3; k++) vs[k] = to_view(v, tri->v[k]);
     if (v->kind == BRM_VIEW_ORTHO) {
         rvert t[3];
         for (int k = 0; k < 3; k++) t[k] = to_raster(v, vs[k]);
@@ -526,8 +563,18 @@ int brm_shadowmap_tiles(shadow_view *v)
     v->tile_max = malloc((size_t)n * n * sizeof(float));
     if (!v->tile_min || !v->tile_max) return 0;
     v->tiles = n;
+#if SHADOWMAP_AVX2
+    const bool avx2 = T == 16 && __builtin_cpu_supports("avx2");
+#endif
     for (uint32_t tj = 0; tj < n; tj++)
         for (uint32_t ti = 0; ti < n; ti++) {
+#if SHADOWMAP_AVX2
+            if (avx2 && (tj + 1) * T <= v->res && (ti + 1) * T <= v->res) {
+                tile_range_avx2(v->depth + (size_t)tj * T * v->res + (size_t)ti * T, v->res, &v->tile_min[tj * n + ti],
+                                &v->tile_max[tj * n + ti]);
+                continue;
+            }
+#endif
             float lo = INFINITY, hi = -INFINITY;
             for (uint32_t j = tj * T; j < (tj + 1) * T && j < v->res; j++) {
                 const float *row = v->depth + (size_t)j * v->res;

@@ -180,6 +180,43 @@ static void pcf_tile_ranges_should_not_change_a_lookup(void **state)
     brm_scene_free(s);
 }
 
+/* Each map's tile ranges are the extremes of its texels, tile by tile (worked out here by
+ * the plain loop over every texel). */
+static void tile_ranges_should_be_the_extremes_of_their_texels(void **state)
+{
+    (void)state;
+    brm_scene *s = load_json(room_json);
+    brm_shadow_set *ss = room_shadows(s);
+    uint32_t tiles = 0, finite = 0;
+    for (uint32_t l = 0; l < s->light_count; l++) {
+        const light_shadow *ls = &ss->lights[l];
+        if (!ls->has_map) continue;
+        for (uint32_t vi = 0; vi < ls->view_count; vi++) {
+            const shadow_view *v = &ls->views[vi];
+            const uint32_t T = BRM_SHADOW_TILE;
+            assert_int_equal(v->tiles, (v->res + T - 1) / T);
+            for (uint32_t tj = 0; tj < v->tiles; tj++)
+                for (uint32_t ti = 0; ti < v->tiles; ti++) {
+                    float lo = INFINITY, hi = -INFINITY;
+                    for (uint32_t j = tj * T; j < (tj + 1) * T && j < v->res; j++)
+                        for (uint32_t i = ti * T; i < (ti + 1) * T && i < v->res; i++) {
+                            float d = v->depth[(size_t)j * v->res + i];
+                            lo = d < lo ? d : lo;
+                            hi = d > hi ? d : hi;
+                        }
+                    assert_true(v->tile_min[tj * v->tiles + ti] == lo);
+                    assert_true(v->tile_max[tj * v->tiles + ti] == hi);
+                    tiles++;
+                    finite += isfinite(lo) && isfinite(hi);
+                }
+        }
+    }
+    /* Tiles with geometry in them, and tiles half empty (+inf beside a depth). */
+    assert_true(tiles > 1000 && finite > 100 && finite < tiles);
+    brm_shadows_free(ss);
+    brm_scene_free(s);
+}
+
 /* The staged batch over clustered samples (the sky cursor hits, lights drop out at different
  * stages) against one sample at a time; every light mixed, none pre-classified. */
 static void view_batch_over_clusters_should_give_the_bits_of_single_samples(void **state)
@@ -254,6 +291,7 @@ int main(void)
         cmocka_unit_test(local_falloff_should_give_the_bits_of_the_light_call),
         cmocka_unit_test(sky_cursor_should_give_the_bits_of_single_lookups),
         cmocka_unit_test(pcf_tile_ranges_should_not_change_a_lookup),
+        cmocka_unit_test(tile_ranges_should_be_the_extremes_of_their_texels),
         cmocka_unit_test(view_batch_over_clusters_should_give_the_bits_of_single_samples),
         cmocka_unit_test(iso_batch_over_clusters_should_give_the_bits_of_single_samples),
     };
