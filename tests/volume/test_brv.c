@@ -831,6 +831,12 @@ typedef struct job {
     uint32_t first, step;
     float *out;
     brv_result r;
+    uint32_t passes;   /* 1: brick b at out + b·brv_brick_size; more: pass p's brick b at
+                        * out + p·place[brick_count] + place[b] (bricks packed tight) */
+    const size_t *place;
+    bool set_mode;     /* call brv_decoder_set_streaming(mode); otherwise the default */
+    int mode;
+    bool streamed;     /* the last call streamed */
 } job;
 
 static void *decode_job(void *arg)
@@ -838,9 +844,14 @@ static void *decode_job(void *arg)
     job *j = arg;
     brv_decoder *dec;
     j->r = brv_decoder_create(j->v, &dec);
+    if (j->r != BRV_OK) return NULL;
+    if (j->set_mode) brv_decoder_set_streaming(dec, j->mode);
     size_t per = brv_brick_size(j->v);
-    for (uint32_t b = j->first; j->r == BRV_OK && b < brv_grid(j->v)->brick_count; b += j->step)
-        j->r = brv_decode_brick(j->v, dec, b, j->out + (size_t)b * per, per);
+    uint32_t nb = brv_grid(j->v)->brick_count;
+    for (uint32_t p = 0; p < j->passes; p++)
+        for (uint32_t b = j->first; j->r == BRV_OK && b < nb; b += j->step)
+            j->r = brv_decode_brick(j->v, dec, b, j->out + (j->place ? p * j->place[nb] + j->place[b] : b * per), per);
+    j->streamed = brv_decoder_streamed(dec);
     brv_decoder_free(dec);
     return NULL;
 }
@@ -855,9 +866,9 @@ static void distinct_bricks_should_decode_from_two_threads_at_once(void **state)
     brv_volume *v = open_or_fail(buf, size);
     size_t total = brv_brick_size(v) * brv_grid(v)->brick_count;
     float *one = calloc(total, sizeof(float)), *two = calloc(total, sizeof(float));
-    job j0 = {v, 0, 1, one, BRV_OK};
+    job j0 = {v, 0, 1, one, BRV_OK, 1, NULL, false, 0, false};
     decode_job(&j0);
-    job a = {v, 0, 2, two, BRV_OK}, b = {v, 1, 2, two, BRV_OK};
+    job a = {v, 0, 2, two, BRV_OK, 1, NULL, false, 0, false}, b = {v, 1, 2, two, BRV_OK, 1, NULL, false, 0, false};
     pthread_t ta, tb;
     pthread_create(&ta, NULL, decode_job, &a);
     pthread_create(&tb, NULL, decode_job, &b);
@@ -867,6 +878,43 @@ static void distinct_bricks_should_decode_from_two_threads_at_once(void **state)
     assert_int_equal(a.r, BRV_OK);
     assert_int_equal(b.r, BRV_OK);
     assert_memory_equal(one, two, total * sizeof(float));
+    free(one);
+    free(two);
+    /* Two threads taking turns over an array large enough that each one's default decoder
+     * streams (BRV_STREAM_AUTO: a forward run past 8 MiB): the bits of one thread's ordinary
+     * stores. */
+    uint32_t nb = brv_grid(v)->brick_count;
+    size_t *place = malloc((nb + 1) * sizeof *place);
+    assert_non_null(place);
+    place[0] = 0;
+    for (uint32_t k = 0; k < nb; k++) {
+        uint32_t o[3], e[3];
+        assert_int_equal(brv_brick_extent(v, k, o, e), BRV_OK);
+        place[k + 1] = place[k] + (size_t)e[0] * e[1] * e[2] * 2; /* two channels */
+    }
+    /* each thread writes about half a pass: past the threshold by two passes */
+    uint32_t passes = (uint32_t)(2 * BRV_STREAM_AUTO_BYTES / (place[nb] * sizeof(float))) + 4;
+    size_t floats = place[nb] * passes + brv_brick_size(v); /* the last call may be given a whole brick's room */
+    one = calloc(floats, sizeof(float));
+    two = calloc(floats, sizeof(float));
+    assert_non_null(one);
+    assert_non_null(two);
+    job k0 = {v, 0, 1, one, BRV_OK, passes, place, true, BRV_STREAM_OFF, false};
+    job ka = {v, 0, 2, two, BRV_OK, passes, place, false, 0, false};
+    job kb = {v, 1, 2, two, BRV_OK, passes, place, false, 0, false};
+    decode_job(&k0);
+    pthread_create(&ta, NULL, decode_job, &ka);
+    pthread_create(&tb, NULL, decode_job, &kb);
+    pthread_join(ta, NULL);
+    pthread_join(tb, NULL);
+    assert_int_equal(k0.r, BRV_OK);
+    assert_int_equal(ka.r, BRV_OK);
+    assert_int_equal(kb.r, BRV_OK);
+    assert_false(k0.streamed);
+    assert_true(ka.streamed);
+    assert_true(kb.streamed);
+    assert_memory_equal(one, two, floats * sizeof(float));
+    free(place);
     free(one);
     free(two);
     brv_free(v);
@@ -1332,9 +1380,9 @@ static void open_file_should_read_bricks_on_demand(void **state)
     assert_memory_equal(x, y, all * sizeof *x);
     size_t total = brv_brick_size(v) * g->brick_count;
     float *one = calloc(total, sizeof(float)), *two = calloc(total, sizeof(float));
-    job j0 = {mem, 0, 1, one, BRV_OK};
+    job j0 = {mem, 0, 1, one, BRV_OK, 1, NULL, false, 0, false};
     decode_job(&j0);
-    job ja = {v, 0, 2, two, BRV_OK}, jb = {v, 1, 2, two, BRV_OK};
+    job ja = {v, 0, 2, two, BRV_OK, 1, NULL, false, 0, false}, jb = {v, 1, 2, two, BRV_OK, 1, NULL, false, 0, false};
     pthread_t ta, tb;
     pthread_create(&ta, NULL, decode_job, &ja);
     pthread_create(&tb, NULL, decode_job, &jb);
