@@ -267,7 +267,7 @@ static int demo_bench(int threads, bool frustum)
                     pts[np++] = brm_grid_point(&g, i + unif(), j + unif(), k + unif());
     }
     volatile double sink = 0;
-    double tv_all = 0, tt_all = 0;
+    double tv_all = 0, tt_all = 0, tb_all = 0;
     uint64_t n_all = 0;
     for (uint32_t l = 0; l < s->light_count; l++) {
         const light_shadow *ls = &ss->lights[l];
@@ -309,6 +309,24 @@ static int demo_bench(int threads, bool frustum)
             for (int i = 0; i < nq; i++) sink += brm_shadow_transmittance(ss, l, q[i]);
             tt = fmin(tt, cpu_seconds() - t0);
         }
+        /* the same lookups in batches of 256 (brm_shadow_transmittance_batch), which must
+         * give the same bits */
+        double tb = HUGE_VAL;
+        double *tbuf = malloc((size_t)nq * sizeof *tbuf);
+        if (!tbuf) return 1;
+        for (int rep = 0; rep < 3; rep++) {
+            double t0 = cpu_seconds();
+            for (int i = 0; i < nq; i += 256) brm_shadow_transmittance_batch(ss, l, q + i, nq - i < 256 ? (uint32_t)(nq - i) : 256u, tbuf + i);
+            tb = fmin(tb, cpu_seconds() - t0);
+        }
+        int differ = 0;
+        for (int i = 0; i < nq; i++) differ += tbuf[i] != brm_shadow_transmittance(ss, l, q[i]);
+        free(tbuf);
+        if (differ) {
+            fprintf(stderr, "bench_shadow: light %u: %d batch transmittances differ from single lookups\n", l, differ);
+            return 1;
+        }
+        tb_all += tb;
         tv_all += tv, tt_all += tt, n_all += (uint64_t)nq;
         double worst = 0.0;
         int nc = nq < N_DEMO_CHECK ? nq : N_DEMO_CHECK;
@@ -325,8 +343,9 @@ static int demo_bench(int threads, bool frustum)
                tt / nq * 1e9, 100.0 * worst);
         free(q);
     }
-    printf("  all lights: visibility %.1f ns, transmittance %.1f ns per lookup (mean)\n", tv_all / (double)n_all * 1e9,
-           tt_all / (double)n_all * 1e9);
+    printf("  all lights: visibility %.1f ns, transmittance %.1f ns per lookup (mean); in batches of 256 %.1f ns, "
+           "the same values\n",
+           tv_all / (double)n_all * 1e9, tt_all / (double)n_all * 1e9, tb_all / (double)n_all * 1e9);
     free(pts);
     brm_shadows_free(ss);
     brm_bvh_free(bvh);

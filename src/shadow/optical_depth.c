@@ -904,11 +904,10 @@ void brm_od_finish(shadow_view *v)
 /* G (and for face ≥ 0 the prefix P_face) at grid coordinates (x, y, z): cubic Hermite in z
  * (values G, slopes sigma~), bilinear across paths, in the cell's block when it has one.
  * Returns 0 outside the grid or in a flagged cell. */
-static int grid_eval(const shadow_view *v, double x, double y, double z, int face, double *g_out, double *p_out)
+/* Grid coordinates of (x, y, z): the cell c and the weights w in it; 0 outside the grid. */
+static inline int grid_cell(const shadow_view *v, double x, double y, double z, uint32_t c[3], double w[3])
 {
     double f[3] = {(x - v->og_lo[0]) * v->og_inv[0], (y - v->og_lo[1]) * v->og_inv[1], (z - v->og_lo[2]) * v->og_inv[2]};
-    uint32_t c[3];
-    double w[3];
     for (int a = 0; a < 3; a++) {
         double lim = (double)(v->og_n[a] - 1);
         if (!(f[a] >= 0.0 && f[a] <= lim)) return 0;
@@ -917,34 +916,55 @@ static int grid_eval(const shadow_view *v, double x, double y, double z, int fac
         c[a] = (uint32_t)fl;
         w[a] = f[a] - fl;
     }
-    const uint32_t nk = v->og_n[2], n0 = v->og_n[0];
-    size_t lat = c[0] + (size_t)(n0 - 1) * c[1];
-    if (v->cell_clean && c[2] >= v->cell_clean[2 * lat] && c[2] < v->cell_clean[2 * lat + 1]) {
-        /* The common case: the four base columns, nothing else to read. In single precision
-         * (the nodes are floats; the weights' rounding, under 1e-7 relative, moves G by a few
-         * 1e-7 against the 0.003 the build checks): bilinear across the columns first, each
-         * node pair (G_k, sigma_k, G_k+1, sigma_k+1) a vector of four, then the Hermite
-         * basis once. */
-        const float t = (float)w[2], t2 = t * t, t3 = t2 * t, hz = (float)v->og_step[2];
-        const float hb[4] = {2.0f * t3 - 3.0f * t2 + 1.0f, (t3 - 2.0f * t2 + t) * hz, -2.0f * t3 + 3.0f * t2,
-                             (t3 - t2) * hz};
-        const float wx = (float)w[0], wy = (float)w[1];
-        const float wq[4] = {(1.0f - wx) * (1.0f - wy), wx * (1.0f - wy), (1.0f - wx) * wy, wx * wy};
-        const size_t c00 = c[0] + (size_t)n0 * c[1];
-        const int64_t *oc = v->od_col + c00;
-        const float *n00 = v->od + 2 * (size_t)(oc[0] + c[2]), *n10 = v->od + 2 * (size_t)(oc[1] + c[2]);
-        const float *n01 = v->od + 2 * (size_t)(oc[n0] + c[2]), *n11 = v->od + 2 * (size_t)(oc[n0 + 1] + c[2]);
-        float a[4];
-        for (int q = 0; q < 4; q++) a[q] = wq[0] * n00[q] + wq[1] * n10[q] + wq[2] * n01[q] + wq[3] * n11[q];
-        *g_out = (double)(a[0] * hb[0] + a[1] * hb[1] + a[2] * hb[2] + a[3] * hb[3]);
-        if (face >= 0) {
-            const float *pr = v->prefix + (size_t)face * n0 * v->og_n[1] + c00;
-            *p_out = (double)(wq[0] * pr[0] + wq[1] * pr[1] + wq[2] * pr[n0] + wq[3] * pr[n0 + 1]);
-        } else if (p_out) {
-            *p_out = 0.0;
-        }
+    return 1;
+}
+
+/* Whether depth interval c[2] of lateral cell c needs nothing but its four base columns. */
+static inline int cell_is_clean(const shadow_view *v, const uint32_t c[3])
+{
+    size_t lat = c[0] + (size_t)(v->og_n[0] - 1) * c[1];
+    return v->cell_clean && c[2] >= v->cell_clean[2 * lat] && c[2] < v->cell_clean[2 * lat + 1];
+}
+
+/* G (and for face ≥ 0 the prefix into *p_out) of a clean cell: the common case, the four
+ * base columns and nothing else to read. In single precision (the nodes are floats; the
+ * weights' rounding, under 1e-7 relative, moves G by a few 1e-7 against the 0.003 the build
+ * checks): bilinear across the columns first, each node pair (G_k, sigma_k, G_k+1,
+ * sigma_k+1) a vector of four, then the Hermite basis once. */
+static inline double clean_eval(const shadow_view *v, const uint32_t c[3], const double w[3], int face, double *p_out)
+{
+    const uint32_t n0 = v->og_n[0];
+    const float t = (float)w[2], t2 = t * t, t3 = t2 * t, hz = (float)v->og_step[2];
+    const float hb[4] = {2.0f * t3 - 3.0f * t2 + 1.0f, (t3 - 2.0f * t2 + t) * hz, -2.0f * t3 + 3.0f * t2,
+                         (t3 - t2) * hz};
+    const float wx = (float)w[0], wy = (float)w[1];
+    const float wq[4] = {(1.0f - wx) * (1.0f - wy), wx * (1.0f - wy), (1.0f - wx) * wy, wx * wy};
+    const size_t c00 = c[0] + (size_t)n0 * c[1];
+    const int64_t *oc = v->od_col + c00;
+    const float *n00 = v->od + 2 * (size_t)(oc[0] + c[2]), *n10 = v->od + 2 * (size_t)(oc[1] + c[2]);
+    const float *n01 = v->od + 2 * (size_t)(oc[n0] + c[2]), *n11 = v->od + 2 * (size_t)(oc[n0 + 1] + c[2]);
+    float a[4];
+    for (int q = 0; q < 4; q++) a[q] = wq[0] * n00[q] + wq[1] * n10[q] + wq[2] * n01[q] + wq[3] * n11[q];
+    if (face >= 0) {
+        const float *pr = v->prefix + (size_t)face * n0 * v->og_n[1] + c00;
+        *p_out = (double)(wq[0] * pr[0] + wq[1] * pr[1] + wq[2] * pr[n0] + wq[3] * pr[n0 + 1]);
+    } else if (p_out) {
+        *p_out = 0.0;
+    }
+    return (double)(a[0] * hb[0] + a[1] * hb[1] + a[2] * hb[2] + a[3] * hb[3]);
+}
+
+static int grid_eval(const shadow_view *v, double x, double y, double z, int face, double *g_out, double *p_out)
+{
+    uint32_t c[3];
+    double w[3];
+    if (!grid_cell(v, x, y, z, c, w)) return 0;
+    if (cell_is_clean(v, c)) {
+        *g_out = clean_eval(v, c, w, face, p_out);
         return 1;
     }
+    const uint32_t nk = v->og_n[2], n0 = v->og_n[0];
+    size_t lat = c[0] + (size_t)(n0 - 1) * c[1];
     const float *col[4], *pre[4] = {NULL, NULL, NULL, NULL};
     const uint8_t *bad;
     int32_t b = v->refine ? v->refine[lat] : -1;
@@ -1107,3 +1127,93 @@ int brm_od_lookup_light(const brm_scene *s, const light_shadow *ls, brm_vec3 p, 
     }
     return lookup_persp(s, v, d, tau);
 }
+
+/* ---- batches ------------------------------------------------------------------------ */
+
+#define OD_BATCH 32
+
+void brm_od_transmittance_batch(const brm_scene *s, const light_shadow *ls, const brm_vec3 *p, uint32_t n,
+                                double *out, uint8_t *slow)
+{
+    const brm_aabb fb = s->fog_bounds;
+    for (uint32_t i0 = 0; i0 < n; i0 += OD_BATCH) {
+        const uint32_t m = n - i0 < OD_BATCH ? n - i0 : OD_BATCH;
+        const shadow_view *vv[OD_BATCH];
+        uint32_t cc[OD_BATCH][3];
+        double ww[OD_BATCH][3];
+        int face[OD_BATCH];
+        uint8_t ok[OD_BATCH];
+        /* Pass 1: the view, the grid cell and weights, as brm_od_lookup_light takes them;
+         * the cell's flags and column offsets are fetched ahead. */
+        for (uint32_t i = 0; i < m; i++) {
+            const brm_vec3 q = p[i0 + i];
+            ok[i] = 0;
+            slow[i0 + i] = 1;
+            if (!brm_aabb_contains(fb, q)) continue;
+            const shadow_view *v = &ls->views[0];
+            double x, y, z;
+            int e = -1;
+            if (v->kind == BRM_VIEW_ORTHO) {
+                double tb = HUGE_VAL;
+                for (int a = 0; a < 3; a++) {
+                    double fa = brm_vget(v->f, a);
+                    if (fa == 0.0) continue;
+                    double plane = fa > 0.0 ? brm_vget(fb.min, a) : brm_vget(fb.max, a);
+                    double ta = (brm_vget(q, a) - plane) * v->f_inv[a];
+                    if (ta < tb) tb = ta, e = a;
+                }
+                if (e < 0) continue;
+                x = brm_dot(q, v->u), y = brm_dot(q, v->v), z = brm_dot(q, v->f);
+            } else {
+                const brm_vec3 d = brm_sub(q, v->origin);
+                if (ls->cube) {
+                    const double ax = fabs(d.x), ay = fabs(d.y), az = fabs(d.z);
+                    v = &ls->views[ax >= ay && ax >= az ? (d.x >= 0 ? 0 : 1) : ay >= az ? (d.y >= 0 ? 2 : 3) : (d.z >= 0 ? 4 : 5)];
+                }
+                if (!brm_aabb_contains(fb, v->origin)) continue; /* two grid reads: the scalar path */
+                const double zf = brm_dot(d, v->f);
+                if (!(zf > 0.0)) continue;
+                const double iz = 1.0 / zf, r2 = brm_dot(d, d);
+                x = brm_dot(d, v->u) * iz, y = brm_dot(d, v->v) * iz, z = sqrt(r2);
+            }
+            if (v->hard_count || !v->cell_clean || !grid_cell(v, x, y, z, cc[i], ww[i])) continue;
+            const size_t n0 = v->og_n[0], c00 = cc[i][0] + n0 * cc[i][1];
+            __builtin_prefetch(v->cell_clean + 2 * (cc[i][0] + (n0 - 1) * cc[i][1]));
+            __builtin_prefetch(v->od_col + c00);
+            __builtin_prefetch(v->od_col + c00 + n0);
+            vv[i] = v, face[i] = e, ok[i] = 1;
+        }
+        /* Pass 2: clean cells only (the others take the scalar path); their nodes fetched. */
+        for (uint32_t i = 0; i < m; i++) {
+            if (!ok[i]) continue;
+            const shadow_view *v = vv[i];
+            if (!cell_is_clean(v, cc[i])) {
+                ok[i] = 0;
+                continue;
+            }
+            const size_t n0 = v->og_n[0], c00 = cc[i][0] + n0 * cc[i][1];
+            const int64_t *oc = v->od_col + c00;
+            const size_t at[4] = {(size_t)(oc[0] + cc[i][2]), (size_t)(oc[1] + cc[i][2]), (size_t)(oc[n0] + cc[i][2]),
+                                  (size_t)(oc[n0 + 1] + cc[i][2])};
+            for (int k = 0; k < 4; k++) {
+                __builtin_prefetch(v->od + 2 * at[k]);
+                __builtin_prefetch(v->od + 2 * at[k] + 3);
+            }
+            if (face[i] >= 0) __builtin_prefetch(v->prefix + (size_t)face[i] * n0 * v->og_n[1] + c00);
+        }
+        /* Pass 3: brm_od_lookup_light's arithmetic and brm_shadow_transmittance's exp. */
+        for (uint32_t i = 0; i < m; i++) {
+            if (!ok[i]) continue;
+            double pre = 0.0, g = clean_eval(vv[i], cc[i], ww[i], face[i], &pre), tau;
+            if (face[i] >= 0) {
+                double t = pre + g;
+                tau = t > 0.0 ? t : 0.0;
+            } else {
+                tau = g > 0.0 ? g : 0.0;
+            }
+            out[i0 + i] = brm_exp_neg(tau);
+            slow[i0 + i] = 0;
+        }
+    }
+}
+

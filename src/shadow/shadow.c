@@ -604,6 +604,22 @@ double brm_shadow_transmittance(const brm_shadow_set *ss, uint32_t l, brm_vec3 p
     return exp(-brm_optical_depth_segment(ss->scene, &ss->media, p, dir, 0.0, dist, ss->fast_step));
 }
 
+void brm_shadow_transmittance_batch(const brm_shadow_set *ss, uint32_t l, const brm_vec3 *p, uint32_t n, double *out)
+{
+    const light_shadow *ls = &ss->lights[l];
+    if (!ss->media.any || !ls->has_od || ss->opts.reference) {
+        for (uint32_t i = 0; i < n; i++) out[i] = brm_shadow_transmittance(ss, l, p[i]);
+        return;
+    }
+    uint8_t slow[256];
+    for (uint32_t i0 = 0; i0 < n; i0 += 256) {
+        uint32_t m = n - i0 < 256 ? n - i0 : 256;
+        brm_od_transmittance_batch(ss->scene, ls, p + i0, m, out + i0, slow);
+        for (uint32_t i = 0; i < m; i++)
+            if (slow[i]) out[i0 + i] = brm_shadow_transmittance(ss, l, p[i0 + i]);
+    }
+}
+
 double brm_shadow_texel_size(const brm_shadow_set *ss, uint32_t l)
 {
     const light_shadow *ls = &ss->lights[l];

@@ -73,6 +73,11 @@ double brm_shadow_transmittance(const brm_shadow_set *ss, uint32_t l, brm_vec3 p
  * is not enough.
  * Lookups: tens to a few hundred nanoseconds; see bench/bench_shadow.c.) */
 
+/* brm_shadow_transmittance at p[0..n), the same values bit for bit, for kernels that ask
+ * many samples about one light at once: the optical-depth grid's reads are fetched a batch
+ * ahead instead of one lookup at a time (bench/bench_shadow.c compares the two). */
+void brm_shadow_transmittance_batch(const brm_shadow_set *ss, uint32_t l, const brm_vec3 *p, uint32_t n, double *out);
+
 /* Texel size (m) of light l's map near p; 0 for lights without a map (for warnings). */
 double brm_shadow_texel_size(const brm_shadow_set *ss, uint32_t l);
 

@@ -303,6 +303,13 @@ int brm_od_lookup(const brm_scene *s, const shadow_view *v, brm_vec3 p, double *
  * major axis of p − light) from the vector the projection needs anyway. */
 int brm_od_lookup_light(const brm_scene *s, const light_shadow *ls, brm_vec3 p, double *tau);
 
+/* Transmittance of light ls at n points from the grids' clean cells, their reads fetched a
+ * batch ahead: out[i] as brm_shadow_transmittance gives it, bit for bit, where slow[i] is
+ * 0; slow[i] = 1 where the point needs the general path (outside the grid, a flagged or
+ * refined cell, a light outside the fog, hard box faces). */
+void brm_od_transmittance_batch(const brm_scene *s, const light_shadow *ls, const brm_vec3 *p, uint32_t n,
+                                double *out, uint8_t *slow);
+
 /* ---- depth maps (shadowmap.c) ---- */
 /* Plans the views and the map resolution of light l for the target (no allocation). */
 void brm_shadowmap_plan(const brm_scene *s, const brm_shadow_opts *o, light_shadow *ls, const brm_light *l);

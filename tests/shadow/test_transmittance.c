@@ -478,10 +478,73 @@ static void hard_box_faces_should_stay_within_one_percent_of_the_march(void **st
     brm_scene_free(s);
 }
 
+/* The batch lookup (prefetched a batch ahead) gives brm_shadow_transmittance's values bit for
+ * bit: sun, spot, point lights inside and outside the fog, a hard box (whose lookups all take
+ * the general path), points inside and outside the fog and the target. */
+static void transmittance_batch_should_equal_single_lookups(void **state)
+{
+    (void)state;
+    brm_aabb fog = {{-20, -2, -20}, {20, 15, 20}};
+    brm_scene *s = sf_scene(fog);
+    brm_medium *h = sf_medium(s, BRM_MEDIUM_HEIGHT, 0.08);
+    h->base_y = 0.5;
+    h->scale_height_m = 4.0;
+    brm_medium *b = sf_medium(s, BRM_MEDIUM_BOX, 0.2);
+    b->box = (brm_aabb){{-6, 0, -3}, {2, 5, 6}};
+    b->edge_fade_m = 1.0;
+    brm_medium *nz = sf_medium(s, BRM_MEDIUM_NOISE, 0.0);
+    nz->scale_m = 6.0;
+    nz->octaves = 4;
+    nz->seed = 7;
+    nz->strength = 0.6;
+    sf_sun(s, brm_v3(0.4, -1.0, 0.3));
+    sf_spot(s, brm_v3(2, 12, -3), brm_v3(-0.1, -1, 0.2), 25, 35);
+    brm_light *pt = sf_point(s, brm_v3(-3, 4, 2));
+    pt->range_m = 30.0;
+    brm_light *out_pt = sf_point(s, brm_v3(0, 25, 0)); /* above the fog */
+    out_pt->range_m = 40.0;
+    sf_ready(s);
+    brm_aabb target = {{-6, 0, -6}, {6, 6, 6}};
+    brm_shadow_set *ss = sf_build(s, target, 0.25, false, NULL, 2);
+    enum { N = 3000 };
+    static brm_vec3 p[N];
+    static double one[N], many[N];
+    static uint8_t slow[N];
+    uint64_t rng = 17;
+    brm_aabb wide = {{-8, -3, -8}, {8, 8, 8}};
+    for (int i = 0; i < N; i++) p[i] = sf_in_box(&rng, i % 5 ? target : wide);
+    for (uint32_t l = 0; l < s->light_count; l++) {
+        for (int i = 0; i < N; i++) one[i] = brm_shadow_transmittance(ss, l, p[i]);
+        brm_shadow_transmittance_batch(ss, l, p, N, many);
+        assert_memory_equal(one, many, sizeof one);
+        brm_od_transmittance_batch(s, &ss->lights[l], p, N, many, slow);
+        int fast = 0;
+        for (int i = 0; i < N; i++) fast += !slow[i];
+        printf("batch, light %u: %d of %d points from clean cells\n", l, fast, N);
+        if (l < 3) assert_true(fast > N / 2); /* the batch path is the common one */
+        else assert_int_equal(fast, 0);        /* a light outside the fog: the general path */
+    }
+    brm_shadows_free(ss);
+    brm_scene_free(s);
+    /* hard box faces: every lookup takes the general path, the values the same */
+    s = sf_scene(fog);
+    brm_medium *hb = sf_medium(s, BRM_MEDIUM_BOX, 0.3);
+    hb->box = (brm_aabb){{-3, 0, -2}, {2, 4, 3}};
+    sf_sun(s, brm_v3(0.35, -1.0, 0.25));
+    sf_ready(s);
+    ss = sf_build(s, target, 0.25, false, NULL, 1);
+    for (int i = 0; i < N; i++) one[i] = brm_shadow_transmittance(ss, 0, p[i]);
+    brm_shadow_transmittance_batch(ss, 0, p, N, many);
+    assert_memory_equal(one, many, sizeof one);
+    brm_shadows_free(ss);
+    brm_scene_free(s);
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
         cmocka_unit_test(transmittance_exp_should_match_libm),
+        cmocka_unit_test(transmittance_batch_should_equal_single_lookups),
         cmocka_unit_test(uniform_fog_should_follow_beer_lambert_to_the_fog_exit),
         cmocka_unit_test(height_fog_should_match_reference_table_rows),
         cmocka_unit_test(height_fog_should_match_closed_form_for_many_elevations),
