@@ -289,6 +289,8 @@ static void view_batch_chunk(const brm_kernel *k, brm_kernel_view_sample *smp, u
         q->toward_view[0] = q->toward_view[1] = q->toward_view[2] = 0.0;
         /* A sample without scattering takes no light (kernel_eval returns early there). */
         if (mp[i].sigma_s.x <= 0.0 && mp[i].sigma_s.y <= 0.0 && mp[i].sigma_s.z <= 0.0) continue;
+        /* Every light is evaluated at a sample that scatters (kernel_eval counts each). */
+        q->light_evals = light_count;
         uint32_t t = b->n++;
         b->idx[t] = i;
         b->px[t] = q->p.x, b->py[t] = q->p.y, b->pz[t] = q->p.z;
@@ -317,9 +319,9 @@ static void view_batch_chunk(const brm_kernel *k, brm_kernel_view_sample *smp, u
         const bool lit = (lights[li] & BRM_KERNEL_LIT) != 0;
         const brm_light *l = &s->lights[index];
         uint32_t m = 0;
-        for (uint32_t t = 0; t < nlive; t++) smp[b->idx[t]].light_evals++;
         /* Falloff and the cosine toward the camera (brm_light_illuminance); on[] holds live
-         * sample numbers from here on. */
+         * sample numbers from here on. The lists are compacted without branches: every slot is
+         * written, and the count moves on only for the samples kept. */
         if (l->type == BRM_LIGHT_DIRECTIONAL) {
             const brm_vec3 to_light = brm_scale(l->direction, -1.0);
             const double e0 = l->illuminance_lux;
@@ -333,9 +335,8 @@ static void view_batch_chunk(const brm_kernel *k, brm_kernel_view_sample *smp, u
         } else {
             st->falloff(l, b, E, CV);
             for (uint32_t t = 0; t < nlive; t++) {
-                if (E[t] <= 0.0) continue;
                 on[m] = t, e[m] = E[t], cv[m] = CV[t];
-                m++;
+                m += !(E[t] <= 0.0);
             }
         }
         /* Map visibility (skipped for a light the maps called lit over the whole tile). */
@@ -343,9 +344,8 @@ static void view_batch_chunk(const brm_kernel *k, brm_kernel_view_sample *smp, u
             uint32_t m2 = 0;
             for (uint32_t t = 0; t < m; t++) {
                 double v = brm_shadow_visibility(k->shadows, index, smp[b->idx[on[t]]].p);
-                if (v <= 0.0) continue;
                 on[m2] = on[t], e[m2] = e[t] * v, cv[m2] = cv[t];
-                m2++;
+                m2 += !(v <= 0.0);
             }
             m = m2;
         }
@@ -353,9 +353,8 @@ static void view_batch_chunk(const brm_kernel *k, brm_kernel_view_sample *smp, u
         uint32_t m2 = 0;
         for (uint32_t t = 0; t < m; t++) {
             double ee = e[t] * brm_shadow_transmittance(k->shadows, index, smp[b->idx[on[t]]].p);
-            if (ee <= 0.0) continue;
             on[m2] = on[t], e[m2] = ee, cv[m2] = cv[t];
-            m2++;
+            m2 += !(ee <= 0.0);
         }
         m = m2;
         if (m == 0) continue;
@@ -443,6 +442,7 @@ static void iso_batch_chunk(const brm_kernel *k, brm_kernel_iso_sample *smp, uin
         memset(q->inscatter, 0, sizeof q->inscatter);
         memset(q->dir, 0, sizeof q->dir);
         if (mp[i].sigma_s.x <= 0.0 && mp[i].sigma_s.y <= 0.0 && mp[i].sigma_s.z <= 0.0) continue;
+        q->light_evals = light_count; /* as in view_batch_chunk */
         uint32_t t = b->n++;
         b->idx[t] = i;
         b->px[t] = q->p.x, b->py[t] = q->p.y, b->pz[t] = q->p.z;
@@ -458,7 +458,6 @@ static void iso_batch_chunk(const brm_kernel *k, brm_kernel_iso_sample *smp, uin
         const bool directional = l->type == BRM_LIGHT_DIRECTIONAL;
         const brm_vec3 sun = brm_scale(l->direction, -1.0);
         uint32_t m = 0;
-        for (uint32_t t = 0; t < nlive; t++) smp[b->idx[t]].light_evals++;
         if (directional) {
             const double e0 = l->illuminance_lux;
             if (e0 <= 0.0) continue;
@@ -466,18 +465,16 @@ static void iso_batch_chunk(const brm_kernel *k, brm_kernel_iso_sample *smp, uin
         } else {
             st->falloff(l, b, E, CV);
             for (uint32_t t = 0; t < nlive; t++) {
-                if (E[t] <= 0.0) continue;
                 on[m] = t, e[m] = E[t];
-                m++;
+                m += !(E[t] <= 0.0);
             }
         }
         if (!lit) {
             uint32_t m2 = 0;
             for (uint32_t t = 0; t < m; t++) {
                 double v = brm_shadow_visibility(k->shadows, index, smp[b->idx[on[t]]].p);
-                if (v <= 0.0) continue;
                 on[m2] = on[t], e[m2] = e[t] * v;
-                m2++;
+                m2 += !(v <= 0.0);
             }
             m = m2;
         }
