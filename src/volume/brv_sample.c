@@ -398,6 +398,17 @@ static brv_result trilinear(brv_sampler *s, const double u[3], float *out)
 }
 
 #if defined(__SSE2__)
+/* lerp8 of one channel with the corners in two vectors, a = (p0, p2, p4, p6) and b = (p1, p3,
+ * p5, p7): the same operations lane by lane (x, then y, then z), so the same bits. */
+static inline float lerp8_lanes(__m128 a, __m128 b, const float t[3])
+{
+    __m128 x = _mm_add_ps(a, _mm_mul_ps(_mm_set1_ps(t[0]), _mm_sub_ps(b, a))); /* x00 x10 x01 x11 */
+    __m128 lo = _mm_shuffle_ps(x, x, _MM_SHUFFLE(2, 0, 2, 0)), hi = _mm_shuffle_ps(x, x, _MM_SHUFFLE(3, 1, 3, 1));
+    __m128 y = _mm_add_ps(lo, _mm_mul_ps(_mm_set1_ps(t[1]), _mm_sub_ps(hi, lo))); /* y0 y1 */
+    __m128 y1 = _mm_shuffle_ps(y, y, _MM_SHUFFLE(1, 1, 1, 1));
+    return _mm_cvtss_f32(_mm_add_ss(y, _mm_mul_ss(_mm_set_ss(t[2]), _mm_sub_ss(y1, y))));
+}
+
 /* The eight corners of a sample in one slot: cell at, neighbours ox, oy, oz elements on (0 for
  * a neighbour of weight 0), every channel: float slots, and halves whose channel count is not
  * a multiple of four (the rest one by one). As trilinear computes them, so the same bits. */
@@ -416,14 +427,12 @@ BRV_NOINLINE static void corners_any(const brv_sampler *s, const slot *sl, size_
                 p[k] = _mm_mul_ps(halves4(_mm_loadl_epi64((const __m128i *)(const void *)(h + off[k]))), sc);
             _mm_storeu_ps(out + c, lerp8_4(p, tx, ty, tz));
         }
-        for (; c < nc; c++) {
+        for (; c < nc; c++) { /* one channel: the eight corners in the lanes of one vector */
             const uint16_t *h = h0 + c;
-            float sc = sl->scale[c];
-            float q[8] = {brv_f16_to_f32(h[0]) * sc,           brv_f16_to_f32(h[ox]) * sc,
-                          brv_f16_to_f32(h[oy]) * sc,          brv_f16_to_f32(h[oy + ox]) * sc,
-                          brv_f16_to_f32(h[oz]) * sc,          brv_f16_to_f32(h[oz + ox]) * sc,
-                          brv_f16_to_f32(h[oz + oy]) * sc,     brv_f16_to_f32(h[oz + oy + ox]) * sc};
-            out[c] = lerp8(q, t);
+            __m128i hv = _mm_set_epi16((short)h[oz + oy + ox], (short)h[oz + ox], (short)h[oy + ox], (short)h[ox],
+                                       (short)h[oz + oy], (short)h[oz], (short)h[oy], (short)h[0]);
+            __m128 sc = _mm_set1_ps(sl->scale[c]);
+            out[c] = lerp8_lanes(_mm_mul_ps(halves4(hv), sc), _mm_mul_ps(halves4(_mm_srli_si128(hv, 8)), sc), t);
         }
         return;
     }
@@ -442,8 +451,7 @@ BRV_NOINLINE static void corners_any(const brv_sampler *s, const slot *sl, size_
     }
     for (; c < nc; c++) {
         const float *q = f0 + c;
-        float v[8] = {q[0], q[ox], q[oy], q[oy + ox], q[oz], q[oz + ox], q[oz + oy], q[oz + oy + ox]};
-        out[c] = lerp8(v, t);
+        out[c] = lerp8_lanes(_mm_set_ps(q[oz + oy], q[oz], q[oy], q[0]), _mm_set_ps(q[oz + oy + ox], q[oz + ox], q[oy + ox], q[ox]), t);
     }
 }
 
@@ -472,6 +480,21 @@ static inline brv_result trilinear_fast(brv_sampler *s, const double u[3], float
         /* Corners in several bricks (about one sample in five with bricks of 16): four halves
          * a corner, each converted as soon as its brick is fetched (a later fetch may evict
          * it), in trilinear's order; anything else is trilinear's. */
+        if (s->nc == 1) { /* one channel, halves or floats: a value a corner */
+            float v[8];
+            for (int k = 0; k < 8; k++) {
+                uint32_t x = f[0] + (k & 1) * d[0], y = f[1] + ((k >> 1) & 1) * d[1], z = f[2] + (k >> 2) * d[2];
+                const slot *cs;
+                brv_result r = fetch(s, (x >> sh) + g->bricks[0] * ((y >> sh) + g->bricks[1] * (z >> sh)), &cs);
+                if (r != BRV_OK) return r;
+                size_t at = (size_t)(x & mask) + cs->sy * (y & mask) + cs->sz * (z & mask);
+                if (s->half && cs->special) return trilinear(s, u, out);
+                v[k] = s->half ? brv_f16_to_f32(((const uint16_t *)cs->data)[at]) * cs->scale[0]
+                               : ((const float *)cs->data)[at];
+            }
+            out[0] = lerp8(v, t);
+            return BRV_OK;
+        }
         if (!s->half || s->nc != 4) return trilinear(s, u, out);
         __m128 p[8];
         for (int k = 0; k < 8; k++) {

@@ -1,7 +1,6 @@
 /* Prints hashes of everything the reader computes with vector code — decoded floats and
- * halves of every encoding, and trilinear samples (every channel, subsets of two, four and
- * eight channels — the SSE2 build's shorter path for halves four channels at a time — and the
- * batch call) —
+ * halves of every encoding, and trilinear samples (every channel, subsets of one, two, four
+ * and eight channels — the SSE2 build's shorter paths — and the batch call) —
  * so that the test volume_scalar_paths can hold the SSE2 build and the portable scalar build
  * (-U__SSE2__) of the same sources to the same bits. Invented smooth data, for tests only. */
 #include <stdio.h>
@@ -61,11 +60,13 @@ int main(void)
         }
         brv_decoder_free(dec);
         free(bf);
-        brv_sampler *s, *part, *four, *eight;
+        brv_sampler *s, *part, *four, *eight, *single;
         static const uint32_t pick[2] = {3, 0}, pick4[4] = {4, 0, 2, 1}, pick8[8] = {0, 1, 2, 3, 4, 3, 1, 2};
+        static const uint32_t pick1[1] = {2};
         if (brv_sampler_create(v, 4, &s) != BRV_OK || brv_sampler_create_channels(v, 0, pick, 2, &part) != BRV_OK ||
             brv_sampler_create_channels(v, 3, pick4, 4, &four) != BRV_OK ||
-            brv_sampler_create_channels(v, 0, pick8, 8, &eight) != BRV_OK)
+            brv_sampler_create_channels(v, 0, pick8, 8, &eight) != BRV_OK ||
+            brv_sampler_create_channels(v, 2, pick1, 1, &single) != BRV_OK)
             return 1;
         enum { M = 5000 };
         double *pts = malloc(sizeof(double) * 3 * M);
@@ -74,11 +75,12 @@ int main(void)
         for (int i = 0; i < 3 * M; i++) pts[i] = -2.0 + 8.0 * rand() / (double)RAND_MAX;
         unsigned long long hs = 1469598103934665603ull;
         for (int i = 0; i < M; i++) {
-            float o[5], q[2], q4[4], q8[8];
+            float o[5], q[2], q4[4], q8[8], q1[1];
             if (brv_sample_world(s, pts + 3 * i, o) != BRV_OK || brv_sample_world(part, pts + 3 * i, q) != BRV_OK ||
-                brv_sample_world(four, pts + 3 * i, q4) != BRV_OK || brv_sample_world(eight, pts + 3 * i, q8) != BRV_OK)
+                brv_sample_world(four, pts + 3 * i, q4) != BRV_OK || brv_sample_world(eight, pts + 3 * i, q8) != BRV_OK ||
+                brv_sample_world(single, pts + 3 * i, q1) != BRV_OK)
                 return 1;
-            hs = fnv(fnv(fnv(fnv(hs, o, sizeof o), q, sizeof q), q4, sizeof q4), q8, sizeof q8);
+            hs = fnv(fnv(fnv(fnv(fnv(hs, o, sizeof o), q, sizeof q), q4, sizeof q4), q8, sizeof q8), q1, sizeof q1);
         }
         if (brv_sample_world_batch(s, M, pts, out) != BRV_OK) return 1;
         if (brv_sample_world_batch(four, M, pts, out4) != BRV_OK) return 1;
@@ -89,6 +91,7 @@ int main(void)
         brv_sampler_free(part);
         brv_sampler_free(four);
         brv_sampler_free(eight);
+        brv_sampler_free(single);
         free(pts);
         free(out);
         free(out4);
