@@ -313,7 +313,8 @@ static void view_batch_chunk(const brm_kernel *k, brm_kernel_view_sample *smp, u
         }
     uint32_t on[BATCH_CHUNK];
     double E[BATCH_CHUNK], CV[BATCH_CHUNK], e[BATCH_CHUNK], cv[BATCH_CHUNK];
-    double spx[BATCH_CHUNK], spy[BATCH_CHUNK], spz[BATCH_CHUNK];
+    double spx[BATCH_CHUNK], spy[BATCH_CHUNK], spz[BATCH_CHUNK], tr[BATCH_CHUNK];
+    brm_vec3 pts[BATCH_CHUNK];
     for (uint32_t li = 0; li < light_count; li++) {
         const uint32_t index = lights[li] & ~BRM_KERNEL_LIT;
         const bool lit = (lights[li] & BRM_KERNEL_LIT) != 0;
@@ -349,10 +350,13 @@ static void view_batch_chunk(const brm_kernel *k, brm_kernel_view_sample *smp, u
             }
             m = m2;
         }
-        /* Transmittance toward the light. */
+        /* Transmittance toward the light, for the samples still lit all at once (the batch
+         * lookup gives brm_shadow_transmittance's bits). */
+        for (uint32_t t = 0; t < m; t++) pts[t] = smp[b->idx[on[t]]].p;
+        brm_shadow_transmittance_batch(k->shadows, index, pts, m, tr);
         uint32_t m2 = 0;
         for (uint32_t t = 0; t < m; t++) {
-            double ee = e[t] * brm_shadow_transmittance(k->shadows, index, smp[b->idx[on[t]]].p);
+            double ee = e[t] * tr[t];
             on[m2] = on[t], e[m2] = ee, cv[m2] = cv[t];
             m2 += !(ee <= 0.0);
         }
@@ -450,7 +454,8 @@ static void iso_batch_chunk(const brm_kernel *k, brm_kernel_iso_sample *smp, uin
     }
     const uint32_t nlive = b->n;
     uint32_t on[BATCH_CHUNK];
-    double E[BATCH_CHUNK], CV[BATCH_CHUNK], e[BATCH_CHUNK];
+    double E[BATCH_CHUNK], CV[BATCH_CHUNK], e[BATCH_CHUNK], tr[BATCH_CHUNK];
+    brm_vec3 pts[BATCH_CHUNK];
     for (uint32_t li = 0; li < light_count; li++) {
         const uint32_t index = lights[li] & ~BRM_KERNEL_LIT;
         const bool lit = (lights[li] & BRM_KERNEL_LIT) != 0;
@@ -478,11 +483,13 @@ static void iso_batch_chunk(const brm_kernel *k, brm_kernel_iso_sample *smp, uin
             }
             m = m2;
         }
+        for (uint32_t t = 0; t < m; t++) pts[t] = smp[b->idx[on[t]]].p;
+        brm_shadow_transmittance_batch(k->shadows, index, pts, m, tr);
         const double col[3] = {l->color.x, l->color.y, l->color.z};
         for (uint32_t t = 0; t < m; t++) {
             const uint32_t i = b->idx[on[t]];
             brm_kernel_iso_sample *q = &smp[i];
-            double ee = e[t] * brm_shadow_transmittance(k->shadows, index, q->p);
+            double ee = e[t] * tr[t];
             if (ee <= 0.0) continue;
             /* As in kernel_eval: a light's projection onto Y_lm is e·Y_lm(toward the light). */
             const double rgb[3] = {ee * col[0], ee * col[1], ee * col[2]};
