@@ -64,9 +64,9 @@ int main(void)
         static const uint32_t pick[2] = {3, 0}, pick4[4] = {4, 0, 2, 1}, pick8[8] = {0, 1, 2, 3, 4, 3, 1, 2};
         static const uint32_t pick1[1] = {2};
         if (brv_sampler_create(v, 4, &s) != BRV_OK || brv_sampler_create_channels(v, 0, pick, 2, &part) != BRV_OK ||
-            brv_sampler_create_channels(v, 3, pick4, 4, &four) != BRV_OK ||
+            brv_sampler_create_channels(v, 6, pick4, 4, &four) != BRV_OK ||
             brv_sampler_create_channels(v, 0, pick8, 8, &eight) != BRV_OK ||
-            brv_sampler_create_channels(v, 2, pick1, 1, &single) != BRV_OK)
+            brv_sampler_create_channels(v, 6, pick1, 1, &single) != BRV_OK)
             return 1;
         enum { M = 5000 };
         double *pts = malloc(sizeof(double) * 3 * M);
