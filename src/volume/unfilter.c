@@ -406,14 +406,14 @@ __attribute__((target("avx2"))) static size_t f32_avx2_rows16(const uint8_t *res
 
 static int have_avx2(void) { return __builtin_cpu_supports("avx2"); }
 
-/* AVX-512 (F and BW, chosen at run time): four rows of 16 cells at a time. A 64-byte load of
- * a byte plane holds those rows' bytes one row per 128-bit lane, so the in-lane unpacks merge
- * the planes of four rows at once, as the AVX2 code does for two; the prefix sum within each
- * group of four words takes one shift and one masked add of a lane broadcast (no mask and
- * unpack), the carries between the groups three broadcasts; a 4 x 4 transpose of 128-bit lanes
- * (eight shuffles) puts the words back in row order. Half the shuffles a word of the AVX2
- * code (23 for 64 words instead of 32), the same sums modulo 2^32 of the same words, so the
- * same bits. Rows left over (fewer than four) are the AVX2 code's. */
+/* AVX-512 (F and BW, chosen at run time, see have_avx512): four rows of 16 cells at a time.
+ * A 64-byte load of a byte plane holds those rows' bytes one row per 128-bit lane, so the
+ * in-lane unpacks merge the planes of four rows at once, as the AVX2 code does for two; the
+ * prefix sum within each group of four words takes one shift and one masked add of a lane
+ * broadcast (no mask and unpack), the carries between the groups three broadcasts; a 4 x 4
+ * transpose of 128-bit lanes (eight shuffles) puts the words back in row order. Half the
+ * shuffles a word of the AVX2 code (23 for 64 words instead of 32), the same sums modulo 2^32
+ * of the same words, so the same bits. Rows left over (fewer than four) are the AVX2 code's. */
 __attribute__((target("avx512f,avx512bw"))) static size_t f32_avx512_rows16(const uint8_t *restrict src, size_t n,
                                                                            float *restrict out, int nt)
 {
@@ -466,7 +466,14 @@ __attribute__((target("avx512f,avx512bw"))) static size_t f32_avx512_rows16(cons
     return row;
 }
 
-static int have_avx512(void) { return __builtin_cpu_supports("avx512f") && __builtin_cpu_supports("avx512bw"); }
+/* AVX-512 only where the processor also has VBMI2 (Intel from Ice Lake on, AMD from Zen 4
+ * on): older ones lower their clock for a while after 512-bit instructions (from memory), which
+ * would slow the zstd work between these short bursts more than the bursts gain. */
+static int have_avx512(void)
+{
+    return __builtin_cpu_supports("avx512f") && __builtin_cpu_supports("avx512bw") &&
+           __builtin_cpu_supports("avx512vbmi2");
+}
 
 /* cells4_sse2 with AVX2, two rows at a time (row r in each vector's low 128-bit lane, row
  * r + 1 in its high lane, so every in-lane step is the SSE2 code's on two rows); the lanes are
