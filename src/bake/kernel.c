@@ -5,6 +5,7 @@
 #include "base/sh.h"
 #include "scene/light.h"
 #include "scene/phase.h"
+#include "shadow/shadowmap.h"
 #include "shadow/sky.h"
 
 /* iso: fill inscatter and dir (the view-independent outputs). */
@@ -342,9 +343,11 @@ static void view_batch_chunk(const brm_kernel *k, brm_kernel_view_sample *smp, u
         }
         /* Map visibility (skipped for a light the maps called lit over the whole tile). */
         if (!lit) {
+            for (uint32_t t = 0; t < m; t++) pts[t] = smp[b->idx[on[t]]].p;
+            brm_shadow_visibility_batch(k->shadows, index, pts, m, tr);
             uint32_t m2 = 0;
             for (uint32_t t = 0; t < m; t++) {
-                double v = brm_shadow_visibility(k->shadows, index, smp[b->idx[on[t]]].p);
+                double v = tr[t];
                 on[m2] = on[t], e[m2] = e[t] * v, cv[m2] = cv[t];
                 m2 += !(v <= 0.0);
             }
@@ -475,9 +478,11 @@ static void iso_batch_chunk(const brm_kernel *k, brm_kernel_iso_sample *smp, uin
             }
         }
         if (!lit) {
+            for (uint32_t t = 0; t < m; t++) pts[t] = smp[b->idx[on[t]]].p;
+            brm_shadow_visibility_batch(k->shadows, index, pts, m, tr);
             uint32_t m2 = 0;
             for (uint32_t t = 0; t < m; t++) {
-                double v = brm_shadow_visibility(k->shadows, index, smp[b->idx[on[t]]].p);
+                double v = tr[t];
                 on[m2] = on[t], e[m2] = e[t] * v;
                 m2 += !(v <= 0.0);
             }

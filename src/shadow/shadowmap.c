@@ -13,6 +13,7 @@
 
 #include "scene/light.h"
 #include "shadow/shadow_internal.h"
+#include "shadow/shadowmap.h"
 
 /* Depth bias, in texels (the world size of a texel at the occluder): 0.05 for rounding plus
  * half a texel per unit of tan(angle between the surface normal and the light ray) — the
@@ -480,22 +481,31 @@ void brm_shadowmap_raster_rows(const brm_scene *s, shadow_view *v, uint32_t row0
 /* Percentage-closer filtering: the fraction of the square of half-width r texels around p's
  * texel position whose texels do not hide p, each texel weighted by its overlap with the
  * square (a box filter over nearest-texel comparisons: bilinear weights at r = 0.5, and
- * continuous in p for any r). Texels outside the map count as lit. */
-double brm_shadowmap_pcf(const shadow_view *v, brm_vec3 p, double r)
+ * continuous in p for any r). Texels outside the map count as lit.
+ * In three steps, so a batch can run each over all its points before the next (below): where
+ * p falls and its footprint; the tile ranges; the texels themselves. */
+typedef struct pcf_at {
+    double z, x0, x1, y0, y1;       /* depth compared, footprint square in texels */
+    int64_t i0, i1, j0, j1;         /* its texels, clipped to the map */
+} pcf_at;
+
+/* 1 with *val the lookup's answer when p lies behind the view's near plane or its footprint
+ * off the map; else 0 with *a set. */
+static inline int pcf_prepare(const shadow_view *v, brm_vec3 p, double r, pcf_at *a, double *val)
 {
     brm_vec3 d = to_view(v, p);
     double z;
     if (v->kind == BRM_VIEW_ORTHO) {
         z = d.z - v->z_near;
     } else {
-        if (d.z <= v->z_near) return 1.0;
+        if (d.z <= v->z_near) return *val = 1.0, 1;
         z = d.z;
         d.x /= d.z, d.y /= d.z;
     }
     double X = (d.x - v->lo[0]) / v->texel, Y = (d.y - v->lo[1]) / v->texel;
     double x0 = X - r, x1 = X + r, y0 = Y - r, y1 = Y + r;
     double res = (double)v->res;
-    if (x1 <= 0.0 || y1 <= 0.0 || x0 >= res || y0 >= res) return 1.0;
+    if (x1 <= 0.0 || y1 <= 0.0 || x0 >= res || y0 >= res) return *val = 1.0, 1;
     /* floor(max(x0, 0)) and ceil(min(x1, res)) − 1 without library calls: here x0 < res and
      * x1 > 0, so both arguments lie in [0, res], where truncation is floor and one more where
      * it falls short is ceil (a NaN coordinate takes the same ends as fmax and fmin give). */
@@ -504,25 +514,38 @@ double brm_shadowmap_pcf(const shadow_view *v, brm_vec3 p, double r)
     int64_t i0 = (int64_t)cx0, j0 = (int64_t)cy0;
     int64_t i1 = (int64_t)cx1, j1 = (int64_t)cy1;
     i1 += (double)i1 < cx1, j1 += (double)j1 < cy1;
-    i1 -= 1, j1 -= 1;
-    /* The depth ranges of the tiles under the footprint first (a small table that stays in
-     * cache, where the map itself mostly does not): no texel of theirs hides p, or every one
-     * does, decides the lookup without reading the map — the same answer the comparisons
-     * below would give, so the same bits. */
-    if (v->tile_min) {
-        const uint32_t T = BRM_SHADOW_TILE;
-        uint32_t ti0 = (uint32_t)i0 / T, ti1 = (uint32_t)i1 / T, tj0 = (uint32_t)j0 / T, tj1 = (uint32_t)j1 / T;
-        float lo = INFINITY, hi = -INFINITY;
-        for (uint32_t tj = tj0; tj <= tj1; tj++)
-            for (uint32_t ti = ti0; ti <= ti1; ti++) {
-                /* fminf and fmaxf (lo and hi are never NaN; a NaN entry leaves them) */
-                const float a = v->tile_min[tj * v->tiles + ti], b = v->tile_max[tj * v->tiles + ti];
-                if (a < lo) lo = a;
-                if (b > hi) hi = b;
-            }
-        if (z <= (double)lo) return 1.0;
-        if (z > (double)hi && x0 >= 0.0 && y0 >= 0.0 && x1 <= res && y1 <= res) return 0.0;
-    }
+    a->z = z, a->x0 = x0, a->x1 = x1, a->y0 = y0, a->y1 = y1;
+    a->i0 = i0, a->i1 = i1 - 1, a->j0 = j0, a->j1 = j1 - 1;
+    return 0;
+}
+
+/* The depth ranges of the tiles under the footprint (a small table that stays in cache, where
+ * the map itself mostly does not): no texel of theirs hides p, or every one does, decides the
+ * lookup without reading the map — the same answer the comparisons of pcf_texels would give,
+ * so the same bits. 1 with *val when decided. */
+static inline int pcf_tiles(const shadow_view *v, const pcf_at *a, double *val)
+{
+    if (!v->tile_min) return 0;
+    const uint32_t T = BRM_SHADOW_TILE;
+    uint32_t ti0 = (uint32_t)a->i0 / T, ti1 = (uint32_t)a->i1 / T, tj0 = (uint32_t)a->j0 / T, tj1 = (uint32_t)a->j1 / T;
+    float lo = INFINITY, hi = -INFINITY;
+    for (uint32_t tj = tj0; tj <= tj1; tj++)
+        for (uint32_t ti = ti0; ti <= ti1; ti++) {
+            /* fminf and fmaxf (lo and hi are never NaN; a NaN entry leaves them) */
+            const float ta = v->tile_min[tj * v->tiles + ti], tb = v->tile_max[tj * v->tiles + ti];
+            if (ta < lo) lo = ta;
+            if (tb > hi) hi = tb;
+        }
+    const double res = (double)v->res;
+    if (a->z <= (double)lo) return *val = 1.0, 1;
+    if (a->z > (double)hi && a->x0 >= 0.0 && a->y0 >= 0.0 && a->x1 <= res && a->y1 <= res) return *val = 0.0, 1;
+    return 0;
+}
+
+static double pcf_texels(const shadow_view *v, const pcf_at *a, double r)
+{
+    const double z = a->z, x0 = a->x0, x1 = a->x1, y0 = a->y0, y1 = a->y1, res = (double)v->res;
+    const int64_t i0 = a->i0, i1 = a->i1, j0 = a->j0, j1 = a->j1;
     /* First the comparisons alone: a footprint all lit (the common case) or all shadowed
      * inside the map needs no weights, and gives what the weighted sum would (exactly 1;
      * 0 after the snap below). */
@@ -551,6 +574,46 @@ double brm_shadowmap_pcf(const shadow_view *v, brm_vec3 p, double r)
     /* The overlaps sum to the square's area up to rounding: snap the ends to exact 0 and 1. */
     double lit = 1.0 - shadowed / (4.0 * r * r);
     return lit < 1e-12 ? 0.0 : lit > 1.0 - 1e-12 ? 1.0 : lit;
+}
+
+double brm_shadowmap_pcf(const shadow_view *v, brm_vec3 p, double r)
+{
+    pcf_at a;
+    double val;
+    if (pcf_prepare(v, p, r, &a, &val) || pcf_tiles(v, &a, &val)) return val;
+    return pcf_texels(v, &a, r);
+}
+
+void brm_shadow_visibility_batch(const brm_shadow_set *ss, uint32_t l, const brm_vec3 *p, uint32_t n, double *out)
+{
+    const light_shadow *ls = &ss->lights[l];
+    if (!ss->scene->lights[l].shadow || ss->scene->object_count == 0 || ss->opts.reference || !ls->has_map) {
+        for (uint32_t i = 0; i < n; i++) out[i] = brm_shadow_visibility(ss, l, p[i]);
+        return;
+    }
+    /* brm_shadow_visibility's own path, step by step over a chunk of points: their divisions
+     * and tile reads overlap instead of waiting on each other. */
+    enum { CHUNK = 64 };
+    const double r = ls->softness;
+    pcf_at at[CHUNK];
+    const shadow_view *view[CHUNK];
+    uint32_t left[CHUNK];
+    for (uint32_t c0 = 0; c0 < n; c0 += CHUNK) {
+        const uint32_t m = n - c0 < CHUNK ? n - c0 : CHUNK;
+        uint32_t k = 0;
+        for (uint32_t i = 0; i < m; i++) {
+            view[i] = brm_shadow_pick_view(ls, p[c0 + i]);
+            left[k] = i;
+            k += !pcf_prepare(view[i], p[c0 + i], r, &at[i], &out[c0 + i]);
+        }
+        uint32_t k2 = 0;
+        for (uint32_t t = 0; t < k; t++) {
+            const uint32_t i = left[t];
+            left[k2] = i;
+            k2 += !pcf_tiles(view[i], &at[i], &out[c0 + i]);
+        }
+        for (uint32_t t = 0; t < k2; t++) out[c0 + left[t]] = pcf_texels(view[left[t]], &at[left[t]], r);
+    }
 }
 
 /* ---- whole boxes at once -------------------------------------------------------------------- */

@@ -12,6 +12,7 @@
 #include "scene/light.h"
 #include "scene/phase.h"
 #include "shadow/shadow_internal.h"
+#include "shadow/shadowmap.h"
 #include "shadow/sky.h"
 
 static void phase_prepared_should_give_the_bits_of_phase_eval(void **state)
@@ -146,7 +147,7 @@ static void sky_cursor_should_give_the_bits_of_single_lookups(void **state)
     brm_scene_free(s);
 }
 
-static void pcf_tile_ranges_should_not_change_a_lookup(void **state)
+static void pcf_tile_ranges_and_batches_should_not_change_a_lookup(void **state)
 {
     (void)state;
     brm_scene *s = load_json(room_json);
@@ -176,6 +177,15 @@ static void pcf_tile_ranges_should_not_change_a_lookup(void **state)
     }
     assert_int_equal(views, 1 + 6 + 1);
     assert_true(lit > 1000 && hidden > 1000 && partial > 50);
+    /* The batch call: brm_shadow_visibility's values point by point (chunks of 64 and a tail). */
+    enum { NB = 3000 + 37 };
+    static brm_vec3 pts[NB];
+    static double vb[NB];
+    for (uint32_t i = 0; i < NB; i++) pts[i] = cluster_point(i);
+    for (uint32_t l = 0; l < s->light_count; l++) {
+        brm_shadow_visibility_batch(ss, l, pts, NB, vb);
+        for (uint32_t i = 0; i < NB; i++) assert_true(vb[i] == brm_shadow_visibility(ss, l, pts[i]));
+    }
     brm_shadows_free(ss);
     brm_scene_free(s);
 }
@@ -290,7 +300,7 @@ int main(void)
         cmocka_unit_test(phase_prepared_should_give_the_bits_of_phase_eval),
         cmocka_unit_test(local_falloff_should_give_the_bits_of_the_light_call),
         cmocka_unit_test(sky_cursor_should_give_the_bits_of_single_lookups),
-        cmocka_unit_test(pcf_tile_ranges_should_not_change_a_lookup),
+        cmocka_unit_test(pcf_tile_ranges_and_batches_should_not_change_a_lookup),
         cmocka_unit_test(tile_ranges_should_be_the_extremes_of_their_texels),
         cmocka_unit_test(view_batch_over_clusters_should_give_the_bits_of_single_samples),
         cmocka_unit_test(iso_batch_over_clusters_should_give_the_bits_of_single_samples),
