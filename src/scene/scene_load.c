@@ -274,7 +274,7 @@ static bool int_in(loader *L, const cJSON *obj, const char *path, const char *ke
     }
     char p[600];
     join(p, sizeof p, path, key);
-    double x;
+    double x = 0.0;
     if (!as_number(L, v, p, &x)) return false;
     if (x != floor(x)) return FAIL(L, p, "value %g is not a whole number; expected an integer %lld..%lld", x, (long long)lo, (long long)hi);
     if (x < (double)lo || x > (double)hi)
@@ -1030,7 +1030,7 @@ static bool cells3(loader *L, const cJSON *t, const char *path, uint32_t cells[3
     double total = 1.0;
     for (const cJSON *x = v->child; x; x = x->next, i++) {
         join_index(e, sizeof e, p, i);
-        double c;
+        double c = 0.0;
         if (!as_number(L, x, e, &c)) return false;
         if (c != floor(c) || c < 1 || c > MAX_CELLS_AXIS)
             return FAIL(L, e, "cell count %g is out of range; expected an integer 1..%u", c, MAX_CELLS_AXIS);
@@ -1220,7 +1220,7 @@ static bool load_root(loader *L, cJSON *root)
     if (!check_keys(L, root, "", keys)) return false;
     const cJSON *ver = item(root, "brume");
     if (!ver) return FAIL(L, "", "missing key \"brume\"; expected \"brume\": 1 (the scene format version)");
-    double vv;
+    double vv = 0.0;
     if (!as_number(L, ver, "brume", &vv)) return false;
     if (vv != 1.0) return FAIL(L, "brume", "unsupported scene version %g; this brume reads version 1", vv);
     if (!valid_name(L, root, "", s->name)) return false;

@@ -97,7 +97,7 @@ static void slice_should_write_an_oriented_pfm_from_a_volume(void **state)
     (void)state;
     assert_int_equal(run(WORLD, "--channel", "extinction", "--axis", "x", "--index", "3", "-o",
                          "view_cmd_x3.pfm", NULL), 0);
-    size_t len;
+    size_t len = 0;
     uint8_t *b = slurp("view_cmd_x3.pfm", &len);
     assert_non_null(b);
     parsed_image p;
@@ -117,7 +117,7 @@ static void slice_should_write_a_ppm_whose_cells_carry_their_colours(void **stat
     (void)state;
     assert_int_equal(run(WORLD, "--channel", "extinction", "--axis", "y", "--index", "2", "--range",
                          "0,600", "--scale", "3", "-o", "view_cmd_y2.ppm", NULL), 0);
-    size_t len;
+    size_t len = 0;
     uint8_t *b = slurp("view_cmd_y2.ppm", &len);
     parsed_image p;
     assert_true(parse_header(b, len, &p));
@@ -139,7 +139,7 @@ static void slice_should_make_colour_from_three_channels(void **state)
     (void)state;
     assert_int_equal(run(WORLD, "--channel", "inscatter.r,inscatter.g,inscatter.b", "--axis", "z",
                          "--index", "0", "--exposure", "0", "-o", "view_cmd_rgb.ppm", NULL), 0);
-    size_t len;
+    size_t len = 0;
     uint8_t *b = slurp("view_cmd_rgb.ppm", &len);
     parsed_image p;
     assert_true(parse_header(b, len, &p));
@@ -195,7 +195,7 @@ static void corrupt_volume_should_exit_1_and_keep_the_previous_output(void **sta
                          "-o", "view_cmd_keep.ppm", NULL), BRM_EXIT_INPUT);
     assert_non_null(strstr(err_text, "view_cmd_garbage.brv"));
     /* a truncated copy of a good volume */
-    size_t len;
+    size_t len = 0;
     uint8_t *b = slurp(WORLD, &len);
     f = fopen("view_cmd_trunc.brv", "wb");
     fwrite(b, 1, len / 2, f);
@@ -224,7 +224,7 @@ static void irradiance_should_follow_ramamoorthi_hanrahan(void **state)
     for (int a = 0; a < 3; a++) {
         assert_int_equal(run(PROBES, "--irradiance", axes[a], "--axis", "z", "--index", "1", "-o",
                              "view_cmd_irr.pfm", NULL), 0);
-        size_t len;
+        size_t len = 0;
         uint8_t *b = slurp("view_cmd_irr.pfm", &len);
         parsed_image p;
         assert_true(parse_header(b, len, &p));

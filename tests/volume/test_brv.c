@@ -39,7 +39,7 @@ static void roundtrip_should_return_same_floats_for_f32(void **state)
     (void)state;
     brv_channel_desc ch[2] = {{"extinction", "1/m", BRV_ENCODING_F32}, {"occupancy", "", BRV_ENCODING_F32}};
     brv_write_desc d = fixture_world(37, 21, 18, ch, 2); /* clipped bricks on every axis */
-    size_t size;
+    size_t size = 0;
     uint8_t *buf = write_or_fail(&d, fixture_smooth, NULL, &size);
     brv_volume *v = open_or_fail(buf, size);
     const brv_grid_info *g = brv_grid(v);
@@ -87,7 +87,7 @@ static void roundtrip_should_return_same_halves_for_f16(void **state)
     brv_channel_desc ch[1] = {{"extinction", "1/m", BRV_ENCODING_F16}};
     brv_write_desc d = fixture_world(20, 17, 33, ch, 1);
     d.brick_size = 8;
-    size_t size;
+    size_t size = 0;
     uint8_t *buf = write_or_fail(&d, fixture_smooth, NULL, &size);
     brv_volume *v = open_or_fail(buf, size);
     size_t n = brv_channel_size(v);
@@ -125,7 +125,7 @@ static void every_finite_half_should_come_back_bit_exact(void **state)
     (void)state;
     brv_channel_desc ch[1] = {{"h", "", BRV_ENCODING_F16}};
     brv_write_desc d = fixture_world(70, 30, 32, ch, 1); /* 67200 cells ≥ 63488 finite halves */
-    size_t size;
+    size_t size = 0;
     uint8_t *buf = write_or_fail(&d, every_half, NULL, &size);
     brv_volume *v = open_or_fail(buf, size);
     size_t n = brv_channel_size(v);
@@ -162,7 +162,7 @@ static void f16_and_rgb9e5_should_scale_bright_values_within_bound(void **state)
                               {"scatter.b", "cd/m2", BRV_ENCODING_RGB9E5},
                               {"sun", "cd/m2", BRV_ENCODING_F16}};
     brv_write_desc d = fixture_world(24, 13, 19, ch, 4);
-    size_t size;
+    size_t size = 0;
     uint8_t *buf = write_or_fail(&d, bright_field, NULL, &size);
     brv_volume *v = open_or_fail(buf, size);
     /* 2.75e5 / 65504 needs 2^3 (65504·4 = 262016 is too small); rgb9e5: 65408·4 < 2.75e5 too. */
@@ -289,7 +289,7 @@ static void uniform_bricks_should_cost_bytes_not_kilobytes(void **state)
                               {"occupancy", "", BRV_ENCODING_F32},
                               {"t", "", BRV_ENCODING_F16}};
     brv_write_desc d = fixture_world(64, 64, 64, ch, 3);
-    size_t size;
+    size_t size = 0;
     uint8_t *buf = write_or_fail(&d, zero_field, NULL, &size);
     brv_volume *v = open_or_fail(buf, size);
     const brv_grid_info *g = brv_grid(v);
@@ -310,7 +310,7 @@ static void smooth_f16_should_compress_over_4x_against_raw_halves(void **state)
     (void)state;
     brv_channel_desc ch[1] = {{"extinction", "1/m", BRV_ENCODING_F16}};
     brv_write_desc d = fixture_world(64, 64, 64, ch, 1);
-    size_t size;
+    size_t size = 0;
     uint8_t *buf = write_or_fail(&d, fixture_smooth, NULL, &size);
     double ratio = (64.0 * 64 * 64 * 2) / (double)size;
     print_message("smooth f16: %zu bytes, %.2fx smaller than raw halves\n", size, ratio);
@@ -327,13 +327,13 @@ static void writer_should_give_the_same_bytes_for_the_same_input(void **state)
     brv_write_desc d = fixture_world(30, 9, 20, ch, 2);
     d.metadata = "{\"scene\":\"x\"}";
     d.metadata_len = strlen(d.metadata);
-    size_t s1, s2;
+    size_t s1 = 0, s2 = 0;
     uint8_t *a = write_or_fail(&d, fixture_smooth, NULL, &s1);
     uint8_t *b = write_or_fail(&d, fixture_smooth, NULL, &s2);
     assert_int_equal(s1, s2);
     assert_memory_equal(a, b, s1);
     brv_volume *v = open_or_fail(a, s1);
-    size_t len;
+    size_t len = 0;
     assert_string_equal(brv_metadata(v, &len), "{\"scene\":\"x\"}");
     assert_int_equal(len, 13);
     brv_free(v);
@@ -424,7 +424,7 @@ static size_t writer_peak(uint32_t n, counting *cnt)
     brv_write_desc d = fixture_world(n, n, n, ch, 2);
     brv_allocator a = {count_alloc, count_free, cnt};
     d.alloc = &a;
-    size_t size;
+    size_t size = 0;
     uint8_t *buf = write_or_fail(&d, fixture_smooth, NULL, &size);
     free(buf);
     return cnt->peak;
@@ -448,7 +448,7 @@ static void writer_memory_should_not_grow_with_the_volume(void **state)
 static void open_should_reject_every_truncation(void **state)
 {
     (void)state;
-    size_t size;
+    size_t size = 0;
     uint8_t *buf = small_file(&size);
     float *orig = decode_small(buf, size);
     original_values = orig;
@@ -471,7 +471,7 @@ static void open_should_reject_every_truncation(void **state)
 static void open_should_reject_random_byte_flips(void **state)
 {
     (void)state;
-    size_t size;
+    size_t size = 0;
     uint8_t *buf = small_file(&size);
     uint8_t *mod = malloc(size);
     float *orig = decode_small(buf, size);
@@ -522,7 +522,7 @@ static brv_result open_counting(const uint8_t *buf, size_t size, counting *cnt)
 static void open_should_refuse_hostile_tables_before_allocating(void **state)
 {
     (void)state;
-    size_t size;
+    size_t size = 0;
     uint8_t *buf = small_file(&size), *m = malloc(size + 64);
     uint64_t toff = brv_rd64(buf + 32);
     uint8_t *bt = NULL;
@@ -599,7 +599,7 @@ static void reader_should_skip_a_newer_minors_unknown_encoding(void **state)
     (void)state;
     brv_channel_desc ch[2] = {{"future", "", BRV_ENCODING_F32}, {"extinction", "1/m", BRV_ENCODING_F16}};
     brv_write_desc d = fixture_world(18, 5, 4, ch, 2);
-    size_t size;
+    size_t size = 0;
     uint8_t *buf = write_or_fail(&d, fixture_smooth, NULL, &size);
     uint64_t toff = brv_rd64(buf + 32);
     buf[toff + BRV_TABLES_FIXED + 48] = 9; /* an encoding this reader does not know */
@@ -648,7 +648,7 @@ static uint8_t *golden_bytes(size_t *size)
 static void golden_file_should_read_and_be_reproduced_byte_for_byte(void **state)
 {
     (void)state;
-    size_t size;
+    size_t size = 0;
     uint8_t *mine = golden_bytes(&size);
     const char *regen = getenv("BRV_REGENERATE_GOLDEN");
     if (regen && *regen) { /* BRV_REGENERATE_GOLDEN=path rewrites the file: a format change */
@@ -718,7 +718,7 @@ static void sampling_should_match_direct_evaluation_within_encoding_bound(void *
     for (int kind = BRV_GRID_WORLD; kind <= BRV_GRID_PROBES; kind += 2) {
         brv_write_desc d = fixture_world(23, 19, 35, ch, 2);
         d.kind = (brv_grid_kind)kind;
-        size_t size;
+        size_t size = 0;
         uint8_t *buf = write_or_fail(&d, lin_field, &d, &size);
         brv_volume *v = open_or_fail(buf, size);
         brv_sampler *s;
@@ -799,7 +799,7 @@ static void frustum_sampling_should_interpolate_pixels_and_depth(void **state)
     d.kind = BRV_GRID_FRUSTUM;
     d.slice_depths = depth;
     d.camera = (brv_camera){{0, 1, 0}, {0, 1, -1}, {0, 1, 0}, 60, 16.0 / 9.0, 0.3, 120};
-    size_t size;
+    size_t size = 0;
     uint8_t *buf = write_or_fail(&d, frustum_field, depth, &size);
     brv_volume *v = open_or_fail(buf, size);
     const brv_grid_info *g = brv_grid(v);
@@ -861,7 +861,7 @@ static void distinct_bricks_should_decode_from_two_threads_at_once(void **state)
     (void)state;
     brv_channel_desc ch[2] = {{"a", "", BRV_ENCODING_F16}, {"b", "", BRV_ENCODING_F32}};
     brv_write_desc d = fixture_world(48, 40, 33, ch, 2);
-    size_t size;
+    size_t size = 0;
     uint8_t *buf = write_or_fail(&d, fixture_smooth, NULL, &size);
     brv_volume *v = open_or_fail(buf, size);
     size_t total = brv_brick_size(v) * brv_grid(v)->brick_count;
@@ -974,7 +974,7 @@ static void sampler_should_interpolate_decoded_values_on_every_path(void **state
     for (int vol = 0; vol < 3; vol++) {
         brv_write_desc d = fixture_world(37, 21, 18, vol == 2 ? f32ch : f16ch, 5);
         d.brick_size = 8;
-        size_t size;
+        size_t size = 0;
         uint8_t *buf = write_or_fail(&d, vol == 1 ? same_bright : same_smooth, NULL, &size);
         brv_volume *v = open_or_fail(buf, size);
         const brv_grid_info *g = brv_grid(v);
@@ -1071,7 +1071,7 @@ static void sampler_should_fill_four_f16_channels_directly(void **state)
                                            {"c", "", BRV_ENCODING_F16}, {"d", "", BRV_ENCODING_F16}};
     brv_write_desc d = fixture_world(40, 20, 18, ch, 4); /* x: bricks of 16, 16 and 8 cells */
     d.brick_size = 16;
-    size_t size;
+    size_t size = 0;
     uint8_t *buf = write_or_fail(&d, four_kinds, NULL, &size);
     brv_volume *v = open_or_fail(buf, size);
     const brv_grid_info *g = brv_grid(v);
@@ -1117,7 +1117,7 @@ static void auto_streaming_should_begin_after_a_forward_run_with_the_same_values
 {
     (void)state;
     brv_write_desc d = fixture_world(32, 32, 32, MIXED_CHANNELS, 6); /* 8 full bricks */
-    size_t size;
+    size_t size = 0;
     uint8_t *buf = write_or_fail(&d, bright_field, NULL, &size);
     brv_volume *v = open_or_fail(buf, size);
     size_t per = brv_brick_size(v);
@@ -1193,7 +1193,7 @@ static void streaming_decoder_should_give_the_same_values(void **state)
     (void)state;
     const brv_channel_desc *ch = MIXED_CHANNELS;
     brv_write_desc d = fixture_world(37, 21, 18, ch, 6);
-    size_t size;
+    size_t size = 0;
     uint8_t *buf = write_or_fail(&d, bright_field, NULL, &size);
     brv_volume *v = open_or_fail(buf, size);
     size_t per = brv_brick_size(v);
@@ -1256,7 +1256,7 @@ static void decode_to_halves_should_equal_rounded_floats(void **state)
     const brv_channel_desc *ch = MIXED_CHANNELS;
     for (int bright = 0; bright < 2; bright++) {
         brv_write_desc d = fixture_world(37, 21, 18, ch, 6);
-        size_t size;
+        size_t size = 0;
         uint8_t *buf = write_or_fail(&d, bright ? bright_field : fixture_smooth, NULL, &size);
         brv_volume *v = open_or_fail(buf, size);
         const brv_grid_info *g = brv_grid(v);
@@ -1354,7 +1354,7 @@ static void open_file_should_read_bricks_on_demand(void **state)
     (void)state;
     brv_channel_desc ch[2] = {{"a", "", BRV_ENCODING_F16}, {"b", "", BRV_ENCODING_F32}};
     brv_write_desc d = fixture_world(48, 40, 33, ch, 2);
-    size_t size;
+    size_t size = 0;
     uint8_t *buf = write_or_fail(&d, fixture_smooth, NULL, &size);
     disk_make();
     disk_write(buf, size);
@@ -1410,7 +1410,7 @@ static void open_file_should_read_bricks_on_demand(void **state)
 static void open_file_should_reject_every_truncation_and_flip_on_disk(void **state)
 {
     (void)state;
-    size_t size;
+    size_t size = 0;
     uint8_t *buf = small_file(&size);
     float *orig = decode_small(buf, size);
     original_values = orig;
@@ -1446,7 +1446,7 @@ static void open_file_should_reject_every_truncation_and_flip_on_disk(void **sta
 static void file_changed_after_open_should_be_a_named_fault(void **state)
 {
     (void)state;
-    size_t size;
+    size_t size = 0;
     uint8_t *buf = small_file(&size);
     disk_make();
     disk_write(buf, size);
@@ -1501,7 +1501,7 @@ static void result_texts_should_come_from_one_list(void **state)
 static void sampler_should_allocate_through_the_volume_allocator(void **state)
 {
     (void)state;
-    size_t size;
+    size_t size = 0;
     uint8_t *buf = small_file(&size);
     counting cnt = {0};
     brv_allocator a = {count_alloc, count_free, &cnt};
