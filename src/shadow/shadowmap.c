@@ -11,6 +11,7 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include "base/cpu.h"
 #include "scene/light.h"
 #include "shadow/shadow_internal.h"
 #include "shadow/shadowmap.h"
@@ -282,7 +283,7 @@ static void raster_tri2d(shadow_view *v, uint32_t row0, uint32_t row1, const rve
     }
     bool persp = v->kind == BRM_VIEW_PERSP;
 #if SHADOWMAP_AVX2
-    const bool have_avx2 = __builtin_cpu_supports("avx2");
+    const bool have_avx2 = brm_cpu_avx2();
 #endif
     double qlo = fmin(t[0].q, fmin(t[1].q, t[2].q)), qhi = fmax(t[0].q, fmax(t[1].q, t[2].q));
     bool flat = fabs(area2) < 1e-9;
@@ -627,7 +628,7 @@ int brm_shadowmap_tiles(shadow_view *v)
     if (!v->tile_min || !v->tile_max) return 0;
     v->tiles = n;
 #if SHADOWMAP_AVX2
-    const bool avx2 = T == 16 && __builtin_cpu_supports("avx2");
+    const bool avx2 = T == 16 && brm_cpu_avx2();
 #endif
     for (uint32_t tj = 0; tj < n; tj++)
         for (uint32_t ti = 0; ti < n; ti++) {

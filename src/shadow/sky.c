@@ -8,6 +8,7 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include "base/cpu.h"
 #include "base/lds.h"
 #include "base/sh.h"
 #include "base/threads.h"
@@ -205,7 +206,7 @@ static bool cache_interp(const brm_shadow_set *ss, const sky_cache *c, const int
     }
     if (wsum <= 1e-9) return false;
 #if SKY_AVX2
-    if (__builtin_cpu_supports("avx2")) {
+    if (brm_cpu_avx2()) {
         interp_sum_avx2(n, wk, vk, wsum, out);
         return true;
     }
