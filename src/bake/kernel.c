@@ -282,9 +282,12 @@ static void view_batch_chunk(const brm_kernel *k, brm_kernel_view_sample *smp, u
     b->n = 0;
     b->media_mask = 0;
     b->dense = true;
+    /* The media at every sample at once (brm_media_eval's bits, the noise vectorized). */
+    brm_vec3 pts[BATCH_CHUNK];
+    for (uint32_t i = 0; i < n; i++) pts[i] = smp[i].p;
+    brm_media_eval_batch(s, pts, n, mp);
     for (uint32_t i = 0; i < n; i++) {
         brm_kernel_view_sample *q = &smp[i];
-        brm_media_eval(s, q->p, &mp[i]);
         q->sigma_t = mp[i].sigma_t;
         q->light_evals = 0;
         q->toward_view[0] = q->toward_view[1] = q->toward_view[2] = 0.0;
@@ -315,7 +318,6 @@ static void view_batch_chunk(const brm_kernel *k, brm_kernel_view_sample *smp, u
     uint32_t on[BATCH_CHUNK];
     double E[BATCH_CHUNK], CV[BATCH_CHUNK], e[BATCH_CHUNK], cv[BATCH_CHUNK];
     double spx[BATCH_CHUNK], spy[BATCH_CHUNK], spz[BATCH_CHUNK], tr[BATCH_CHUNK];
-    brm_vec3 pts[BATCH_CHUNK];
     for (uint32_t li = 0; li < light_count; li++) {
         const uint32_t index = lights[li] & ~BRM_KERNEL_LIT;
         const bool lit = (lights[li] & BRM_KERNEL_LIT) != 0;
@@ -441,9 +443,11 @@ static void iso_batch_chunk(const brm_kernel *k, brm_kernel_iso_sample *smp, uin
 {
     const brm_scene *s = k->scene;
     b->n = 0;
+    brm_vec3 pts[BATCH_CHUNK]; /* as in view_batch_chunk */
+    for (uint32_t i = 0; i < n; i++) pts[i] = smp[i].p;
+    brm_media_eval_batch(s, pts, n, mp);
     for (uint32_t i = 0; i < n; i++) {
         brm_kernel_iso_sample *q = &smp[i];
-        brm_media_eval(s, q->p, &mp[i]);
         q->sigma_t = mp[i].sigma_t;
         q->light_evals = 0;
         memset(q->inscatter, 0, sizeof q->inscatter);
@@ -458,7 +462,6 @@ static void iso_batch_chunk(const brm_kernel *k, brm_kernel_iso_sample *smp, uin
     const uint32_t nlive = b->n;
     uint32_t on[BATCH_CHUNK];
     double E[BATCH_CHUNK], CV[BATCH_CHUNK], e[BATCH_CHUNK], tr[BATCH_CHUNK];
-    brm_vec3 pts[BATCH_CHUNK];
     for (uint32_t li = 0; li < light_count; li++) {
         const uint32_t index = lights[li] & ~BRM_KERNEL_LIT;
         const bool lit = (lights[li] & BRM_KERNEL_LIT) != 0;

@@ -36,6 +36,11 @@ struct brm_noise_table {
     uint8_t noise_idx[BRM_MAX_MEDIA];
     double fbm_norm[BRM_MAX_MEDIA];         /* 1 / Σ amplitudes, per medium index */
     uint8_t perm[BRM_MAX_MEDIA][512];       /* per medium index (only noise media filled) */
+    /* For the vectorized fBm of brm_media_eval_batch: the permutation widened to 32 bits (the
+     * gathers' element), and per entry i the gradient of hash perm[i] coded as three 2-bit
+     * indices (g + 1) into {−1, 0, 1}, one per byte (x, y, z). */
+    int32_t perm32[BRM_MAX_MEDIA][512];
+    int32_t gcode[BRM_MAX_MEDIA][512];
 };
 
 /* ---- gradient noise -------------------------------------------------------------------- */
@@ -190,6 +195,11 @@ brm_status brm_media_prepare(brm_scene *s, brm_diag *d)
         if (m->type == BRM_MEDIUM_NOISE) {
             t->noise_idx[t->noise_count++] = (uint8_t)i;
             build_permutation(t->perm[i], m->seed);
+            for (unsigned j = 0; j < 512; j++) {
+                const double *g = grad_tab[t->perm[i][j] & 15u];
+                t->perm32[i][j] = t->perm[i][j];
+                t->gcode[i][j] = (int32_t)(g[0] + 1.0) | (int32_t)(g[1] + 1.0) << 8 | (int32_t)(g[2] + 1.0) << 16;
+            }
             uint32_t oct = m->octaves < 1 ? 1 : m->octaves > 12 ? 12 : m->octaves;
             /* Σ_{o<n} 0.5^o = 2 − 2^{1−n} */
             t->fbm_norm[i] = 1.0 / (2.0 - ldexp(1.0, 1 - (int)oct));
@@ -781,4 +791,223 @@ void brm_media_extinction_points(const brm_scene *s, const brm_noise_grid *g, br
                                  uint32_t n, float *out)
 {
     extinction_batch(s, g, o, d, 0.0, 0.0, t, n, out, 1);
+}
+
+/* ---- exact media at many points ------------------------------------------------------------ */
+
+/* Points per pass of brm_media_eval_batch (its stage arrays live on the stack), padded by up
+ * to three copies of the last point for the four-wide fBm. */
+#define EVAL_CHUNK 128
+
+/* The fBm of noise medium mi (octaves clamped as fbm() clamps them) at the scaled points
+ * (x[j], y[j], z[j]), j < m: out[j] = fbm(t, mi, octaves, (x, y, z)[j]). The arrays hold m
+ * rounded up to four entries. */
+typedef void (*fbm_batch_fn)(const brm_noise_table *t, uint32_t mi, uint32_t octaves, const double *x,
+                             const double *y, const double *z, uint32_t m, double *out);
+
+static void fbm_batch_scalar(const brm_noise_table *t, uint32_t mi, uint32_t octaves, const double *x,
+                             const double *y, const double *z, uint32_t m, double *out)
+{
+    for (uint32_t j = 0; j < m; j++) out[j] = fbm(t, mi, octaves, brm_v3(x[j], y[j], z[j]));
+}
+
+#if (defined(__x86_64__) || defined(__i386__)) && defined(__GNUC__)
+#define EVAL_HAVE_AVX2 1
+#define EVAL_AVX2 __attribute__((target("avx2")))
+
+/* Four points' lattice axis (noise_axis_at): the floor fl as a double (the exact integer
+ * (int)x − (x < (int)x), so x − fl is the scalar x − ix), the cell masked to the period, the
+ * offset and its fade, by the same operations. */
+EVAL_AVX2 static inline void axis4(__m256d x, __m128i *cell, __m256d *t, __m256d *fd)
+{
+    const __m256d tr = _mm256_cvtepi32_pd(_mm256_cvttpd_epi32(x));
+    const __m256d fl = _mm256_add_pd(tr, _mm256_and_pd(_mm256_cmp_pd(x, tr, _CMP_LT_OQ), _mm256_set1_pd(-1.0)));
+    *cell = _mm_and_si128(_mm256_cvttpd_epi32(fl), _mm_set1_epi32(255));
+    const __m256d a = _mm256_sub_pd(x, fl);
+    /* fade: a·a·a·(a·(a·6 − 15) + 10), left to right as in C */
+    const __m256d inner = _mm256_add_pd(
+        _mm256_mul_pd(a, _mm256_sub_pd(_mm256_mul_pd(a, _mm256_set1_pd(6.0)), _mm256_set1_pd(15.0))),
+        _mm256_set1_pd(10.0));
+    *t = a;
+    *fd = _mm256_mul_pd(_mm256_mul_pd(_mm256_mul_pd(a, a), a), inner);
+}
+
+/* tab[i] and tab[i + 1] for four indices by one 64-bit gather: *lo the first, *hi the second. */
+EVAL_AVX2 static inline void gather_pair(const int32_t *tab, __m128i i, __m128i *lo, __m128i *hi)
+{
+    const __m256i g = _mm256_i32gather_epi64((const long long *)(const void *)tab, i, 4);
+    const __m256i s = _mm256_permutevar8x32_epi32(g, _mm256_setr_epi32(0, 2, 4, 6, 1, 3, 5, 7));
+    *lo = _mm256_castsi256_si128(s);
+    *hi = _mm256_extracti128_si256(s, 1);
+}
+
+/* grad_dot of the coded gradient c (gcode) and (x, y, z): the components −1, 0 or 1 exactly,
+ * then g0·x + g1·y + g2·z in that order. */
+EVAL_AVX2 static inline __m256d grad4(__m128i c, __m256d x, __m256d y, __m256d z)
+{
+    const __m128 tab = _mm_setr_ps(-1.0f, 0.0f, 1.0f, 0.0f);
+    const __m256d gx = _mm256_cvtps_pd(_mm_permutevar_ps(tab, c));
+    const __m256d gy = _mm256_cvtps_pd(_mm_permutevar_ps(tab, _mm_srli_epi32(c, 8)));
+    const __m256d gz = _mm256_cvtps_pd(_mm_permutevar_ps(tab, _mm_srli_epi32(c, 16)));
+    return _mm256_add_pd(_mm256_add_pd(_mm256_mul_pd(gx, x), _mm256_mul_pd(gy, y)), _mm256_mul_pd(gz, z));
+}
+
+EVAL_AVX2 static inline __m256d lerp4(__m256d t, __m256d a, __m256d b)
+{
+    return _mm256_add_pd(a, _mm256_mul_pd(t, _mm256_sub_pd(b, a)));
+}
+
+/* fold() for four values: 1 when all are already inside (|v| < 1e9, the common case), else 0
+ * (the caller then takes the scalar path for these points). */
+EVAL_AVX2 static inline int inside4(__m256d v)
+{
+    const __m256d a = _mm256_andnot_pd(_mm256_set1_pd(-0.0), v);
+    return _mm256_movemask_pd(_mm256_cmp_pd(a, _mm256_set1_pd(1e9), _CMP_LT_OQ)) == 0xF;
+}
+
+/* fbm() four points at a time: the same IEEE operations in the same order (gradient_noise_axes
+ * corner by corner, lerps in its nesting), the permutation read by gathers. No fused
+ * multiply-add: the target enables AVX2 only, and the products and sums are separate
+ * intrinsics. */
+EVAL_AVX2 static void fbm_batch_avx2(const brm_noise_table *t, uint32_t mi, uint32_t octaves, const double *x,
+                                     const double *y, const double *z, uint32_t m, double *out)
+{
+    const int32_t *perm = t->perm32[mi], *gc = t->gcode[mi];
+    if (octaves > 12) octaves = 12;
+    const __m256d one = _mm256_set1_pd(1.0), norm = _mm256_set1_pd(t->fbm_norm[mi]);
+    for (uint32_t j = 0; j < m; j += 4) {
+        const __m256d px = _mm256_loadu_pd(x + j), py = _mm256_loadu_pd(y + j), pz = _mm256_loadu_pd(z + j);
+        int ok = inside4(px) & inside4(py) & inside4(pz);
+        __m256d sum = _mm256_setzero_pd();
+        double amp = 1.0, freq = 1.0;
+        for (uint32_t o = 0; o < octaves && ok; o++) {
+            const __m256d f = _mm256_set1_pd(freq);
+            const __m256d cx = _mm256_add_pd(_mm256_mul_pd(px, f), _mm256_set1_pd(octave_offset[o][0]));
+            const __m256d cy = _mm256_add_pd(_mm256_mul_pd(py, f), _mm256_set1_pd(octave_offset[o][1]));
+            const __m256d cz = _mm256_add_pd(_mm256_mul_pd(pz, f), _mm256_set1_pd(octave_offset[o][2]));
+            ok = inside4(cx) & inside4(cy) & inside4(cz);
+            __m128i X, Y, Z;
+            __m256d tx, ty, tz, u, v, w;
+            axis4(cx, &X, &tx, &u);
+            axis4(cy, &Y, &ty, &v);
+            axis4(cz, &Z, &tz, &w);
+            /* A = perm[X] + Y, B = perm[X + 1] + Y; AA = perm[A] + Z, AB = perm[A + 1] + Z, ... */
+            __m128i pa, pb, a0, a1, b0, b1;
+            gather_pair(perm, X, &pa, &pb);
+            gather_pair(perm, _mm_add_epi32(pa, Y), &a0, &a1);
+            gather_pair(perm, _mm_add_epi32(pb, Y), &b0, &b1);
+            const __m128i AA = _mm_add_epi32(a0, Z), AB = _mm_add_epi32(a1, Z);
+            const __m128i BA = _mm_add_epi32(b0, Z), BB = _mm_add_epi32(b1, Z);
+            __m128i g0, g4, g1, g5, g2, g6, g3, g7;
+            gather_pair(gc, AA, &g0, &g4);
+            gather_pair(gc, BA, &g1, &g5);
+            gather_pair(gc, AB, &g2, &g6);
+            gather_pair(gc, BB, &g3, &g7);
+            const __m256d x1 = _mm256_sub_pd(tx, one), y1 = _mm256_sub_pd(ty, one), z1 = _mm256_sub_pd(tz, one);
+            const __m256d n = lerp4(
+                w,
+                lerp4(v, lerp4(u, grad4(g0, tx, ty, tz), grad4(g1, x1, ty, tz)),
+                      lerp4(u, grad4(g2, tx, y1, tz), grad4(g3, x1, y1, tz))),
+                lerp4(v, lerp4(u, grad4(g4, tx, ty, z1), grad4(g5, x1, ty, z1)),
+                      lerp4(u, grad4(g6, tx, y1, z1), grad4(g7, x1, y1, z1))));
+            sum = _mm256_add_pd(sum, _mm256_mul_pd(_mm256_set1_pd(amp), n));
+            amp *= 0.5;
+            freq *= 2.0;
+        }
+        if (ok) {
+            _mm256_storeu_pd(out + j, _mm256_mul_pd(sum, norm));
+        } else { /* a coordinate needs fold()'s fmod: these four the scalar way */
+            for (uint32_t q = j; q < j + 4; q++) out[q] = fbm(t, mi, octaves, brm_v3(x[q], y[q], z[q]));
+        }
+    }
+}
+#endif
+
+/* brm_media_eval's density part at p: out filled as it fills it before the noise factor, the
+ * sum of the media present returned. */
+static inline double eval_densities(const brm_scene *s, brm_vec3 p, brm_media_point *out)
+{
+    out->sigma_t = 0.0;
+    out->sigma_s = brm_v3(0.0, 0.0, 0.0);
+    out->count = 0;
+    if (!brm_aabb_contains(s->fog_bounds, p)) return 0.0;
+    const brm_noise_table *t = s->noise;
+    double sum = 0.0;
+    for (uint32_t k = 0; k < t->density_count; k++) {
+        uint32_t i = t->density_idx[k];
+        double st = density(&t->term[k], p);
+        if (st > 0.0) {
+            out->medium[out->count] = (uint16_t)i;
+            out->sigma_t_each[out->count] = st;
+            out->count++;
+            sum += st;
+        }
+    }
+    return sum;
+}
+
+/* brm_media_eval's last step: the noise factor f applied. */
+static inline void eval_finish(const brm_scene *s, double sum, double f, brm_media_point *out)
+{
+    brm_vec3 ss = brm_v3(0.0, 0.0, 0.0);
+    for (uint32_t k = 0; k < out->count; k++) {
+        double st = out->sigma_t_each[k] * f;
+        out->sigma_t_each[k] = st;
+        ss = brm_madd(ss, s->media[out->medium[k]].albedo, st);
+    }
+    out->sigma_t = sum * f;
+    out->sigma_s = ss;
+}
+
+int brm_media_eval_batch_simd(const brm_scene *s, const brm_vec3 *p, uint32_t n, brm_media_point *out, int simd)
+{
+    assert(s->media_ready);
+    const brm_noise_table *t = s->noise;
+    fbm_batch_fn fb = fbm_batch_scalar;
+    int used = 0;
+#ifdef EVAL_HAVE_AVX2
+    if (simd && __builtin_cpu_supports("avx2")) fb = fbm_batch_avx2, used = 1;
+#else
+    (void)simd;
+#endif
+    uint32_t need[EVAL_CHUNK];
+    double sum[EVAL_CHUNK], f[EVAL_CHUNK];
+    double x[EVAL_CHUNK + 3], y[EVAL_CHUNK + 3], z[EVAL_CHUNK + 3], nv[EVAL_CHUNK + 3];
+    for (uint32_t i0 = 0; i0 < n; i0 += EVAL_CHUNK) {
+        const uint32_t len = n - i0 < EVAL_CHUNK ? n - i0 : EVAL_CHUNK;
+        uint32_t m = 0;
+        for (uint32_t i = i0; i < i0 + len; i++) {
+            const double sm = eval_densities(s, p[i], &out[i]);
+            if (out[i].count == 0) continue;
+            if (t->noise_count == 0) {
+                eval_finish(s, sm, 1.0, &out[i]);
+                continue;
+            }
+            need[m] = i, sum[m] = sm, f[m] = 1.0;
+            m++;
+        }
+        if (m == 0) continue;
+        /* noise_factor, medium by medium over the points that need it */
+        for (uint32_t k = 0; k < t->noise_count; k++) {
+            const uint32_t mi = t->noise_idx[k];
+            const brm_medium *md = &s->media[mi];
+            for (uint32_t j = 0; j < m; j++) {
+                const brm_vec3 q = brm_scale(p[need[j]], md->inv_scale_m);
+                x[j] = q.x, y[j] = q.y, z[j] = q.z;
+            }
+            for (uint32_t j = m; j < (m + 3u) / 4u * 4u; j++) x[j] = x[m - 1], y[j] = y[m - 1], z[j] = z[m - 1];
+            fb(t, mi, md->octaves, x, y, z, m, nv);
+            for (uint32_t j = 0; j < m; j++) {
+                const double v = 1.0 + md->strength * nv[j];
+                f[j] *= v > 0.0 ? v : 0.0;
+            }
+        }
+        for (uint32_t j = 0; j < m; j++) eval_finish(s, sum[j], f[j], &out[need[j]]);
+    }
+    return used;
+}
+
+void brm_media_eval_batch(const brm_scene *s, const brm_vec3 *p, uint32_t n, brm_media_point *out)
+{
+    brm_media_eval_batch_simd(s, p, n, out, 1);
 }

@@ -33,6 +33,15 @@ double brm_media_extinction(const brm_scene *s, brm_vec3 p);
 /* Extinction, scattering and the per-medium split at p (for phase blending). */
 void brm_media_eval(const brm_scene *s, brm_vec3 p, brm_media_point *out);
 
+/* brm_media_eval at n points: out[i] gets exactly (bit for bit) what brm_media_eval(s, p[i])
+ * gives. The density media point by point, then each noise medium's fBm over all the points
+ * that need it, four at a time with AVX2 where the processor has it (the same operations in the
+ * same order, no fused multiply-add; the scalar fbm otherwise). */
+void brm_media_eval_batch(const brm_scene *s, const brm_vec3 *p, uint32_t n, brm_media_point *out);
+/* The same with the path chosen: simd 0 the scalar fBm, 1 AVX2 where the processor has it.
+ * Returns 1 when AVX2 ran (tests compare the paths bit for bit). */
+int brm_media_eval_batch_simd(const brm_scene *s, const brm_vec3 *p, uint32_t n, brm_media_point *out, int simd);
+
 /* The noise factor max(0, 1 + strength·n) of all noise media at p (1 when there are none). */
 double brm_media_noise_factor(const brm_scene *s, brm_vec3 p);
 

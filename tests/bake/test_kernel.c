@@ -227,12 +227,24 @@ static void tile_ranges_should_be_the_extremes_of_their_texels(void **state)
     brm_scene_free(s);
 }
 
+
+/* The room with a noise medium too (the batches' media then take the vectorized fBm). */
+static const char *noisy_room_json(void)
+{
+    static char buf[4096];
+    const char *key = " \"media\": [";
+    const char *at = strstr(room_json, key);
+    assert_non_null(at);
+    snprintf(buf, sizeof buf, "%.*s%s{\"type\": \"noise\", \"scale_m\": 1.5, \"octaves\": 4, \"seed\": 9, "
+             "\"strength\": 0.8},%s", (int)(at - room_json), room_json, key, at + strlen(key));
+    return buf;
+}
+
 /* The staged batch over clustered samples (the sky cursor hits, lights drop out at different
  * stages) against one sample at a time; every light mixed, none pre-classified. */
-static void view_batch_over_clusters_should_give_the_bits_of_single_samples(void **state)
+static void view_batch_check(const char *json)
 {
-    (void)state;
-    brm_scene *s = load_json(room_json);
+    brm_scene *s = load_json(json);
     brm_shadow_set *ss = room_shadows(s);
     brm_kernel k = {s, ss};
     enum { N = 640 };
@@ -262,10 +274,9 @@ static void view_batch_over_clusters_should_give_the_bits_of_single_samples(void
 
 /* The world baker's batch (inscatter and the dir.* projection) against one sample at a
  * time, with the sun marked lit as culling would, the point light and the spot mixed. */
-static void iso_batch_over_clusters_should_give_the_bits_of_single_samples(void **state)
+static void iso_batch_check(const char *json)
 {
-    (void)state;
-    brm_scene *s = load_json(room_json);
+    brm_scene *s = load_json(json);
     brm_shadow_set *ss = room_shadows(s);
     brm_kernel k = {s, ss};
     enum { N = 600 };
@@ -292,6 +303,20 @@ static void iso_batch_over_clusters_should_give_the_bits_of_single_samples(void 
     assert_true(lit > N / 2);
     brm_shadows_free(ss);
     brm_scene_free(s);
+}
+
+static void view_batch_over_clusters_should_give_the_bits_of_single_samples(void **state)
+{
+    (void)state;
+    view_batch_check(room_json);
+    view_batch_check(noisy_room_json());
+}
+
+static void iso_batch_over_clusters_should_give_the_bits_of_single_samples(void **state)
+{
+    (void)state;
+    iso_batch_check(room_json);
+    iso_batch_check(noisy_room_json());
 }
 
 int main(void)

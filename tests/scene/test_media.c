@@ -544,6 +544,161 @@ static void extinction_line_should_match_the_point_evaluation_along_the_line(voi
     brm_scene_free(s);
 }
 
+/* Two media points hold the same bits in every field brm_media_eval fills. */
+static int same_media_point(const brm_media_point *a, const brm_media_point *b)
+{
+    if (a->count != b->count) return 0;
+    if (memcmp(&a->sigma_t, &b->sigma_t, sizeof a->sigma_t) || memcmp(&a->sigma_s, &b->sigma_s, sizeof a->sigma_s))
+        return 0;
+    for (uint32_t k = 0; k < a->count; k++)
+        if (a->medium[k] != b->medium[k] ||
+            memcmp(&a->sigma_t_each[k], &b->sigma_t_each[k], sizeof a->sigma_t_each[k]))
+            return 0;
+    return 1;
+}
+
+/* The batch against brm_media_eval at every point, on each path this processor has; returns
+ * how many points had fog and how many had it cut to zero by the noise. */
+static void check_batch(const brm_scene *s, const brm_vec3 *p, uint32_t n, uint32_t *foggy, uint32_t *cut)
+{
+    brm_media_point *one = calloc(n, sizeof *one), *all = calloc(n, sizeof *all);
+    assert_non_null(one);
+    assert_non_null(all);
+    *foggy = *cut = 0;
+    for (uint32_t i = 0; i < n; i++) {
+        brm_media_eval(s, p[i], &one[i]);
+        *foggy += one[i].count > 0 && one[i].sigma_t > 0.0;
+        *cut += one[i].count > 0 && one[i].sigma_t == 0.0;
+    }
+    for (int simd = 0; simd < 2; simd++) {
+        memset(all, 0xA5, n * sizeof *all);
+        int used = brm_media_eval_batch_simd(s, p, n, all, simd);
+        if (simd == 0) assert_int_equal(used, 0);
+#if (defined(__x86_64__) || defined(__i386__)) && defined(__GNUC__)
+        if (simd == 1) assert_int_equal(used, __builtin_cpu_supports("avx2") ? 1 : 0);
+#endif
+        for (uint32_t i = 0; i < n; i++)
+            if (!same_media_point(&one[i], &all[i]))
+                fail_msg("path %d point %u (%.17g, %.17g, %.17g): batch %.17g, single %.17g", used, i, p[i].x,
+                         p[i].y, p[i].z, all[i].sigma_t, one[i].sigma_t);
+    }
+    free(one);
+    free(all);
+}
+
+static void eval_batch_should_equal_the_single_evaluation_bit_for_bit(void **state)
+{
+    (void)state;
+    brm_medium ms[6];
+    ms[0] = uniform(0.01);
+    ms[1] = (brm_medium){0};
+    ms[1].type = BRM_MEDIUM_HEIGHT;
+    ms[1].sigma_t = 0.08;
+    ms[1].base_y = -3.0;
+    ms[1].scale_height_m = 4.0;
+    ms[1].albedo = brm_v3(0.8, 0.85, 0.9);
+    ms[1].phase.model = BRM_PHASE_HENYEY_GREENSTEIN;
+    ms[1].phase.g = 0.3;
+    ms[2] = (brm_medium){0};
+    ms[2].type = BRM_MEDIUM_BOX;
+    ms[2].box = (brm_aabb){{-6, -2, -4}, {5, 7, 3}};
+    ms[2].sigma_t = 0.3;
+    ms[2].edge_fade_m = 1.5;
+    ms[2].albedo = brm_v3(0.2, 0.3, 0.4);
+    ms[2].phase.model = BRM_PHASE_ISOTROPIC;
+    ms[3] = ms[2];
+    ms[3].box = (brm_aabb){{2, -8, -1}, {9, 1, 12}};
+    ms[3].edge_fade_m = 0.0; /* a hard box */
+    ms[4] = (brm_medium){0};
+    ms[4].type = BRM_MEDIUM_NOISE;
+    ms[4].scale_m = 2.5;
+    ms[4].octaves = 4;
+    ms[4].seed = 1871;
+    ms[4].strength = 3.0; /* strong enough that 1 + strength·n goes below 0 in places */
+    ms[5] = ms[4];
+    ms[5].scale_m = 7.0;
+    ms[5].octaves = 14; /* clamped to 12 */
+    ms[5].seed = 3;
+    ms[5].strength = 0.5;
+    brm_scene *s = scene_with(ms, 6);
+    s->fog_bounds = (brm_aabb){{-20, -10, -15}, {18, 12, 16}};
+    enum { N = 3001 }; /* not a multiple of the chunk or of four */
+    brm_vec3 *p = calloc(N, sizeof *p);
+    assert_non_null(p);
+    uint32_t n = 0;
+    uint64_t h = 12345;
+    /* random points in and around the fog bounds (negative coordinates included) */
+    for (; n < 1500; n++) {
+        double r[3];
+        for (int a = 0; a < 3; a++) r[a] = (double)((h = brm_hash64(h)) >> 11) * 0x1p-53;
+        p[n] = brm_v3(-24 + 46 * r[0], -13 + 28 * r[1], -19 + 39 * r[2]);
+    }
+    /* on the faces and fade edges of both boxes, and on the fog bounds' faces */
+    const brm_aabb faces[3] = {ms[2].box, ms[3].box, s->fog_bounds};
+    for (int b = 0; b < 3; b++)
+        for (int a = 0; a < 3; a++)
+            for (int side = 0; side < 2; side++)
+                for (int e = 0; e < 4; e++) {
+                    static const double inset[4] = {0.0, 1.5, 0.75, -1e-12};
+                    double r0 = (double)((h = brm_hash64(h)) >> 11) * 0x1p-53;
+                    double r1 = (double)((h = brm_hash64(h)) >> 11) * 0x1p-53;
+                    brm_vec3 lo = faces[b].min, hi = faces[b].max;
+                    double c[3] = {lo.x + r0 * (hi.x - lo.x), lo.y + r1 * (hi.y - lo.y), lo.z + r0 * (hi.z - lo.z)};
+                    double f = side ? brm_vget(hi, a) - inset[e] : brm_vget(lo, a) + inset[e];
+                    c[a] = f;
+                    p[n++] = brm_v3(c[0], c[1], c[2]);
+                }
+    /* on lattice planes of every octave of both noise media: p/scale·2^o + offset an integer
+     * (up to the rounding of that expression), and their neighbours one ulp away */
+    while (n + 3 <= 2700) {
+        int med = (int)((h = brm_hash64(h)) % 2), oct = (int)((h >> 8) % (med ? 12 : 4));
+        static const double off[4][3] = {{0.0, 0.0, 0.0}, {17.31, 3.77, 41.13}, {5.19, 29.71, 11.47},
+                                         {37.93, 23.11, 2.63}};
+        const double sc = ms[4 + med].scale_m / ldexp(1.0, oct);
+        double c[3];
+        for (int a = 0; a < 3; a++) {
+            double k = (double)((int64_t)((h = brm_hash64(h)) % 21) - 10);
+            c[a] = (k - (oct < 4 ? off[oct][a] : 0.0)) * sc;
+        }
+        p[n++] = brm_v3(c[0], c[1], c[2]);
+        p[n++] = brm_v3(nextafter(c[0], -INFINITY), c[1], nextafter(c[2], INFINITY));
+        p[n++] = brm_v3(c[0], nextafter(c[1], INFINITY), c[2]);
+    }
+    /* a regular lattice through everything */
+    for (; n < N; n++) p[n] = brm_v3(-20 + 0.5 * (n % 77), -10 + 0.25 * (n % 89), -15 + 0.125 * (n % 251));
+    uint32_t foggy, cut;
+    check_batch(s, p, N, &foggy, &cut);
+    /* the points reach every case: fog, fog cut to zero by the noise, no fog */
+    assert_true(foggy > 1000);
+    assert_true(cut > 20);
+    assert_true(foggy + cut < N);
+    /* fewer points than one group of four, and a single one */
+    check_batch(s, p + 7, 3, &foggy, &cut);
+    check_batch(s, p + 11, 1, &foggy, &cut);
+    brm_scene_free(s);
+
+    /* far from the origin the fBm folds its coordinates (fmod): the batch's scalar fallback */
+    s = scene_with(ms, 6);
+    s->fog_bounds = (brm_aabb){{-1e13, -1e13, -1e13}, {1e13, 1e13, 1e13}};
+    for (uint32_t i = 0; i < 64; i++) {
+        double big = ldexp(1.0, 10 + (int)i % 34) * (i & 1 ? -1.3 : 1.7);
+        p[i] = brm_v3(big, i % 3 ? 0.5 : big, 2.25 + i);
+    }
+    check_batch(s, p, 64, &foggy, &cut);
+    assert_true(foggy > 10);
+    brm_scene_free(s);
+
+    /* no noise medium: the densities alone */
+    s = scene_with(ms, 4);
+    s->fog_bounds = (brm_aabb){{-20, -10, -15}, {18, 12, 16}};
+    for (uint32_t i = 0; i < 500; i++) p[i] = brm_v3(-22 + 0.09 * i, -11 + 0.05 * i, -16 + 0.07 * i);
+    check_batch(s, p, 500, &foggy, &cut);
+    assert_true(foggy > 300);
+    assert_int_equal(cut, 0);
+    brm_scene_free(s);
+    free(p);
+}
+
 int main(void)
 {
     gsl_set_error_handler_off();
@@ -559,6 +714,7 @@ int main(void)
         cmocka_unit_test(noise_grid_should_hold_the_factor_at_nodes_and_interpolate_between),
         cmocka_unit_test(exp_neg_f_should_match_libm_within_a_millionth),
         cmocka_unit_test(extinction_line_should_match_the_point_evaluation_along_the_line),
+        cmocka_unit_test(eval_batch_should_equal_the_single_evaluation_bit_for_bit),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }
