@@ -2,6 +2,7 @@
 
 #include <string.h>
 
+#include "base/cpu.h"
 #include "base/sh.h"
 #include "scene/light.h"
 #include "scene/phase.h"
@@ -264,7 +265,7 @@ static batch_stages pick_stages(void)
 {
     batch_stages st = {stage_falloff_plain, stage_phase_plain};
 #if KERNEL_AVX2
-    if (__builtin_cpu_supports("avx2")) st.falloff = falloff_avx2, st.phase = phase_avx2;
+    if (brm_cpu_avx2()) st.falloff = falloff_avx2, st.phase = phase_avx2;
 #endif
     return st;
 }

@@ -5,6 +5,7 @@
  * first. The formulas are those of SPEC.md ("Media"). */
 #include "scene/media.h"
 
+#include "base/cpu.h"
 #include "base/threads.h"
 
 #include <assert.h>
@@ -754,7 +755,7 @@ static int extinction_batch(const brm_scene *s, const brm_noise_grid *g, brm_vec
     void (*chunk)(LINE_ARGS) = line_chunk_sse2;
     int used = 0;
 #ifdef LINE_HAVE_AVX2
-    if (simd && __builtin_cpu_supports("avx2")) chunk = line_chunk_avx2, used = 1;
+    if (simd && brm_cpu_avx2()) chunk = line_chunk_avx2, used = 1;
 #else
     (void)simd;
 #endif
@@ -966,7 +967,7 @@ int brm_media_eval_batch_simd(const brm_scene *s, const brm_vec3 *p, uint32_t n,
     fbm_batch_fn fb = fbm_batch_scalar;
     int used = 0;
 #ifdef EVAL_HAVE_AVX2
-    if (simd && __builtin_cpu_supports("avx2")) fb = fbm_batch_avx2, used = 1;
+    if (simd && brm_cpu_avx2()) fb = fbm_batch_avx2, used = 1;
 #else
     (void)simd;
 #endif
