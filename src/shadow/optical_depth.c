@@ -4,6 +4,7 @@
  * tau = ∫ sigma_t ds along a path; transmittance = exp(−tau) (Beer–Lambert). sigma_t is zero
  * outside the fog bounds, so integrating "to where the path leaves the fog" is the same as
  * integrating to infinity; the integrator clips to the bounds itself. */
+#include <immintrin.h>
 #include <math.h>
 #include <stdlib.h>
 #include <string.h>
@@ -923,6 +924,7 @@ void brm_od_finish(shadow_view *v)
  * (values G, slopes sigma~), bilinear across paths, in the cell's block when it has one.
  * Returns 0 outside the grid or in a flagged cell. */
 /* Grid coordinates of (x, y, z): the cell c and the weights w in it; 0 outside the grid. */
+#define OD_INLINE_EVAL __attribute__((always_inline)) static inline
 static inline int grid_cell(const shadow_view *v, double x, double y, double z, uint32_t c[3], double w[3])
 {
     double f[3] = {(x - v->og_lo[0]) * v->og_inv[0], (y - v->og_lo[1]) * v->og_inv[1], (z - v->og_lo[2]) * v->og_inv[2]};
@@ -949,7 +951,7 @@ static inline int cell_is_clean(const shadow_view *v, const uint32_t c[3])
  * weights' rounding, under 1e-7 relative, moves G by a few 1e-7 against the 0.003 the build
  * checks): bilinear across the columns first, each node pair (G_k, sigma_k, G_k+1,
  * sigma_k+1) a vector of four, then the Hermite basis once. */
-static inline double clean_eval(const shadow_view *v, const uint32_t c[3], const double w[3], int face, double *p_out)
+OD_INLINE_EVAL double clean_eval(const shadow_view *v, const uint32_t c[3], const double w[3], int face, double *p_out)
 {
     const uint32_t n0 = v->og_n[0];
     const float t = (float)w[2], t2 = t * t, t3 = t2 * t, hz = (float)v->og_step[2];
@@ -1149,89 +1151,363 @@ int brm_od_lookup_light(const brm_scene *s, const light_shadow *ls, brm_vec3 p, 
 /* ---- batches ------------------------------------------------------------------------ */
 
 #define OD_BATCH 32
+#define OD_INLINE __attribute__((always_inline)) static inline
 
-void brm_od_transmittance_batch(const brm_scene *s, const light_shadow *ls, const brm_vec3 *p, uint32_t n,
-                                double *out, uint8_t *slow)
+/* Pass 3 of the batch for four clean lookups at once (AVX2): clean_eval's single-precision
+ * arithmetic, the prefix, the clamp and brm_exp_neg, each operation the scalar one in the
+ * same order on four lanes, so the bits are the scalar path's. The node quads are
+ * combined per lane (bilinear across the four columns), transposed, and the Hermite basis
+ * taken across lanes. */
+__attribute__((target("avx2"))) static void eval4_avx2(const shadow_view *const *vv, const uint32_t (*cc)[3],
+                                                      const double (*ww)[3], const int *face, double out[4])
+{
+    float pr[4][4], hzs[4];
+    __m128 a[4];
+    const __m256d w0 = _mm256_set_pd(ww[3][0], ww[2][0], ww[1][0], ww[0][0]);
+    const __m256d w1 = _mm256_set_pd(ww[3][1], ww[2][1], ww[1][1], ww[0][1]);
+    const __m256d w2 = _mm256_set_pd(ww[3][2], ww[2][2], ww[1][2], ww[0][2]);
+    const __m128 one = _mm_set1_ps(1.0f), wx = _mm256_cvtpd_ps(w0), wy = _mm256_cvtpd_ps(w1);
+    const __m128 ux = _mm_sub_ps(one, wx), uy = _mm_sub_ps(one, wy);
+    const __m128 q0 = _mm_mul_ps(ux, uy), q1 = _mm_mul_ps(wx, uy), q2 = _mm_mul_ps(ux, wy), q3 = _mm_mul_ps(wx, wy);
+    float wq[4][4];
+    _mm_storeu_ps(wq[0], q0), _mm_storeu_ps(wq[1], q1), _mm_storeu_ps(wq[2], q2), _mm_storeu_ps(wq[3], q3);
+    for (int l = 0; l < 4; l++) {
+        const shadow_view *v = vv[l];
+        const uint32_t n0 = v->og_n[0];
+        const size_t c00 = cc[l][0] + (size_t)n0 * cc[l][1];
+        const int64_t *oc = v->od_col + c00;
+        const float *od = v->od;
+        const __m128 n00 = _mm_loadu_ps(od + 2 * (size_t)(oc[0] + cc[l][2]));
+        const __m128 n10 = _mm_loadu_ps(od + 2 * (size_t)(oc[1] + cc[l][2]));
+        const __m128 n01 = _mm_loadu_ps(od + 2 * (size_t)(oc[n0] + cc[l][2]));
+        const __m128 n11 = _mm_loadu_ps(od + 2 * (size_t)(oc[n0 + 1] + cc[l][2]));
+        __m128 x = _mm_mul_ps(_mm_set1_ps(wq[0][l]), n00);
+        x = _mm_add_ps(x, _mm_mul_ps(_mm_set1_ps(wq[1][l]), n10));
+        x = _mm_add_ps(x, _mm_mul_ps(_mm_set1_ps(wq[2][l]), n01));
+        a[l] = _mm_add_ps(x, _mm_mul_ps(_mm_set1_ps(wq[3][l]), n11));
+        hzs[l] = (float)v->og_step[2];
+        if (face[l] >= 0) {
+            const float *p = v->prefix + (size_t)face[l] * n0 * v->og_n[1] + c00;
+            pr[0][l] = p[0], pr[1][l] = p[1], pr[2][l] = p[n0], pr[3][l] = p[n0 + 1];
+        } else {
+            pr[0][l] = pr[1][l] = pr[2][l] = pr[3][l] = 0.0f; /* pre = 0: tau = max(g, 0) */
+        }
+    }
+    _MM_TRANSPOSE4_PS(a[0], a[1], a[2], a[3]);
+    const __m128 t = _mm256_cvtpd_ps(w2), t2 = _mm_mul_ps(t, t), t3 = _mm_mul_ps(t2, t), hz = _mm_loadu_ps(hzs);
+    const __m128 h0 = _mm_add_ps(_mm_sub_ps(_mm_mul_ps(_mm_set1_ps(2.0f), t3), _mm_mul_ps(_mm_set1_ps(3.0f), t2)), one);
+    const __m128 h1 = _mm_mul_ps(_mm_add_ps(_mm_sub_ps(t3, _mm_mul_ps(_mm_set1_ps(2.0f), t2)), t), hz);
+    const __m128 h2 = _mm_add_ps(_mm_mul_ps(_mm_set1_ps(-2.0f), t3), _mm_mul_ps(_mm_set1_ps(3.0f), t2));
+    const __m128 h3 = _mm_mul_ps(_mm_sub_ps(t3, t2), hz);
+    __m128 g = _mm_mul_ps(a[0], h0);
+    g = _mm_add_ps(g, _mm_mul_ps(a[1], h1));
+    g = _mm_add_ps(g, _mm_mul_ps(a[2], h2));
+    g = _mm_add_ps(g, _mm_mul_ps(a[3], h3));
+    __m128 pp = _mm_mul_ps(q0, _mm_loadu_ps(pr[0]));
+    pp = _mm_add_ps(pp, _mm_mul_ps(q1, _mm_loadu_ps(pr[1])));
+    pp = _mm_add_ps(pp, _mm_mul_ps(q2, _mm_loadu_ps(pr[2])));
+    pp = _mm_add_ps(pp, _mm_mul_ps(q3, _mm_loadu_ps(pr[3])));
+    /* tau = pre + g, clamped below at 0 (max_pd returns 0 unless the sum is > 0) */
+    const __m256d tau = _mm256_max_pd(_mm256_add_pd(_mm256_cvtps_pd(pp), _mm256_cvtps_pd(g)), _mm256_setzero_pd());
+    /* brm_exp_neg on four lanes */
+    const __m256d magic = _mm256_set1_pd(0x1.8p52), x = _mm256_sub_pd(_mm256_setzero_pd(), tau);
+    const __m256d kd = _mm256_add_pd(_mm256_mul_pd(x, _mm256_set1_pd(46.166241308446828)), magic);
+    const __m256i kb = _mm256_castpd_si256(kd);
+    const __m256d nn = _mm256_sub_pd(kd, magic);
+    const __m256d r = _mm256_sub_pd(x, _mm256_mul_pd(nn, _mm256_set1_pd(0.021660849392498290)));
+    const __m256i j = _mm256_and_si256(kb, _mm256_set1_epi64x(31));
+    /* (e << 52) mod 2^64 keeps only bits 5..16 of the low word: the same whatever its sign */
+    const __m256i e52 = _mm256_slli_epi64(_mm256_srli_epi64(kb, 5), 52);
+    __m256d pl = _mm256_mul_pd(r, _mm256_set1_pd(1.0 / 24.0));
+    pl = _mm256_add_pd(_mm256_set1_pd(1.0 / 6.0), pl);
+    pl = _mm256_mul_pd(r, pl);
+    pl = _mm256_add_pd(_mm256_set1_pd(0.5), pl);
+    pl = _mm256_mul_pd(_mm256_mul_pd(r, r), pl);
+    pl = _mm256_add_pd(_mm256_add_pd(_mm256_set1_pd(1.0), r), pl);
+    const __m256i tb = _mm256_i64gather_epi64((const long long *)brm_exp2_32, j, 8);
+    const __m256d sc = _mm256_castsi256_pd(_mm256_add_epi64(tb, e52));
+    const __m256d res = _mm256_mul_pd(sc, pl);
+    const __m256d lim = _mm256_cmp_pd(tau, _mm256_set1_pd(700.0), _CMP_LT_OQ); /* 0 for tau ≥ 700 */
+    _mm256_storeu_pd(out, _mm256_and_pd(res, lim));
+}
+
+/* Pass 1 of the batch for one point: the view, the grid cell c and weights w as
+ * brm_od_lookup_light takes them; 1 when the point is in a usable view's grid (its slot
+ * written, the cell's clean run and column offsets fetched ahead). */
+OD_INLINE uint32_t locate1(const light_shadow *ls, const brm_aabb *fb, const double plane[3], const int usable[6],
+                           const brm_vec3 q, uint32_t idx, const int vec, const shadow_view **vs, uint32_t c[3],
+                           double w[3], int *fs, uint32_t *ls_idx)
+{
+    if (!brm_aabb_contains(*fb, q)) return 0;
+    const shadow_view *v = &ls->views[0];
+    double x, y, z;
+    int e = -1;
+    if (v->kind == BRM_VIEW_ORTHO) {
+        if (!usable[0]) return 0;
+        double tb = HUGE_VAL;
+        for (int a = 0; a < 3; a++) {
+            if (v->f_inv[a] == 0.0) continue;
+            double ta = (brm_vget(q, a) - plane[a]) * v->f_inv[a];
+            if (ta < tb) tb = ta, e = a;
+        }
+        if (e < 0) return 0;
+        x = brm_dot(q, v->u), y = brm_dot(q, v->v), z = brm_dot(q, v->f);
+    } else {
+        const brm_vec3 d = brm_sub(q, v->origin);
+        uint32_t k = 0;
+        if (ls->cube) {
+            const double ax = fabs(d.x), ay = fabs(d.y), az = fabs(d.z);
+            k = ax >= ay && ax >= az ? (d.x >= 0 ? 0u : 1u) : ay >= az ? (d.y >= 0 ? 2u : 3u) : (d.z >= 0 ? 4u : 5u);
+        }
+        if (!usable[k]) return 0;
+        v = &ls->views[k];
+        const double zf = brm_dot(d, v->f);
+        if (!(zf > 0.0)) return 0;
+        const double iz = 1.0 / zf, r2 = brm_dot(d, d);
+        x = brm_dot(d, v->u) * iz, y = brm_dot(d, v->v) * iz, z = sqrt(r2);
+    }
+    /* grid_cell, with the floor by the instruction where there is one */
+    const double f[3] = {(x - v->og_lo[0]) * v->og_inv[0], (y - v->og_lo[1]) * v->og_inv[1],
+                         (z - v->og_lo[2]) * v->og_inv[2]};
+    int inside = 1;
+    for (int a = 0; a < 3; a++) {
+        double lim = (double)(v->og_n[a] - 1);
+        inside &= f[a] >= 0.0 && f[a] <= lim;
+    }
+    if (!inside) return 0;
+    for (int a = 0; a < 3; a++) {
+        double lim = (double)(v->og_n[a] - 1);
+        double fl = vec ? __builtin_floor(f[a]) : (double)(uint32_t)f[a]; /* the same: 0 ≤ f < 2^32 */
+        if (fl > lim - 1.0) fl = lim - 1.0;
+        c[a] = (uint32_t)fl;
+        w[a] = f[a] - fl;
+    }
+    const size_t n0 = v->og_n[0], c00 = c[0] + n0 * c[1];
+    __builtin_prefetch(v->cell_clean + 2 * (c[0] + (n0 - 1) * c[1]));
+    __builtin_prefetch(v->od_col + c00);
+    __builtin_prefetch(v->od_col + c00 + n0);
+    *vs = v, *fs = e, *ls_idx = idx;
+    return 1;
+}
+
+/* locate1 for four points at once (AVX2), the same operations lane by lane. A cube's four
+ * points usually share a face; when they do not, each takes locate1. Returns the slots
+ * written. */
+__attribute__((target("avx2"))) static uint32_t locate4_avx2(const light_shadow *ls, const brm_aabb *fb,
+                                                            const double plane[3], const int usable[6],
+                                                            const brm_vec3 *q, uint32_t idx, const shadow_view **vs,
+                                                            uint32_t (*c)[3], double (*w)[3], int *fs, uint32_t *li)
+{
+    const __m256d qx = _mm256_set_pd(q[3].x, q[2].x, q[1].x, q[0].x);
+    const __m256d qy = _mm256_set_pd(q[3].y, q[2].y, q[1].y, q[0].y);
+    const __m256d qz = _mm256_set_pd(q[3].z, q[2].z, q[1].z, q[0].z);
+#define BC(x) _mm256_set1_pd(x)
+#define DOT(ax, ay, az, b) _mm256_add_pd(_mm256_add_pd(_mm256_mul_pd(ax, BC((b).x)), _mm256_mul_pd(ay, BC((b).y))), \
+                                         _mm256_mul_pd(az, BC((b).z)))
+    __m256d in = _mm256_and_pd(_mm256_cmp_pd(qx, BC(fb->min.x), _CMP_GE_OQ), _mm256_cmp_pd(qx, BC(fb->max.x), _CMP_LE_OQ));
+    in = _mm256_and_pd(in, _mm256_and_pd(_mm256_cmp_pd(qy, BC(fb->min.y), _CMP_GE_OQ),
+                                         _mm256_cmp_pd(qy, BC(fb->max.y), _CMP_LE_OQ)));
+    in = _mm256_and_pd(in, _mm256_and_pd(_mm256_cmp_pd(qz, BC(fb->min.z), _CMP_GE_OQ),
+                                         _mm256_cmp_pd(qz, BC(fb->max.z), _CMP_LE_OQ)));
+    int inm = _mm256_movemask_pd(in);
+    if (!inm) return 0;
+    const shadow_view *v = &ls->views[0];
+    __m256d x, y, z, ev = BC(-1.0);
+    if (v->kind == BRM_VIEW_ORTHO) {
+        if (!usable[0]) return 0;
+        __m256d tb = BC(HUGE_VAL);
+        const __m256d qa[3] = {qx, qy, qz};
+        for (int a = 0; a < 3; a++) {
+            if (v->f_inv[a] == 0.0) continue;
+            const __m256d ta = _mm256_mul_pd(_mm256_sub_pd(qa[a], BC(plane[a])), BC(v->f_inv[a]));
+            const __m256d lt = _mm256_cmp_pd(ta, tb, _CMP_LT_OQ);
+            tb = _mm256_blendv_pd(tb, ta, lt);
+            ev = _mm256_blendv_pd(ev, BC((double)a), lt);
+        }
+        inm &= _mm256_movemask_pd(_mm256_cmp_pd(ev, BC(0.0), _CMP_GE_OQ));
+        x = DOT(qx, qy, qz, v->u), y = DOT(qx, qy, qz, v->v), z = DOT(qx, qy, qz, v->f);
+    } else {
+        const __m256d dx = _mm256_sub_pd(qx, BC(v->origin.x)), dy = _mm256_sub_pd(qy, BC(v->origin.y)),
+                      dz = _mm256_sub_pd(qz, BC(v->origin.z));
+        uint32_t k = 0;
+        if (ls->cube) {
+            const __m256d sgn = BC(-0.0);
+            const __m256d ax = _mm256_andnot_pd(sgn, dx), ay = _mm256_andnot_pd(sgn, dy), az = _mm256_andnot_pd(sgn, dz);
+            const int mx = _mm256_movemask_pd(_mm256_and_pd(_mm256_cmp_pd(ax, ay, _CMP_GE_OQ), _mm256_cmp_pd(ax, az, _CMP_GE_OQ)));
+            const int my = _mm256_movemask_pd(_mm256_cmp_pd(ay, az, _CMP_GE_OQ));
+            const int sx = _mm256_movemask_pd(_mm256_cmp_pd(dx, BC(0.0), _CMP_GE_OQ));
+            const int sy = _mm256_movemask_pd(_mm256_cmp_pd(dy, BC(0.0), _CMP_GE_OQ));
+            const int sz = _mm256_movemask_pd(_mm256_cmp_pd(dz, BC(0.0), _CMP_GE_OQ));
+            uint32_t kl[4], first = 1, same = 1;
+            for (int l = 0; l < 4; l++) {
+                const int b = 1 << l;
+                kl[l] = mx & b ? (sx & b ? 0u : 1u) : my & b ? (sy & b ? 2u : 3u) : (sz & b ? 4u : 5u);
+                if (!(inm & b)) continue;
+                if (first) k = kl[l], first = 0;
+                else same &= kl[l] == k;
+            }
+            if (!same) {
+                uint32_t nw = 0;
+                for (int l = 0; l < 4; l++)
+                    nw += locate1(ls, fb, plane, usable, q[l], idx + (uint32_t)l, 1, vs + nw, c[nw], w[nw], fs + nw, li + nw);
+                return nw;
+            }
+        }
+        if (!usable[k]) return 0;
+        v = &ls->views[k];
+        const __m256d zf = DOT(dx, dy, dz, v->f);
+        inm &= _mm256_movemask_pd(_mm256_cmp_pd(zf, BC(0.0), _CMP_GT_OQ));
+        if (!inm) return 0;
+        const __m256d iz = _mm256_div_pd(BC(1.0), zf);
+        const __m256d r2 = _mm256_add_pd(_mm256_add_pd(_mm256_mul_pd(dx, dx), _mm256_mul_pd(dy, dy)), _mm256_mul_pd(dz, dz));
+        x = _mm256_mul_pd(DOT(dx, dy, dz, v->u), iz), y = _mm256_mul_pd(DOT(dx, dy, dz, v->v), iz);
+        z = _mm256_sqrt_pd(r2);
+    }
+#undef DOT
+    const __m256d xa[3] = {x, y, z};
+    double ca[3][4], wa[3][4];
+    for (int a = 0; a < 3; a++) {
+        const __m256d f = _mm256_mul_pd(_mm256_sub_pd(xa[a], BC(v->og_lo[a])), BC(v->og_inv[a]));
+        const double lim = (double)(v->og_n[a] - 1);
+        inm &= _mm256_movemask_pd(_mm256_and_pd(_mm256_cmp_pd(f, BC(0.0), _CMP_GE_OQ), _mm256_cmp_pd(f, BC(lim), _CMP_LE_OQ)));
+        __m256d fl = _mm256_floor_pd(f);
+        fl = _mm256_blendv_pd(fl, BC(lim - 1.0), _mm256_cmp_pd(fl, BC(lim - 1.0), _CMP_GT_OQ));
+        _mm256_storeu_pd(ca[a], fl);
+        _mm256_storeu_pd(wa[a], _mm256_sub_pd(f, fl));
+    }
+#undef BC
+    double e4[4];
+    _mm256_storeu_pd(e4, ev);
+    const size_t n0 = v->og_n[0];
+    uint32_t nw = 0;
+    for (int l = 0; l < 4; l++) {
+        if (!(inm & (1 << l))) continue;
+        for (int a = 0; a < 3; a++) c[nw][a] = (uint32_t)ca[a][l], w[nw][a] = wa[a][l];
+        const size_t c00 = c[nw][0] + n0 * c[nw][1];
+        __builtin_prefetch(v->cell_clean + 2 * (c[nw][0] + (n0 - 1) * c[nw][1]));
+        __builtin_prefetch(v->od_col + c00);
+        __builtin_prefetch(v->od_col + c00 + n0);
+        vs[nw] = v, fs[nw] = (int)e4[l], li[nw] = idx + (uint32_t)l;
+        nw++;
+    }
+    return nw;
+}
+
+/* The batch's body, compiled twice (below): for the base instruction set and for AVX2, where
+ * the floors are one instruction and the conversions carry no false dependencies. Both do
+ * brm_od_lookup_light's and brm_exp_neg's operations in their order, without contraction
+ * (ISO C: no fused multiply-adds), so they give the same bits. `vec` selects the floor. */
+OD_INLINE void od_batch_body(const brm_scene *s, const light_shadow *ls, const brm_vec3 *p, uint32_t n, double *out,
+                             uint8_t *slow, const int vec)
 {
     const brm_aabb fb = s->fog_bounds;
+    memset(slow, 1, n);
+    const shadow_view *v0 = &ls->views[0];
+    const int ortho = v0->kind == BRM_VIEW_ORTHO;
+    /* What holds for the whole light: a light outside the fog needs two grid reads a lookup
+     * (the scalar path); a view with hard faces or without its clean runs takes the general
+     * path for every point it gets. */
+    if (!ortho && !brm_aabb_contains(fb, v0->origin)) return;
+    int usable[6] = {0, 0, 0, 0, 0, 0}, any = 0;
+    for (uint32_t k = 0; k < ls->view_count; k++)
+        any |= usable[k] = !ls->views[k].hard_count && ls->views[k].cell_clean != NULL;
+    if (!any) return;
+    /* ortho: the entry face is fixed per point by the three planes back along f */
+    double plane[3] = {0.0, 0.0, 0.0};
+    for (int a = 0; a < 3 && ortho; a++) {
+        double fa = brm_vget(v0->f, a);
+        plane[a] = fa > 0.0 ? brm_vget(fb.min, a) : brm_vget(fb.max, a);
+    }
     for (uint32_t i0 = 0; i0 < n; i0 += OD_BATCH) {
         const uint32_t m = n - i0 < OD_BATCH ? n - i0 : OD_BATCH;
         const shadow_view *vv[OD_BATCH];
         uint32_t cc[OD_BATCH][3];
         double ww[OD_BATCH][3];
         int face[OD_BATCH];
-        uint8_t ok[OD_BATCH];
+        uint32_t live[OD_BATCH], nl = 0;
         /* Pass 1: the view, the grid cell and weights, as brm_od_lookup_light takes them;
-         * the cell's flags and column offsets are fetched ahead. */
-        for (uint32_t i = 0; i < m; i++) {
-            const brm_vec3 q = p[i0 + i];
-            ok[i] = 0;
-            slow[i0 + i] = 1;
-            if (!brm_aabb_contains(fb, q)) continue;
-            const shadow_view *v = &ls->views[0];
-            double x, y, z;
-            int e = -1;
-            if (v->kind == BRM_VIEW_ORTHO) {
-                double tb = HUGE_VAL;
-                for (int a = 0; a < 3; a++) {
-                    double fa = brm_vget(v->f, a);
-                    if (fa == 0.0) continue;
-                    double plane = fa > 0.0 ? brm_vget(fb.min, a) : brm_vget(fb.max, a);
-                    double ta = (brm_vget(q, a) - plane) * v->f_inv[a];
-                    if (ta < tb) tb = ta, e = a;
-                }
-                if (e < 0) continue;
-                x = brm_dot(q, v->u), y = brm_dot(q, v->v), z = brm_dot(q, v->f);
-            } else {
-                const brm_vec3 d = brm_sub(q, v->origin);
-                if (ls->cube) {
-                    const double ax = fabs(d.x), ay = fabs(d.y), az = fabs(d.z);
-                    v = &ls->views[ax >= ay && ax >= az ? (d.x >= 0 ? 0 : 1) : ay >= az ? (d.y >= 0 ? 2 : 3) : (d.z >= 0 ? 4 : 5)];
-                }
-                if (!brm_aabb_contains(fb, v->origin)) continue; /* two grid reads: the scalar path */
-                const double zf = brm_dot(d, v->f);
-                if (!(zf > 0.0)) continue;
-                const double iz = 1.0 / zf, r2 = brm_dot(d, d);
-                x = brm_dot(d, v->u) * iz, y = brm_dot(d, v->v) * iz, z = sqrt(r2);
-            }
-            if (v->hard_count || !v->cell_clean || !grid_cell(v, x, y, z, cc[i], ww[i])) continue;
-            const size_t n0 = v->og_n[0], c00 = cc[i][0] + n0 * cc[i][1];
-            __builtin_prefetch(v->cell_clean + 2 * (cc[i][0] + (n0 - 1) * cc[i][1]));
-            __builtin_prefetch(v->od_col + c00);
-            __builtin_prefetch(v->od_col + c00 + n0);
-            vv[i] = v, face[i] = e, ok[i] = 1;
-        }
+         * the cell's clean run and column offsets are fetched ahead. */
+        uint32_t i = 0;
+        if (vec)
+            for (; i + 4 <= m; i += 4)
+                nl += locate4_avx2(ls, &fb, plane, usable, p + i0 + i, i0 + i, vv + nl, cc + nl, ww + nl, face + nl,
+                                   live + nl);
+        for (; i < m; i++)
+            nl += locate1(ls, &fb, plane, usable, p[i0 + i], i0 + i, vec, vv + nl, cc[nl], ww[nl], face + nl, live + nl);
         /* Pass 2: clean cells only (the others take the scalar path); their nodes fetched. */
-        for (uint32_t i = 0; i < m; i++) {
-            if (!ok[i]) continue;
-            const shadow_view *v = vv[i];
-            if (!cell_is_clean(v, cc[i])) {
-                ok[i] = 0;
-                continue;
-            }
-            const size_t n0 = v->og_n[0], c00 = cc[i][0] + n0 * cc[i][1];
+        uint32_t nk = 0;
+        for (uint32_t j = 0; j < nl; j++) {
+            const shadow_view *v = vv[j];
+            if (!cell_is_clean(v, cc[j])) continue;
+            const size_t n0 = v->og_n[0], c00 = cc[j][0] + n0 * cc[j][1];
             const int64_t *oc = v->od_col + c00;
-            const size_t at[4] = {(size_t)(oc[0] + cc[i][2]), (size_t)(oc[1] + cc[i][2]), (size_t)(oc[n0] + cc[i][2]),
-                                  (size_t)(oc[n0 + 1] + cc[i][2])};
+            const size_t at[4] = {(size_t)(oc[0] + cc[j][2]), (size_t)(oc[1] + cc[j][2]), (size_t)(oc[n0] + cc[j][2]),
+                                  (size_t)(oc[n0 + 1] + cc[j][2])};
             for (int k = 0; k < 4; k++) {
                 __builtin_prefetch(v->od + 2 * at[k]);
                 __builtin_prefetch(v->od + 2 * at[k] + 3);
             }
-            if (face[i] >= 0) __builtin_prefetch(v->prefix + (size_t)face[i] * n0 * v->og_n[1] + c00);
+            if (face[j] >= 0) __builtin_prefetch(v->prefix + (size_t)face[j] * n0 * v->og_n[1] + c00);
+            if (nk != j) {
+                vv[nk] = v, face[nk] = face[j], live[nk] = live[j];
+                memcpy(cc[nk], cc[j], sizeof cc[j]);
+                memcpy(ww[nk], ww[j], sizeof ww[j]);
+            }
+            nk++;
         }
         /* Pass 3: brm_od_lookup_light's arithmetic and brm_shadow_transmittance's exp. */
-        for (uint32_t i = 0; i < m; i++) {
-            if (!ok[i]) continue;
-            double pre = 0.0, g = clean_eval(vv[i], cc[i], ww[i], face[i], &pre), tau;
-            if (face[i] >= 0) {
+        uint32_t j0 = 0;
+        if (vec) {
+            for (; j0 < nk; j0 += 4) {
+                /* a short last group repeats its last lookup */
+                const shadow_view *gv[4];
+                uint32_t gc[4][3];
+                double gw[4][3], o4[4];
+                int gf[4];
+                for (uint32_t l = 0; l < 4; l++) {
+                    const uint32_t j = j0 + l < nk ? j0 + l : nk - 1;
+                    gv[l] = vv[j], gf[l] = face[j];
+                    memcpy(gc[l], cc[j], sizeof gc[l]);
+                    memcpy(gw[l], ww[j], sizeof gw[l]);
+                }
+                eval4_avx2(gv, (const uint32_t(*)[3])gc, (const double(*)[3])gw, gf, o4);
+                for (uint32_t l = 0; l < 4 && j0 + l < nk; l++) out[live[j0 + l]] = o4[l], slow[live[j0 + l]] = 0;
+            }
+        }
+        for (uint32_t j = j0; j < nk; j++) {
+            double pre = 0.0, g = clean_eval(vv[j], cc[j], ww[j], face[j], &pre), tau;
+            if (face[j] >= 0) {
                 double t = pre + g;
                 tau = t > 0.0 ? t : 0.0;
             } else {
                 tau = g > 0.0 ? g : 0.0;
             }
-            out[i0 + i] = brm_exp_neg(tau);
-            slow[i0 + i] = 0;
+            out[live[j]] = brm_exp_neg(tau);
+            slow[live[j]] = 0;
         }
     }
 }
 
+__attribute__((target("avx2"))) static void od_batch_avx2(const brm_scene *s, const light_shadow *ls,
+                                                          const brm_vec3 *p, uint32_t n, double *out, uint8_t *slow)
+{
+    od_batch_body(s, ls, p, n, out, slow, 1);
+}
+
+static void od_batch_base(const brm_scene *s, const light_shadow *ls, const brm_vec3 *p, uint32_t n, double *out,
+                          uint8_t *slow)
+{
+    od_batch_body(s, ls, p, n, out, slow, 0);
+}
+
+void brm_od_transmittance_batch_isa(const brm_scene *s, const light_shadow *ls, const brm_vec3 *p, uint32_t n,
+                                    double *out, uint8_t *slow, int simd)
+{
+    (simd && __builtin_cpu_supports("avx2") ? od_batch_avx2 : od_batch_base)(s, ls, p, n, out, slow);
+}
+
+void brm_od_transmittance_batch(const brm_scene *s, const light_shadow *ls, const brm_vec3 *p, uint32_t n,
+                                double *out, uint8_t *slow)
+{
+    brm_od_transmittance_batch_isa(s, ls, p, n, out, slow, 1);
+}

@@ -513,10 +513,48 @@ static void transmittance_batch_should_equal_single_lookups(void **state)
     uint64_t rng = 17;
     brm_aabb wide = {{-8, -3, -8}, {8, 8, 8}};
     for (int i = 0; i < N; i++) p[i] = sf_in_box(&rng, i % 5 ? target : wide);
+    /* and in clusters of eight within 0.4 m, as the kernel's tiles ask (neighbours mostly
+     * share a cube face; some clusters straddle two), around points spread as above */
+    enum { NC = 2400 };
+    static brm_vec3 pc[NC];
+    static double onec[NC], manyc[NC];
+    static uint8_t slowc[NC];
+    for (int i = 0; i < NC; i += 8) {
+        brm_vec3 c = sf_in_box(&rng, target);
+        brm_aabb near = {brm_sub(c, brm_v3(0.2, 0.2, 0.2)), brm_add(c, brm_v3(0.2, 0.2, 0.2))};
+        for (int k = 0; k < 8; k++) pc[i + k] = sf_in_box(&rng, near);
+    }
     for (uint32_t l = 0; l < s->light_count; l++) {
         for (int i = 0; i < N; i++) one[i] = brm_shadow_transmittance(ss, l, p[i]);
         brm_shadow_transmittance_batch(ss, l, p, N, many);
         assert_memory_equal(one, many, sizeof one);
+        /* the base and the AVX2 code alike (where the processor has it), spread and clustered
+         * points: the same points from the grid, each with the single lookup's bits */
+        for (int i = 0; i < NC; i++) onec[i] = brm_shadow_transmittance(ss, l, pc[i]);
+        brm_shadow_transmittance_batch(ss, l, pc, NC, manyc);
+        assert_memory_equal(onec, manyc, sizeof onec);
+        static uint8_t slow0[N], slowc0[NC];
+        for (int simd = 0; simd < 2; simd++) {
+            brm_od_transmittance_batch_isa(s, &ss->lights[l], p, N, many, slow, simd);
+            brm_od_transmittance_batch_isa(s, &ss->lights[l], pc, NC, manyc, slowc, simd);
+            for (int i = 0; i < N; i++)
+                if (!slow[i]) assert_memory_equal(&many[i], &one[i], sizeof many[i]);
+            int fastc = 0;
+            for (int i = 0; i < NC; i++) {
+                if (slowc[i]) continue;
+                assert_memory_equal(&manyc[i], &onec[i], sizeof manyc[i]);
+                fastc++;
+            }
+            if (simd) {
+                assert_memory_equal(slow, slow0, sizeof slow);
+                assert_memory_equal(slowc, slowc0, sizeof slowc);
+            } else {
+                memcpy(slow0, slow, sizeof slow);
+                memcpy(slowc0, slowc, sizeof slowc);
+            }
+            if (l < 3) assert_true(fastc > NC / 2);
+            else assert_int_equal(fastc, 0);
+        }
         brm_od_transmittance_batch(s, &ss->lights[l], p, N, many, slow);
         int fast = 0;
         for (int i = 0; i < N; i++) fast += !slow[i];
