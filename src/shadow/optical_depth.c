@@ -9,6 +9,7 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include "base/cpu.h"
 #include "scene/media.h"
 #include "shadow/shadow_internal.h"
 
@@ -1503,7 +1504,7 @@ static void od_batch_base(const brm_scene *s, const light_shadow *ls, const brm_
 void brm_od_transmittance_batch_isa(const brm_scene *s, const light_shadow *ls, const brm_vec3 *p, uint32_t n,
                                     double *out, uint8_t *slow, int simd)
 {
-    (simd && __builtin_cpu_supports("avx2") ? od_batch_avx2 : od_batch_base)(s, ls, p, n, out, slow);
+    (simd && brm_cpu_avx2() ? od_batch_avx2 : od_batch_base)(s, ls, p, n, out, slow);
 }
 
 void brm_od_transmittance_batch(const brm_scene *s, const light_shadow *ls, const brm_vec3 *p, uint32_t n,

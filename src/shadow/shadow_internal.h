@@ -310,8 +310,8 @@ int brm_od_lookup_light(const brm_scene *s, const light_shadow *ls, brm_vec3 p, 
 void brm_od_transmittance_batch(const brm_scene *s, const light_shadow *ls, const brm_vec3 *p, uint32_t n,
                                 double *out, uint8_t *slow);
 /* The same with the instruction set chosen: simd = 0 takes the base x86-64 code, 1 the AVX2
- * code where the processor has it (what brm_od_transmittance_batch takes); the two give the
- * same bits (tests). */
+ * code where brm_cpu_avx2 allows it (what brm_od_transmittance_batch takes); the two give
+ * the same bits (tests). */
 void brm_od_transmittance_batch_isa(const brm_scene *s, const light_shadow *ls, const brm_vec3 *p, uint32_t n,
                                     double *out, uint8_t *slow, int simd);
 
