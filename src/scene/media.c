@@ -37,11 +37,16 @@ struct brm_noise_table {
     uint8_t noise_idx[BRM_MAX_MEDIA];
     double fbm_norm[BRM_MAX_MEDIA];         /* 1 / Σ amplitudes, per medium index */
     uint8_t perm[BRM_MAX_MEDIA][512];       /* per medium index (only noise media filled) */
-    /* For the vectorized fBm of brm_media_eval_batch: the permutation widened to 32 bits (the
-     * gathers' element), and per entry i the gradient of hash perm[i] coded as three 2-bit
-     * indices (g + 1) into {−1, 0, 1}, one per byte (x, y, z). */
-    int32_t perm32[BRM_MAX_MEDIA][512];
+    /* For the vectorized fBm of brm_media_eval_batch: per entry i the gradient of hash perm[i]
+     * coded as three 2-bit indices (g + 1) into {−1, 0, 1}, one per byte (x, y, z), 32 bits
+     * for the gathers. */
     int32_t gcode[BRM_MAX_MEDIA][512];
+    /* The first two hash levels of each noise medium's cells, for the same fBm: per (X, Y),
+     * index X + 256·Y, the bytes perm[A], perm[A + 1], perm[B], perm[B + 1] with A = perm[X] + Y
+     * and B = perm[X + 1] + Y (low byte first), so a cell's four z hashes take one lookup.
+     * hash2 + hash2_at[mi]·65536 for medium mi; 256 KiB per noise medium. */
+    uint32_t hash2_at[BRM_MAX_MEDIA];
+    uint32_t hash2[];
 };
 
 /* ---- gradient noise -------------------------------------------------------------------- */
@@ -184,7 +189,9 @@ brm_status brm_media_prepare(brm_scene *s, brm_diag *d)
         return brm_diag_error(d, BRM_E_INPUT, "%s: %u media; at most %d are allowed", s->path, s->medium_count,
                               BRM_MAX_MEDIA);
     free(s->noise);
-    s->noise = calloc(1, sizeof *s->noise);
+    uint32_t noise_media = 0;
+    for (uint32_t i = 0; i < s->medium_count; i++) noise_media += s->media[i].type == BRM_MEDIUM_NOISE;
+    s->noise = calloc(1, sizeof *s->noise + (size_t)noise_media * 65536u * sizeof s->noise->hash2[0]);
     s->media_ready = false;
     if (!s->noise) return brm_diag_error(d, BRM_E_NOMEM, "out of memory preparing the media");
     brm_noise_table *t = s->noise;
@@ -198,9 +205,17 @@ brm_status brm_media_prepare(brm_scene *s, brm_diag *d)
             build_permutation(t->perm[i], m->seed);
             for (unsigned j = 0; j < 512; j++) {
                 const double *g = grad_tab[t->perm[i][j] & 15u];
-                t->perm32[i][j] = t->perm[i][j];
                 t->gcode[i][j] = (int32_t)(g[0] + 1.0) | (int32_t)(g[1] + 1.0) << 8 | (int32_t)(g[2] + 1.0) << 16;
             }
+            t->hash2_at[i] = t->noise_count - 1;
+            uint32_t *h2 = t->hash2 + (size_t)t->hash2_at[i] * 65536u;
+            const uint8_t *pm = t->perm[i];
+            for (unsigned y = 0; y < 256; y++)
+                for (unsigned x = 0; x < 256; x++) {
+                    const unsigned A = pm[x] + y, B = pm[x + 1] + y;
+                    h2[x + 256 * y] = (uint32_t)pm[A] | (uint32_t)pm[A + 1] << 8 | (uint32_t)pm[B] << 16 |
+                                      (uint32_t)pm[B + 1] << 24;
+                }
             uint32_t oct = m->octaves < 1 ? 1 : m->octaves > 12 ? 12 : m->octaves;
             /* Σ_{o<n} 0.5^o = 2 − 2^{1−n} */
             t->fbm_norm[i] = 1.0 / (2.0 - ldexp(1.0, 1 - (int)oct));
@@ -867,58 +882,78 @@ EVAL_AVX2 static inline int inside4(__m256d v)
 }
 
 /* fbm() four points at a time: the same IEEE operations in the same order (gradient_noise_axes
- * corner by corner, lerps in its nesting), the permutation read by gathers. No fused
+ * corner by corner, lerps in its nesting), the hashes read by gathers (hash2, gcode). No fused
  * multiply-add: the target enables AVX2 only, and the products and sums are separate
- * intrinsics. */
+ * intrinsics. Octave by octave over all the points, each in two passes: the lattice cells and
+ * the gathers of their hashes (short independent iterations, so many gathers are in flight),
+ * then the arithmetic. */
 EVAL_AVX2 static void fbm_batch_avx2(const brm_noise_table *t, uint32_t mi, uint32_t octaves, const double *x,
                                      const double *y, const double *z, uint32_t m, double *out)
 {
-    const int32_t *perm = t->perm32[mi], *gc = t->gcode[mi];
+    enum { G = (EVAL_CHUNK + 3) / 4 };
+    const uint32_t *h2 = t->hash2 + (size_t)t->hash2_at[mi] * 65536u;
+    const int32_t *gc = t->gcode[mi];
     if (octaves > 12) octaves = 12;
+    const uint32_t groups = (m + 3) / 4;
+    assert(groups <= G);
     const __m256d one = _mm256_set1_pd(1.0), norm = _mm256_set1_pd(t->fbm_norm[mi]);
-    for (uint32_t j = 0; j < m; j += 4) {
-        const __m256d px = _mm256_loadu_pd(x + j), py = _mm256_loadu_pd(y + j), pz = _mm256_loadu_pd(z + j);
-        int ok = inside4(px) & inside4(py) & inside4(pz);
-        __m256d sum = _mm256_setzero_pd();
-        double amp = 1.0, freq = 1.0;
-        for (uint32_t o = 0; o < octaves && ok; o++) {
-            const __m256d f = _mm256_set1_pd(freq);
-            const __m256d cx = _mm256_add_pd(_mm256_mul_pd(px, f), _mm256_set1_pd(octave_offset[o][0]));
-            const __m256d cy = _mm256_add_pd(_mm256_mul_pd(py, f), _mm256_set1_pd(octave_offset[o][1]));
-            const __m256d cz = _mm256_add_pd(_mm256_mul_pd(pz, f), _mm256_set1_pd(octave_offset[o][2]));
-            ok = inside4(cx) & inside4(cy) & inside4(cz);
+    const __m128i byte = _mm_set1_epi32(255);
+    __m256d sum[G], ax[G][6]; /* per group: the offsets x, y, z and their fades u, v, w */
+    __m128i code[G][8];       /* the eight corners' coded gradients, gradient_noise_axes's order */
+    int ok[G];
+    for (uint32_t g = 0; g < groups; g++) {
+        ok[g] = inside4(_mm256_loadu_pd(x + 4 * g)) & inside4(_mm256_loadu_pd(y + 4 * g)) &
+                inside4(_mm256_loadu_pd(z + 4 * g));
+        sum[g] = _mm256_setzero_pd();
+    }
+    double amp = 1.0, freq = 1.0;
+    for (uint32_t o = 0; o < octaves; o++) {
+        const __m256d f = _mm256_set1_pd(freq);
+        const __m256d ox = _mm256_set1_pd(octave_offset[o][0]), oy = _mm256_set1_pd(octave_offset[o][1]),
+                      oz = _mm256_set1_pd(octave_offset[o][2]);
+        for (uint32_t g = 0; g < groups; g++) {
+            const __m256d cx = _mm256_add_pd(_mm256_mul_pd(_mm256_loadu_pd(x + 4 * g), f), ox);
+            const __m256d cy = _mm256_add_pd(_mm256_mul_pd(_mm256_loadu_pd(y + 4 * g), f), oy);
+            const __m256d cz = _mm256_add_pd(_mm256_mul_pd(_mm256_loadu_pd(z + 4 * g), f), oz);
+            ok[g] &= inside4(cx) & inside4(cy) & inside4(cz);
             __m128i X, Y, Z;
-            __m256d tx, ty, tz, u, v, w;
-            axis4(cx, &X, &tx, &u);
-            axis4(cy, &Y, &ty, &v);
-            axis4(cz, &Z, &tz, &w);
-            /* A = perm[X] + Y, B = perm[X + 1] + Y; AA = perm[A] + Z, AB = perm[A + 1] + Z, ... */
-            __m128i pa, pb, a0, a1, b0, b1;
-            gather_pair(perm, X, &pa, &pb);
-            gather_pair(perm, _mm_add_epi32(pa, Y), &a0, &a1);
-            gather_pair(perm, _mm_add_epi32(pb, Y), &b0, &b1);
-            const __m128i AA = _mm_add_epi32(a0, Z), AB = _mm_add_epi32(a1, Z);
-            const __m128i BA = _mm_add_epi32(b0, Z), BB = _mm_add_epi32(b1, Z);
-            __m128i g0, g4, g1, g5, g2, g6, g3, g7;
-            gather_pair(gc, AA, &g0, &g4);
-            gather_pair(gc, BA, &g1, &g5);
-            gather_pair(gc, AB, &g2, &g6);
-            gather_pair(gc, BB, &g3, &g7);
+            axis4(cx, &X, &ax[g][0], &ax[g][3]);
+            axis4(cy, &Y, &ax[g][1], &ax[g][4]);
+            axis4(cz, &Z, &ax[g][2], &ax[g][5]);
+            /* A = perm[X] + Y, B = perm[X + 1] + Y; AA = perm[A] + Z, AB = perm[A + 1] + Z, BA =
+             * perm[B] + Z, BB = perm[B + 1] + Z: the four bytes of hash2 at (X, Y) */
+            const __m128i h = _mm_i32gather_epi32((const int *)(const void *)h2,
+                                                  _mm_add_epi32(X, _mm_slli_epi32(Y, 8)), 4);
+            const __m128i AA = _mm_add_epi32(_mm_and_si128(h, byte), Z);
+            const __m128i AB = _mm_add_epi32(_mm_and_si128(_mm_srli_epi32(h, 8), byte), Z);
+            const __m128i BA = _mm_add_epi32(_mm_and_si128(_mm_srli_epi32(h, 16), byte), Z);
+            const __m128i BB = _mm_add_epi32(_mm_srli_epi32(h, 24), Z);
+            gather_pair(gc, AA, &code[g][0], &code[g][4]);
+            gather_pair(gc, BA, &code[g][1], &code[g][5]);
+            gather_pair(gc, AB, &code[g][2], &code[g][6]);
+            gather_pair(gc, BB, &code[g][3], &code[g][7]);
+        }
+        const __m256d a = _mm256_set1_pd(amp);
+        for (uint32_t g = 0; g < groups; g++) {
+            const __m256d tx = ax[g][0], ty = ax[g][1], tz = ax[g][2], u = ax[g][3], v = ax[g][4], w = ax[g][5];
+            const __m128i *c = code[g];
             const __m256d x1 = _mm256_sub_pd(tx, one), y1 = _mm256_sub_pd(ty, one), z1 = _mm256_sub_pd(tz, one);
             const __m256d n = lerp4(
                 w,
-                lerp4(v, lerp4(u, grad4(g0, tx, ty, tz), grad4(g1, x1, ty, tz)),
-                      lerp4(u, grad4(g2, tx, y1, tz), grad4(g3, x1, y1, tz))),
-                lerp4(v, lerp4(u, grad4(g4, tx, ty, z1), grad4(g5, x1, ty, z1)),
-                      lerp4(u, grad4(g6, tx, y1, z1), grad4(g7, x1, y1, z1))));
-            sum = _mm256_add_pd(sum, _mm256_mul_pd(_mm256_set1_pd(amp), n));
-            amp *= 0.5;
-            freq *= 2.0;
+                lerp4(v, lerp4(u, grad4(c[0], tx, ty, tz), grad4(c[1], x1, ty, tz)),
+                      lerp4(u, grad4(c[2], tx, y1, tz), grad4(c[3], x1, y1, tz))),
+                lerp4(v, lerp4(u, grad4(c[4], tx, ty, z1), grad4(c[5], x1, ty, z1)),
+                      lerp4(u, grad4(c[6], tx, y1, z1), grad4(c[7], x1, y1, z1))));
+            sum[g] = _mm256_add_pd(sum[g], _mm256_mul_pd(a, n));
         }
-        if (ok) {
-            _mm256_storeu_pd(out + j, _mm256_mul_pd(sum, norm));
+        amp *= 0.5;
+        freq *= 2.0;
+    }
+    for (uint32_t g = 0; g < groups; g++) {
+        if (ok[g]) {
+            _mm256_storeu_pd(out + 4 * g, _mm256_mul_pd(sum[g], norm));
         } else { /* a coordinate needs fold()'s fmod: these four the scalar way */
-            for (uint32_t q = j; q < j + 4; q++) out[q] = fbm(t, mi, octaves, brm_v3(x[q], y[q], z[q]));
+            for (uint32_t q = 4 * g; q < 4 * g + 4; q++) out[q] = fbm(t, mi, octaves, brm_v3(x[q], y[q], z[q]));
         }
     }
 }
