@@ -222,8 +222,9 @@ static size_t block_bytes(shadow_view *v)
     v->blk_cap = (uint32_t)((lat + BRM_OD_BLOCK_SHARE - 1) / BRM_OD_BLOCK_SHARE);
     size_t per = r1 * r1 * v->og_n[2] * 2 * sizeof(float) + (size_t)BRM_OD_REFINE * BRM_OD_REFINE * (v->og_n[2] - 1) +
                  sizeof(uint32_t) + (v->kind == BRM_VIEW_ORTHO ? 3 * r1 * r1 * sizeof(float) : 0);
-    /* refine, blocks, corr, cell_clean */
-    return lat * sizeof(int32_t) + v->blk_cap * per + lat * sizeof(int32_t) + lat * 2 * sizeof(uint16_t);
+    /* refine, blocks, corr, cell_clean, cell_quad */
+    return lat * sizeof(int32_t) + v->blk_cap * per + lat * sizeof(int32_t) + lat * 2 * sizeof(uint16_t) +
+           lat * 8 * sizeof(int32_t) + 32;
 }
 
 /* Sets the light's reserved correction pool (any of its views may draw on it: a cube's faces
@@ -919,6 +920,19 @@ void brm_od_finish(shadow_view *v)
         v->cell_clean[2 * c] = (uint16_t)k0;
         v->cell_clean[2 * c + 1] = (uint16_t)k;
     }
+    /* the batch's records, 32-byte aligned (one cache line each); node indices fit in 32
+     * bits (a view holds at most a few million nodes, od_col ≥ −BRM_OD_MAX_DEPTH_NODES) */
+    const uint32_t n0 = v->og_n[0], nc0 = n0 - 1;
+    if (v->od_nodes > (size_t)INT32_MAX - BRM_OD_MAX_DEPTH_NODES) return;
+    v->cell_quad = aligned_alloc(32, lat * 8 * sizeof *v->cell_quad);
+    if (!v->cell_quad) return;
+    for (size_t c = 0; c < lat; c++) {
+        const size_t c00 = c % nc0 + (c / nc0) * n0;
+        int32_t *r = v->cell_quad + 8 * c;
+        r[0] = (int32_t)v->od_col[c00], r[1] = (int32_t)v->od_col[c00 + 1];
+        r[2] = (int32_t)v->od_col[c00 + n0], r[3] = (int32_t)v->od_col[c00 + n0 + 1];
+        r[4] = v->cell_clean[2 * c], r[5] = v->cell_clean[2 * c + 1], r[6] = r[7] = 0;
+    }
 }
 
 /* G (and for face ≥ 0 the prefix P_face) at grid coordinates (x, y, z): cubic Hermite in z
@@ -1160,7 +1174,8 @@ int brm_od_lookup_light(const brm_scene *s, const light_shadow *ls, brm_vec3 p, 
  * combined per lane (bilinear across the four columns), transposed, and the Hermite basis
  * taken across lanes. */
 __attribute__((target("avx2"))) static void eval4_avx2(const shadow_view *const *vv, const uint32_t (*cc)[3],
-                                                      const double (*ww)[3], const int *face, double out[4])
+                                                      const double (*ww)[3], const size_t (*at)[4], const int *face,
+                                                      double out[4])
 {
     float pr[4][4], hzs[4];
     __m128 a[4];
@@ -1176,12 +1191,9 @@ __attribute__((target("avx2"))) static void eval4_avx2(const shadow_view *const 
         const shadow_view *v = vv[l];
         const uint32_t n0 = v->og_n[0];
         const size_t c00 = cc[l][0] + (size_t)n0 * cc[l][1];
-        const int64_t *oc = v->od_col + c00;
         const float *od = v->od;
-        const __m128 n00 = _mm_loadu_ps(od + 2 * (size_t)(oc[0] + cc[l][2]));
-        const __m128 n10 = _mm_loadu_ps(od + 2 * (size_t)(oc[1] + cc[l][2]));
-        const __m128 n01 = _mm_loadu_ps(od + 2 * (size_t)(oc[n0] + cc[l][2]));
-        const __m128 n11 = _mm_loadu_ps(od + 2 * (size_t)(oc[n0 + 1] + cc[l][2]));
+        const __m128 n00 = _mm_loadu_ps(od + 2 * at[l][0]), n10 = _mm_loadu_ps(od + 2 * at[l][1]);
+        const __m128 n01 = _mm_loadu_ps(od + 2 * at[l][2]), n11 = _mm_loadu_ps(od + 2 * at[l][3]);
         __m128 x = _mm_mul_ps(_mm_set1_ps(wq[0][l]), n00);
         x = _mm_add_ps(x, _mm_mul_ps(_mm_set1_ps(wq[1][l]), n10));
         x = _mm_add_ps(x, _mm_mul_ps(_mm_set1_ps(wq[2][l]), n01));
@@ -1283,10 +1295,7 @@ OD_INLINE uint32_t locate1(const light_shadow *ls, const brm_aabb *fb, const dou
         c[a] = (uint32_t)fl;
         w[a] = f[a] - fl;
     }
-    const size_t n0 = v->og_n[0], c00 = c[0] + n0 * c[1];
-    __builtin_prefetch(v->cell_clean + 2 * (c[0] + (n0 - 1) * c[1]));
-    __builtin_prefetch(v->od_col + c00);
-    __builtin_prefetch(v->od_col + c00 + n0);
+    __builtin_prefetch(v->cell_quad + 8 * (c[0] + (size_t)(v->og_n[0] - 1) * c[1]));
     *vs = v, *fs = e, *ls_idx = idx;
     return 1;
 }
@@ -1384,10 +1393,7 @@ __attribute__((target("avx2"))) static uint32_t locate4_avx2(const light_shadow 
     for (int l = 0; l < 4; l++) {
         if (!(inm & (1 << l))) continue;
         for (int a = 0; a < 3; a++) c[nw][a] = (uint32_t)ca[a][l], w[nw][a] = wa[a][l];
-        const size_t c00 = c[nw][0] + n0 * c[nw][1];
-        __builtin_prefetch(v->cell_clean + 2 * (c[nw][0] + (n0 - 1) * c[nw][1]));
-        __builtin_prefetch(v->od_col + c00);
-        __builtin_prefetch(v->od_col + c00 + n0);
+        __builtin_prefetch(v->cell_quad + 8 * (c[nw][0] + (n0 - 1) * c[nw][1]));
         vs[nw] = v, fs[nw] = (int)e4[l], li[nw] = idx + (uint32_t)l;
         nw++;
     }
@@ -1411,7 +1417,7 @@ OD_INLINE void od_batch_body(const brm_scene *s, const light_shadow *ls, const b
     if (!ortho && !brm_aabb_contains(fb, v0->origin)) return;
     int usable[6] = {0, 0, 0, 0, 0, 0}, any = 0;
     for (uint32_t k = 0; k < ls->view_count; k++)
-        any |= usable[k] = !ls->views[k].hard_count && ls->views[k].cell_clean != NULL;
+        any |= usable[k] = !ls->views[k].hard_count && ls->views[k].cell_quad != NULL;
     if (!any) return;
     /* ortho: the entry face is fixed per point by the three planes back along f */
     double plane[3] = {0.0, 0.0, 0.0};
@@ -1437,18 +1443,19 @@ OD_INLINE void od_batch_body(const brm_scene *s, const light_shadow *ls, const b
             nl += locate1(ls, &fb, plane, usable, p[i0 + i], i0 + i, vec, vv + nl, cc[nl], ww[nl], face + nl, live + nl);
         /* Pass 2: clean cells only (the others take the scalar path); their nodes fetched. */
         uint32_t nk = 0;
+        size_t at[OD_BATCH][4];
         for (uint32_t j = 0; j < nl; j++) {
             const shadow_view *v = vv[j];
-            if (!cell_is_clean(v, cc[j])) continue;
-            const size_t n0 = v->og_n[0], c00 = cc[j][0] + n0 * cc[j][1];
-            const int64_t *oc = v->od_col + c00;
-            const size_t at[4] = {(size_t)(oc[0] + cc[j][2]), (size_t)(oc[1] + cc[j][2]), (size_t)(oc[n0] + cc[j][2]),
-                                  (size_t)(oc[n0 + 1] + cc[j][2])};
-            for (int k = 0; k < 4; k++) {
-                __builtin_prefetch(v->od + 2 * at[k]);
-                __builtin_prefetch(v->od + 2 * at[k] + 3);
+            const size_t n0 = v->og_n[0];
+            const int32_t *r = v->cell_quad + 8 * (cc[j][0] + (n0 - 1) * cc[j][1]);
+            const int32_t k = (int32_t)cc[j][2];
+            if (!(k >= r[4] && k < r[5])) continue;
+            for (int q = 0; q < 4; q++) {
+                at[nk][q] = (size_t)(r[q] + k);
+                __builtin_prefetch(v->od + 2 * at[nk][q]);
+                __builtin_prefetch(v->od + 2 * at[nk][q] + 3);
             }
-            if (face[j] >= 0) __builtin_prefetch(v->prefix + (size_t)face[j] * n0 * v->og_n[1] + c00);
+            if (face[j] >= 0) __builtin_prefetch(v->prefix + (size_t)face[j] * n0 * v->og_n[1] + cc[j][0] + n0 * cc[j][1]);
             if (nk != j) {
                 vv[nk] = v, face[nk] = face[j], live[nk] = live[j];
                 memcpy(cc[nk], cc[j], sizeof cc[j]);
@@ -1464,14 +1471,16 @@ OD_INLINE void od_batch_body(const brm_scene *s, const light_shadow *ls, const b
                 const shadow_view *gv[4];
                 uint32_t gc[4][3];
                 double gw[4][3], o4[4];
+                size_t ga[4][4];
                 int gf[4];
                 for (uint32_t l = 0; l < 4; l++) {
                     const uint32_t j = j0 + l < nk ? j0 + l : nk - 1;
                     gv[l] = vv[j], gf[l] = face[j];
                     memcpy(gc[l], cc[j], sizeof gc[l]);
                     memcpy(gw[l], ww[j], sizeof gw[l]);
+                    memcpy(ga[l], at[j], sizeof ga[l]);
                 }
-                eval4_avx2(gv, (const uint32_t(*)[3])gc, (const double(*)[3])gw, gf, o4);
+                eval4_avx2(gv, (const uint32_t(*)[3])gc, (const double(*)[3])gw, (const size_t(*)[4])ga, gf, o4);
                 for (uint32_t l = 0; l < 4 && j0 + l < nk; l++) out[live[j0 + l]] = o4[l], slow[live[j0 + l]] = 0;
             }
         }

@@ -457,6 +457,7 @@ void brm_shadows_free(brm_shadow_set *ss)
             free(ss->lights[l].views[k].od_last);
             free(ss->lights[l].views[k].od_first);
             free(ss->lights[l].views[k].cell_clean);
+            free(ss->lights[l].views[k].cell_quad);
             free(ss->lights[l].views[k].refine);
             free(ss->lights[l].views[k].blk_cell);
             free(ss->lights[l].views[k].blk_od);

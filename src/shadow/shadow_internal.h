@@ -132,6 +132,11 @@ typedef struct shadow_view {
      * columns (no block, no correction, no flag), so most lookups read this and the
      * columns alone; NULL when out of memory (every lookup takes the general path) */
     uint16_t *cell_clean;       /* 2 · (og_n[0] − 1) · (og_n[1] − 1): lo, hi */
+    /* The same run with the od index of node 0 of the cell's four columns (od_col of
+     * columns (i, j), (i+1, j), (i, j+1), (i+1, j+1)), one 32-byte record a lateral cell, so
+     * a batch lookup finds all it needs in one cache line: 8 int32 per cell, the four
+     * indices, lo, hi, two unused; NULL when out of memory (the batch takes the general path) */
+    int32_t *cell_quad;
     /* The media's hard box faces (media_info.hard of the set): G has a kink where a column
      * crosses one, which the Hermite steps along depth cannot follow (off by up to about
      * jump · step / 10 in tau) and the build's checks at the nodes cannot see, so a lookup
