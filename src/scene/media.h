@@ -17,8 +17,8 @@ typedef struct brm_media_point {
     double sigma_t_each[BRM_MAX_MEDIA]; /* each one's extinction here (noise factor applied) */
 } brm_media_point;
 
-/* Precomputes what the media functions need (reciprocals, the noise permutation tables) and
- * sets s->media_ready. The loader calls it; a scene assembled by hand (tests, tools) must call
+/* Precomputes what the media functions need (reciprocals, the noise permutation tables, and
+ * for the batch fBm a 256 KiB hash table per noise medium) and sets s->media_ready. The loader calls it; a scene assembled by hand (tests, tools) must call
  * it after filling s->media and s->fog_bounds and before any other function here. Frees and
  * rebuilds the noise table when called again. Returns BRM_E_NOMEM on allocation failure. */
 brm_status brm_media_prepare(brm_scene *s, brm_diag *d);
