@@ -1172,42 +1172,44 @@ int brm_od_lookup_light(const brm_scene *s, const light_shadow *ls, brm_vec3 p, 
  * arithmetic, the prefix, the clamp and brm_exp_neg, each operation the scalar one in the
  * same order on four lanes, so the bits are the scalar path's. The node quads are
  * combined per lane (bilinear across the four columns), transposed, and the Hermite basis
- * taken across lanes. */
-__attribute__((target("avx2"))) static void eval4_avx2(const shadow_view *const *vv, const uint32_t (*cc)[3],
-                                                      const double (*ww)[3], const size_t (*at)[4], const int *face,
-                                                      double out[4])
+ * taken across lanes; the prefixes likewise. at: the four node indices of each lookup, pr:
+ * its prefix at column (i, j) (NULL: no prefix, pre = 0, tau = max(g, 0)). */
+__attribute__((target("avx2"))) static void eval4_avx2(const shadow_view *const *vv, const double (*ww)[3],
+                                                      const size_t (*at)[4], const float *const *pr, double out[4])
 {
-    float pr[4][4], hzs[4];
-    __m128 a[4];
+    __m128 a[4], pq[4];
     const __m256d w0 = _mm256_set_pd(ww[3][0], ww[2][0], ww[1][0], ww[0][0]);
     const __m256d w1 = _mm256_set_pd(ww[3][1], ww[2][1], ww[1][1], ww[0][1]);
     const __m256d w2 = _mm256_set_pd(ww[3][2], ww[2][2], ww[1][2], ww[0][2]);
     const __m128 one = _mm_set1_ps(1.0f), wx = _mm256_cvtpd_ps(w0), wy = _mm256_cvtpd_ps(w1);
     const __m128 ux = _mm_sub_ps(one, wx), uy = _mm_sub_ps(one, wy);
     const __m128 q0 = _mm_mul_ps(ux, uy), q1 = _mm_mul_ps(wx, uy), q2 = _mm_mul_ps(ux, wy), q3 = _mm_mul_ps(wx, wy);
-    float wq[4][4];
-    _mm_storeu_ps(wq[0], q0), _mm_storeu_ps(wq[1], q1), _mm_storeu_ps(wq[2], q2), _mm_storeu_ps(wq[3], q3);
-    for (int l = 0; l < 4; l++) {
-        const shadow_view *v = vv[l];
-        const uint32_t n0 = v->og_n[0];
-        const size_t c00 = cc[l][0] + (size_t)n0 * cc[l][1];
-        const float *od = v->od;
-        const __m128 n00 = _mm_loadu_ps(od + 2 * at[l][0]), n10 = _mm_loadu_ps(od + 2 * at[l][1]);
-        const __m128 n01 = _mm_loadu_ps(od + 2 * at[l][2]), n11 = _mm_loadu_ps(od + 2 * at[l][3]);
-        __m128 x = _mm_mul_ps(_mm_set1_ps(wq[0][l]), n00);
-        x = _mm_add_ps(x, _mm_mul_ps(_mm_set1_ps(wq[1][l]), n10));
-        x = _mm_add_ps(x, _mm_mul_ps(_mm_set1_ps(wq[2][l]), n01));
-        a[l] = _mm_add_ps(x, _mm_mul_ps(_mm_set1_ps(wq[3][l]), n11));
-        hzs[l] = (float)v->og_step[2];
-        if (face[l] >= 0) {
-            const float *p = v->prefix + (size_t)face[l] * n0 * v->og_n[1] + c00;
-            pr[0][l] = p[0], pr[1][l] = p[1], pr[2][l] = p[n0], pr[3][l] = p[n0 + 1];
-        } else {
-            pr[0][l] = pr[1][l] = pr[2][l] = pr[3][l] = 0.0f; /* pre = 0: tau = max(g, 0) */
-        }
-    }
+#define OD_LANE(l)                                                                                                   \
+    do {                                                                                                             \
+        const float *od = vv[l]->od;                                                                                 \
+        const __m128 n00 = _mm_loadu_ps(od + 2 * at[l][0]), n10 = _mm_loadu_ps(od + 2 * at[l][1]);                   \
+        const __m128 n01 = _mm_loadu_ps(od + 2 * at[l][2]), n11 = _mm_loadu_ps(od + 2 * at[l][3]);                   \
+        __m128 x = _mm_mul_ps(_mm_shuffle_ps(q0, q0, _MM_SHUFFLE(l, l, l, l)), n00);                                 \
+        x = _mm_add_ps(x, _mm_mul_ps(_mm_shuffle_ps(q1, q1, _MM_SHUFFLE(l, l, l, l)), n10));                        \
+        x = _mm_add_ps(x, _mm_mul_ps(_mm_shuffle_ps(q2, q2, _MM_SHUFFLE(l, l, l, l)), n01));                        \
+        a[l] = _mm_add_ps(x, _mm_mul_ps(_mm_shuffle_ps(q3, q3, _MM_SHUFFLE(l, l, l, l)), n11));                     \
+        if (pr[l]) {                                                                                                 \
+            const size_t n0 = vv[l]->og_n[0];                                                                        \
+            pq[l] = _mm_loadh_pi(_mm_loadl_pi(_mm_setzero_ps(), (const __m64 *)(const void *)pr[l]),             \
+                                 (const __m64 *)(const void *)(pr[l] + n0)); /* __m64 may alias */            \
+        } else {                                                                                                     \
+            pq[l] = _mm_setzero_ps();                                                                                \
+        }                                                                                                            \
+    } while (0)
+    OD_LANE(0);
+    OD_LANE(1);
+    OD_LANE(2);
+    OD_LANE(3);
+#undef OD_LANE
+    const __m128 hz = _mm_set_ps((float)vv[3]->og_step[2], (float)vv[2]->og_step[2], (float)vv[1]->og_step[2],
+                                 (float)vv[0]->og_step[2]);
     _MM_TRANSPOSE4_PS(a[0], a[1], a[2], a[3]);
-    const __m128 t = _mm256_cvtpd_ps(w2), t2 = _mm_mul_ps(t, t), t3 = _mm_mul_ps(t2, t), hz = _mm_loadu_ps(hzs);
+    const __m128 t = _mm256_cvtpd_ps(w2), t2 = _mm_mul_ps(t, t), t3 = _mm_mul_ps(t2, t);
     const __m128 h0 = _mm_add_ps(_mm_sub_ps(_mm_mul_ps(_mm_set1_ps(2.0f), t3), _mm_mul_ps(_mm_set1_ps(3.0f), t2)), one);
     const __m128 h1 = _mm_mul_ps(_mm_add_ps(_mm_sub_ps(t3, _mm_mul_ps(_mm_set1_ps(2.0f), t2)), t), hz);
     const __m128 h2 = _mm_add_ps(_mm_mul_ps(_mm_set1_ps(-2.0f), t3), _mm_mul_ps(_mm_set1_ps(3.0f), t2));
@@ -1216,10 +1218,11 @@ __attribute__((target("avx2"))) static void eval4_avx2(const shadow_view *const 
     g = _mm_add_ps(g, _mm_mul_ps(a[1], h1));
     g = _mm_add_ps(g, _mm_mul_ps(a[2], h2));
     g = _mm_add_ps(g, _mm_mul_ps(a[3], h3));
-    __m128 pp = _mm_mul_ps(q0, _mm_loadu_ps(pr[0]));
-    pp = _mm_add_ps(pp, _mm_mul_ps(q1, _mm_loadu_ps(pr[1])));
-    pp = _mm_add_ps(pp, _mm_mul_ps(q2, _mm_loadu_ps(pr[2])));
-    pp = _mm_add_ps(pp, _mm_mul_ps(q3, _mm_loadu_ps(pr[3])));
+    _MM_TRANSPOSE4_PS(pq[0], pq[1], pq[2], pq[3]);
+    __m128 pp = _mm_mul_ps(q0, pq[0]);
+    pp = _mm_add_ps(pp, _mm_mul_ps(q1, pq[1]));
+    pp = _mm_add_ps(pp, _mm_mul_ps(q2, pq[2]));
+    pp = _mm_add_ps(pp, _mm_mul_ps(q3, pq[3]));
     /* tau = pre + g, clamped below at 0 (max_pd returns 0 unless the sum is > 0) */
     const __m256d tau = _mm256_max_pd(_mm256_add_pd(_mm256_cvtps_pd(pp), _mm256_cvtps_pd(g)), _mm256_setzero_pd());
     /* brm_exp_neg on four lanes */
@@ -1427,9 +1430,9 @@ OD_INLINE void od_batch_body(const brm_scene *s, const light_shadow *ls, const b
     }
     for (uint32_t i0 = 0; i0 < n; i0 += OD_BATCH) {
         const uint32_t m = n - i0 < OD_BATCH ? n - i0 : OD_BATCH;
-        const shadow_view *vv[OD_BATCH];
+        const shadow_view *vv[OD_BATCH + 3];
         uint32_t cc[OD_BATCH][3];
-        double ww[OD_BATCH][3];
+        double ww[OD_BATCH + 3][3];
         int face[OD_BATCH];
         uint32_t live[OD_BATCH], nl = 0;
         /* Pass 1: the view, the grid cell and weights, as brm_od_lookup_light takes them;
@@ -1443,7 +1446,8 @@ OD_INLINE void od_batch_body(const brm_scene *s, const light_shadow *ls, const b
             nl += locate1(ls, &fb, plane, usable, p[i0 + i], i0 + i, vec, vv + nl, cc[nl], ww[nl], face + nl, live + nl);
         /* Pass 2: clean cells only (the others take the scalar path); their nodes fetched. */
         uint32_t nk = 0;
-        size_t at[OD_BATCH][4];
+        size_t at[OD_BATCH + 3][4];
+        const float *pre_at[OD_BATCH + 3];
         for (uint32_t j = 0; j < nl; j++) {
             const shadow_view *v = vv[j];
             const size_t n0 = v->og_n[0];
@@ -1455,7 +1459,8 @@ OD_INLINE void od_batch_body(const brm_scene *s, const light_shadow *ls, const b
                 __builtin_prefetch(v->od + 2 * at[nk][q]);
                 __builtin_prefetch(v->od + 2 * at[nk][q] + 3);
             }
-            if (face[j] >= 0) __builtin_prefetch(v->prefix + (size_t)face[j] * n0 * v->og_n[1] + cc[j][0] + n0 * cc[j][1]);
+            pre_at[nk] = face[j] >= 0 ? v->prefix + (size_t)face[j] * n0 * v->og_n[1] + cc[j][0] + n0 * cc[j][1] : NULL;
+            if (pre_at[nk]) __builtin_prefetch(pre_at[nk]);
             if (nk != j) {
                 vv[nk] = v, face[nk] = face[j], live[nk] = live[j];
                 memcpy(cc[nk], cc[j], sizeof cc[j]);
@@ -1465,22 +1470,16 @@ OD_INLINE void od_batch_body(const brm_scene *s, const light_shadow *ls, const b
         }
         /* Pass 3: brm_od_lookup_light's arithmetic and brm_shadow_transmittance's exp. */
         uint32_t j0 = 0;
-        if (vec) {
+        if (vec && nk) {
+            /* a short last group repeats its last lookup */
+            for (uint32_t j = nk; j < ((nk + 3) & ~3u); j++) {
+                vv[j] = vv[nk - 1], pre_at[j] = pre_at[nk - 1];
+                memcpy(ww[j], ww[nk - 1], sizeof ww[j]);
+                memcpy(at[j], at[nk - 1], sizeof at[j]);
+            }
             for (; j0 < nk; j0 += 4) {
-                /* a short last group repeats its last lookup */
-                const shadow_view *gv[4];
-                uint32_t gc[4][3];
-                double gw[4][3], o4[4];
-                size_t ga[4][4];
-                int gf[4];
-                for (uint32_t l = 0; l < 4; l++) {
-                    const uint32_t j = j0 + l < nk ? j0 + l : nk - 1;
-                    gv[l] = vv[j], gf[l] = face[j];
-                    memcpy(gc[l], cc[j], sizeof gc[l]);
-                    memcpy(gw[l], ww[j], sizeof gw[l]);
-                    memcpy(ga[l], at[j], sizeof ga[l]);
-                }
-                eval4_avx2(gv, (const uint32_t(*)[3])gc, (const double(*)[3])gw, (const size_t(*)[4])ga, gf, o4);
+                double o4[4];
+                eval4_avx2(vv + j0, (const double(*)[3])(ww + j0), (const size_t(*)[4])(at + j0), pre_at + j0, o4);
                 for (uint32_t l = 0; l < 4 && j0 + l < nk; l++) out[live[j0 + l]] = o4[l], slow[live[j0 + l]] = 0;
             }
         }
