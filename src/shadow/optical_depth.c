@@ -1311,9 +1311,16 @@ __attribute__((target("avx2"))) static uint32_t locate4_avx2(const light_shadow 
                                                             const brm_vec3 *q, uint32_t idx, const shadow_view **vs,
                                                             uint32_t (*c)[3], double (*w)[3], int *fs, uint32_t *li)
 {
-    const __m256d qx = _mm256_set_pd(q[3].x, q[2].x, q[1].x, q[0].x);
-    const __m256d qy = _mm256_set_pd(q[3].y, q[2].y, q[1].y, q[0].y);
-    const __m256d qz = _mm256_set_pd(q[3].z, q[2].z, q[1].z, q[0].z);
+    /* the four points' coordinates by three loads and a 4 x 3 transpose:
+     * (x0 y0 z0 x1) (y1 z1 x2 y2) (z2 x3 y3 z3) */
+    _Static_assert(sizeof(brm_vec3) == 3 * sizeof(double), "brm_vec3 is three packed doubles");
+    const double *qd = &q[0].x;
+    const __m256d ra = _mm256_loadu_pd(qd), rb = _mm256_loadu_pd(qd + 4), rc = _mm256_loadu_pd(qd + 8);
+    const __m256d m1 = _mm256_permute2f128_pd(ra, rb, 0x30); /* x0 y0 x2 y2 */
+    const __m256d m2 = _mm256_permute2f128_pd(ra, rc, 0x21); /* z0 x1 z2 x3 */
+    const __m256d m3 = _mm256_permute2f128_pd(rb, rc, 0x30); /* y1 z1 y3 z3 */
+    const __m256d qx = _mm256_shuffle_pd(m1, m2, 0xA), qy = _mm256_shuffle_pd(m1, m3, 0x5),
+                  qz = _mm256_shuffle_pd(m2, m3, 0xA);
 #define BC(x) _mm256_set1_pd(x)
 #define DOT(ax, ay, az, b) _mm256_add_pd(_mm256_add_pd(_mm256_mul_pd(ax, BC((b).x)), _mm256_mul_pd(ay, BC((b).y))), \
                                          _mm256_mul_pd(az, BC((b).z)))
@@ -1378,14 +1385,15 @@ __attribute__((target("avx2"))) static uint32_t locate4_avx2(const light_shadow 
     }
 #undef DOT
     const __m256d xa[3] = {x, y, z};
-    double ca[3][4], wa[3][4];
+    int32_t ca[3][4];
+    double wa[3][4];
     for (int a = 0; a < 3; a++) {
         const __m256d f = _mm256_mul_pd(_mm256_sub_pd(xa[a], BC(v->og_lo[a])), BC(v->og_inv[a]));
         const double lim = (double)(v->og_n[a] - 1);
         inm &= _mm256_movemask_pd(_mm256_and_pd(_mm256_cmp_pd(f, BC(0.0), _CMP_GE_OQ), _mm256_cmp_pd(f, BC(lim), _CMP_LE_OQ)));
         __m256d fl = _mm256_floor_pd(f);
         fl = _mm256_blendv_pd(fl, BC(lim - 1.0), _mm256_cmp_pd(fl, BC(lim - 1.0), _CMP_GT_OQ));
-        _mm256_storeu_pd(ca[a], fl);
+        _mm_storeu_si128((__m128i *)(void *)ca[a], _mm256_cvttpd_epi32(fl)); /* 0 ≤ fl < 2^31 where used */
         _mm256_storeu_pd(wa[a], _mm256_sub_pd(f, fl));
     }
 #undef BC
