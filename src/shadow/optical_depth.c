@@ -1464,14 +1464,13 @@ OD_INLINE void od_batch_body(const brm_scene *s, const light_shadow *ls, const b
             if (!(k >= r[4] && k < r[5])) continue;
             for (int q = 0; q < 4; q++) {
                 at[nk][q] = (size_t)(r[q] + k);
-                __builtin_prefetch(v->od + 2 * at[nk][q]);
-                __builtin_prefetch(v->od + 2 * at[nk][q] + 3);
+                __builtin_prefetch(v->od + 2 * at[nk][q]); /* one node pair in eight crosses a line */
             }
             pre_at[nk] = face[j] >= 0 ? v->prefix + (size_t)face[j] * n0 * v->og_n[1] + cc[j][0] + n0 * cc[j][1] : NULL;
             if (pre_at[nk]) __builtin_prefetch(pre_at[nk]);
             if (nk != j) {
                 vv[nk] = v, face[nk] = face[j], live[nk] = live[j];
-                memcpy(cc[nk], cc[j], sizeof cc[j]);
+                if (!vec) memcpy(cc[nk], cc[j], sizeof cc[j]); /* the AVX2 evaluation reads at[] instead */
                 memcpy(ww[nk], ww[j], sizeof ww[j]);
             }
             nk++;
