@@ -275,6 +275,23 @@ static batch_stages pick_stages(void)
  * phase toward the camera — each a tight loop of one kind of work, with the terms of a stage
  * the same operations, in the same order, as kernel_eval's. ph, g1: the scene's media's
  * prepared phases and first Legendre moments. */
+/* The map-visibility stage of both batches: the visibility of light `index` at the m points,
+ * each sample's illuminance e scaled by it, and the lists (on, e, and cv when given)
+ * compacted to the samples still lit, without branches. Returns how many are. */
+static uint32_t keep_visible(const brm_kernel *k, uint32_t index, const brm_vec3 *pts, uint32_t m, uint32_t *on,
+                             double *e, double *cv, double *tr)
+{
+    brm_shadow_visibility_batch(k->shadows, index, pts, m, tr);
+    uint32_t m2 = 0;
+    for (uint32_t t = 0; t < m; t++) {
+        double v = tr[t];
+        on[m2] = on[t], e[m2] = e[t] * v;
+        if (cv) cv[m2] = cv[t];
+        m2 += !(v <= 0.0);
+    }
+    return m2;
+}
+
 static void view_batch_chunk(const brm_kernel *k, brm_kernel_view_sample *smp, uint32_t n, const uint32_t *lights,
                              uint32_t light_count, brm_media_point *mp, const brm_phase_prepared *ph,
                              const double *g1, const batch_stages *st, batch_soa *b)
@@ -347,14 +364,7 @@ static void view_batch_chunk(const brm_kernel *k, brm_kernel_view_sample *smp, u
         /* Map visibility (skipped for a light the maps called lit over the whole tile). */
         if (!lit) {
             for (uint32_t t = 0; t < m; t++) pts[t] = smp[b->idx[on[t]]].p;
-            brm_shadow_visibility_batch(k->shadows, index, pts, m, tr);
-            uint32_t m2 = 0;
-            for (uint32_t t = 0; t < m; t++) {
-                double v = tr[t];
-                on[m2] = on[t], e[m2] = e[t] * v, cv[m2] = cv[t];
-                m2 += !(v <= 0.0);
-            }
-            m = m2;
+            m = keep_visible(k, index, pts, m, on, e, cv, tr);
         }
         /* Transmittance toward the light, for the samples still lit all at once (the batch
          * lookup gives brm_shadow_transmittance's bits). */
@@ -483,14 +493,7 @@ static void iso_batch_chunk(const brm_kernel *k, brm_kernel_iso_sample *smp, uin
         }
         if (!lit) {
             for (uint32_t t = 0; t < m; t++) pts[t] = smp[b->idx[on[t]]].p;
-            brm_shadow_visibility_batch(k->shadows, index, pts, m, tr);
-            uint32_t m2 = 0;
-            for (uint32_t t = 0; t < m; t++) {
-                double v = tr[t];
-                on[m2] = on[t], e[m2] = e[t] * v;
-                m2 += !(v <= 0.0);
-            }
-            m = m2;
+            m = keep_visible(k, index, pts, m, on, e, NULL, tr);
         }
         for (uint32_t t = 0; t < m; t++) pts[t] = smp[b->idx[on[t]]].p;
         brm_shadow_transmittance_batch(k->shadows, index, pts, m, tr);

@@ -294,13 +294,14 @@ double brm_media_extinction(const brm_scene *s, brm_vec3 p)
     return sum * noise_factor(s, p);
 }
 
-void brm_media_eval(const brm_scene *s, brm_vec3 p, brm_media_point *out)
+/* brm_media_eval's density part at p: out filled as it fills it before the noise factor, the
+ * sum of the media present returned. */
+static inline double eval_densities(const brm_scene *s, brm_vec3 p, brm_media_point *out)
 {
-    assert(s->media_ready);
     out->sigma_t = 0.0;
     out->sigma_s = brm_v3(0.0, 0.0, 0.0);
     out->count = 0;
-    if (!brm_aabb_contains(s->fog_bounds, p)) return;
+    if (!brm_aabb_contains(s->fog_bounds, p)) return 0.0;
     const brm_noise_table *t = s->noise;
     double sum = 0.0;
     for (uint32_t k = 0; k < t->density_count; k++) {
@@ -313,8 +314,12 @@ void brm_media_eval(const brm_scene *s, brm_vec3 p, brm_media_point *out)
             sum += st;
         }
     }
-    if (out->count == 0) return;
-    double f = t->noise_count ? noise_factor(s, p) : 1.0;
+    return sum;
+}
+
+/* brm_media_eval's last step: the noise factor f applied. */
+static inline void eval_finish(const brm_scene *s, double sum, double f, brm_media_point *out)
+{
     brm_vec3 ss = brm_v3(0.0, 0.0, 0.0);
     for (uint32_t k = 0; k < out->count; k++) {
         double st = out->sigma_t_each[k] * f;
@@ -323,6 +328,14 @@ void brm_media_eval(const brm_scene *s, brm_vec3 p, brm_media_point *out)
     }
     out->sigma_t = sum * f;
     out->sigma_s = ss;
+}
+
+void brm_media_eval(const brm_scene *s, brm_vec3 p, brm_media_point *out)
+{
+    assert(s->media_ready);
+    double sum = eval_densities(s, p, out);
+    if (out->count == 0) return;
+    eval_finish(s, sum, s->noise->noise_count ? noise_factor(s, p) : 1.0, out);
 }
 
 brm_vec3 brm_media_scatter_phase(const brm_scene *s, const brm_media_point *mp, double cos_theta)
@@ -958,42 +971,6 @@ EVAL_AVX2 static void fbm_batch_avx2(const brm_noise_table *t, uint32_t mi, uint
     }
 }
 #endif
-
-/* brm_media_eval's density part at p: out filled as it fills it before the noise factor, the
- * sum of the media present returned. */
-static inline double eval_densities(const brm_scene *s, brm_vec3 p, brm_media_point *out)
-{
-    out->sigma_t = 0.0;
-    out->sigma_s = brm_v3(0.0, 0.0, 0.0);
-    out->count = 0;
-    if (!brm_aabb_contains(s->fog_bounds, p)) return 0.0;
-    const brm_noise_table *t = s->noise;
-    double sum = 0.0;
-    for (uint32_t k = 0; k < t->density_count; k++) {
-        uint32_t i = t->density_idx[k];
-        double st = density(&t->term[k], p);
-        if (st > 0.0) {
-            out->medium[out->count] = (uint16_t)i;
-            out->sigma_t_each[out->count] = st;
-            out->count++;
-            sum += st;
-        }
-    }
-    return sum;
-}
-
-/* brm_media_eval's last step: the noise factor f applied. */
-static inline void eval_finish(const brm_scene *s, double sum, double f, brm_media_point *out)
-{
-    brm_vec3 ss = brm_v3(0.0, 0.0, 0.0);
-    for (uint32_t k = 0; k < out->count; k++) {
-        double st = out->sigma_t_each[k] * f;
-        out->sigma_t_each[k] = st;
-        ss = brm_madd(ss, s->media[out->medium[k]].albedo, st);
-    }
-    out->sigma_t = sum * f;
-    out->sigma_s = ss;
-}
 
 int brm_media_eval_batch_simd(const brm_scene *s, const brm_vec3 *p, uint32_t n, brm_media_point *out, int simd)
 {
