@@ -520,6 +520,21 @@ static inline int pcf_prepare(const shadow_view *v, brm_vec3 p, double r, pcf_at
     return 0;
 }
 
+/* The smallest and largest depth over tiles [ti0, ti1] × [tj0, tj1] (fminf and fmaxf: lo and hi
+ * are never NaN; a NaN entry leaves them). */
+static inline void tile_extremes(const shadow_view *v, uint32_t ti0, uint32_t ti1, uint32_t tj0, uint32_t tj1,
+                                 float *lo_out, float *hi_out)
+{
+    float lo = INFINITY, hi = -INFINITY;
+    for (uint32_t tj = tj0; tj <= tj1; tj++)
+        for (uint32_t ti = ti0; ti <= ti1; ti++) {
+            const float ta = v->tile_min[tj * v->tiles + ti], tb = v->tile_max[tj * v->tiles + ti];
+            if (ta < lo) lo = ta;
+            if (tb > hi) hi = tb;
+        }
+    *lo_out = lo, *hi_out = hi;
+}
+
 /* The depth ranges of the tiles under the footprint (a small table that stays in cache, where
  * the map itself mostly does not): no texel of theirs hides p, or every one does, decides the
  * lookup without reading the map — the same answer the comparisons of pcf_texels would give,
@@ -528,15 +543,8 @@ static inline int pcf_tiles(const shadow_view *v, const pcf_at *a, double *val)
 {
     if (!v->tile_min) return 0;
     const uint32_t T = BRM_SHADOW_TILE;
-    uint32_t ti0 = (uint32_t)a->i0 / T, ti1 = (uint32_t)a->i1 / T, tj0 = (uint32_t)a->j0 / T, tj1 = (uint32_t)a->j1 / T;
-    float lo = INFINITY, hi = -INFINITY;
-    for (uint32_t tj = tj0; tj <= tj1; tj++)
-        for (uint32_t ti = ti0; ti <= ti1; ti++) {
-            /* fminf and fmaxf (lo and hi are never NaN; a NaN entry leaves them) */
-            const float ta = v->tile_min[tj * v->tiles + ti], tb = v->tile_max[tj * v->tiles + ti];
-            if (ta < lo) lo = ta;
-            if (tb > hi) hi = tb;
-        }
+    float lo, hi;
+    tile_extremes(v, (uint32_t)a->i0 / T, (uint32_t)a->i1 / T, (uint32_t)a->j0 / T, (uint32_t)a->j1 / T, &lo, &hi);
     const double res = (double)v->res;
     if (a->z <= (double)lo) return *val = 1.0, 1;
     if (a->z > (double)hi && a->x0 >= 0.0 && a->y0 >= 0.0 && a->x1 <= res && a->y1 <= res) return *val = 0.0, 1;
@@ -683,14 +691,8 @@ int brm_shadowmap_classify(const shadow_view *v, brm_aabb b, double r)
     uint32_t T = BRM_SHADOW_TILE;
     uint32_t i0 = (uint32_t)fmax(0.0, floor(x0)) / T, i1 = (uint32_t)fmin(res - 1.0, floor(x1)) / T;
     uint32_t j0 = (uint32_t)fmax(0.0, floor(y0)) / T, j1 = (uint32_t)fmin(res - 1.0, floor(y1)) / T;
-    float lo = INFINITY, hi = -INFINITY;
-    for (uint32_t j = j0; j <= j1; j++)
-        for (uint32_t i = i0; i <= i1; i++) {
-            /* fminf and fmaxf, as in brm_shadowmap_pcf */
-            const float a = v->tile_min[j * v->tiles + i], b = v->tile_max[j * v->tiles + i];
-            if (a < lo) lo = a;
-            if (b > hi) hi = b;
-        }
+    float lo, hi;
+    tile_extremes(v, i0, i1, j0, j1, &lo, &hi);
     if ((double)lo >= z1) return 1;             /* no texel hides even the farthest point */
     if (inside && (double)hi < z0) return 0;    /* every texel hides even the nearest point */
     return -1;

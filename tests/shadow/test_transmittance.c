@@ -148,10 +148,10 @@ static void height_fog_should_match_closed_form_for_many_elevations(void **state
     printf("height fog, 7 elevations: worst fast-path relative error %.2e\n", worst_fast);
 }
 
-static void fast_path_should_match_reference_march_within_one_percent(void **state)
+/* A height fog, a box with a fade edge and 4-octave noise in fog bounds `fog`, lit by a sun and
+ * a spot: the media every kind of lookup has to follow. */
+static brm_scene *mixed_scene(brm_aabb fog)
 {
-    (void)state;
-    brm_aabb fog = {{-40, -2, -40}, {40, 30, 40}};
     brm_scene *s = sf_scene(fog);
     brm_medium *h = sf_medium(s, BRM_MEDIUM_HEIGHT, 0.08);
     h->base_y = 0.5;
@@ -166,6 +166,14 @@ static void fast_path_should_match_reference_march_within_one_percent(void **sta
     nz->strength = 0.6;
     sf_sun(s, brm_v3(0.4, -1.0, 0.3));
     sf_spot(s, brm_v3(2, 12, -3), brm_v3(-0.1, -1, 0.2), 25, 35);
+    return s;
+}
+
+static void fast_path_should_match_reference_march_within_one_percent(void **state)
+{
+    (void)state;
+    brm_aabb fog = {{-40, -2, -40}, {40, 30, 40}};
+    brm_scene *s = mixed_scene(fog);
     brm_light *pt = sf_point(s, brm_v3(-3, 4, 2));
     pt->range_m = 30.0;
     sf_ready(s);
@@ -215,20 +223,7 @@ static void corrected_cells_should_match_the_exact_march(void **state)
 {
     (void)state;
     brm_aabb fog = {{-40, -2, -40}, {40, 30, 40}};
-    brm_scene *s = sf_scene(fog);
-    brm_medium *h = sf_medium(s, BRM_MEDIUM_HEIGHT, 0.08);
-    h->base_y = 0.5;
-    h->scale_height_m = 4.0;
-    brm_medium *b = sf_medium(s, BRM_MEDIUM_BOX, 0.2);
-    b->box = (brm_aabb){{-6, 0, -3}, {2, 5, 6}};
-    b->edge_fade_m = 1.0;
-    brm_medium *nz = sf_medium(s, BRM_MEDIUM_NOISE, 0.0);
-    nz->scale_m = 6.0;
-    nz->octaves = 4;
-    nz->seed = 7;
-    nz->strength = 0.6;
-    sf_sun(s, brm_v3(0.4, -1.0, 0.3));
-    sf_spot(s, brm_v3(2, 12, -3), brm_v3(-0.1, -1, 0.2), 25, 35);
+    brm_scene *s = mixed_scene(fog);
     sf_ready(s);
     brm_aabb target = {{-6, 0, -3}, {2, 5, 5}}; /* around the box medium, whose fade edges get flagged */
     brm_shadow_set *ss = sf_build(s, target, 0.25, false, NULL, 2);
@@ -485,20 +480,7 @@ static void transmittance_batch_should_equal_single_lookups(void **state)
 {
     (void)state;
     brm_aabb fog = {{-20, -2, -20}, {20, 15, 20}};
-    brm_scene *s = sf_scene(fog);
-    brm_medium *h = sf_medium(s, BRM_MEDIUM_HEIGHT, 0.08);
-    h->base_y = 0.5;
-    h->scale_height_m = 4.0;
-    brm_medium *b = sf_medium(s, BRM_MEDIUM_BOX, 0.2);
-    b->box = (brm_aabb){{-6, 0, -3}, {2, 5, 6}};
-    b->edge_fade_m = 1.0;
-    brm_medium *nz = sf_medium(s, BRM_MEDIUM_NOISE, 0.0);
-    nz->scale_m = 6.0;
-    nz->octaves = 4;
-    nz->seed = 7;
-    nz->strength = 0.6;
-    sf_sun(s, brm_v3(0.4, -1.0, 0.3));
-    sf_spot(s, brm_v3(2, 12, -3), brm_v3(-0.1, -1, 0.2), 25, 35);
+    brm_scene *s = mixed_scene(fog);
     brm_light *pt = sf_point(s, brm_v3(-3, 4, 2));
     pt->range_m = 30.0;
     brm_light *out_pt = sf_point(s, brm_v3(0, 25, 0)); /* above the fog */
