@@ -51,29 +51,51 @@ int main(int argc, char **argv)
         }
         d[i] = fx_dir(&rng);
     }
-    long hits = 0;
+    /* Each query timed on the tree's traversal and on the reference one (one child box at a
+     * time), and their answers compared ray by ray: they must agree exactly. */
+    long hits = 0, hits_ref = 0, occl = 0, occl_ref = 0, differ = 0;
     t0 = brm_now();
     for (long r = 0; r < rays; r++) {
         brm_hit h;
         hits += brm_bvh_intersect(b, o[r & 4095], d[(r * 7 + (r >> 12)) & 4095], 0, HUGE_VAL, &h);
     }
     double t_closest = brm_now() - t0;
-    long occl = 0;
+    t0 = brm_now();
+    for (long r = 0; r < rays; r++) {
+        brm_hit h;
+        hits_ref += brm_bvh_intersect_reference(b, o[r & 4095], d[(r * 7 + (r >> 12)) & 4095], 0, HUGE_VAL, &h);
+    }
+    double t_closest_ref = brm_now() - t0;
     t0 = brm_now();
     for (long r = 0; r < rays; r++)
         occl += brm_bvh_occluded(b, o[r & 4095], d[(r * 7 + (r >> 12)) & 4095], 0, 30.0);
     double t_any = brm_now() - t0;
+    t0 = brm_now();
+    for (long r = 0; r < rays; r++)
+        occl_ref += brm_bvh_occluded_reference(b, o[r & 4095], d[(r * 7 + (r >> 12)) & 4095], 0, 30.0);
+    double t_any_ref = brm_now() - t0;
+    long check = rays < 200000 ? rays : 200000;
+    for (long r = 0; r < check; r++) {
+        brm_vec3 ro = o[r & 4095], rd = d[(r * 7 + (r >> 12)) & 4095];
+        brm_hit h1, h2;
+        int a = brm_bvh_intersect(b, ro, rd, 0, HUGE_VAL, &h1), c = brm_bvh_intersect_reference(b, ro, rd, 0, HUGE_VAL, &h2);
+        if (a != c || (a && (h1.t != h2.t || h1.tri != h2.tri || h1.object != h2.object))) differ++;
+        if (brm_bvh_occluded(b, ro, rd, 0, 30.0) != brm_bvh_occluded_reference(b, ro, rd, 0, 30.0)) differ++;
+    }
     if (file) printf("scene %s: %u triangles, %u objects; build %.2f ms\n", argv[2], sc->tri_count, sc->object_count,
                      t_build * 1e3);
     else printf("scene: %u triangles, 4 analytic spheres; build %.2f ms\n", f.s.tri_count, t_build * 1e3);
-    printf("closest hit: %ld rays in %.3f s = %.2f Mrays/s (%.1f %% hit)\n", rays, t_closest,
-           rays / t_closest * 1e-6, 100.0 * hits / rays);
-    printf("any hit (tmax 30 m): %ld rays in %.3f s = %.2f Mrays/s (%.1f %% blocked)\n", rays, t_any,
-           rays / t_any * 1e-6, 100.0 * occl / rays);
+    printf("closest hit: %ld rays in %.3f s = %.2f Mrays/s (%.1f %% hit); reference traversal %.2f Mrays/s\n", rays,
+           t_closest, rays / t_closest * 1e-6, 100.0 * hits / rays, rays / t_closest_ref * 1e-6);
+    printf("any hit (tmax 30 m): %ld rays in %.3f s = %.2f Mrays/s (%.1f %% blocked); reference traversal %.2f "
+           "Mrays/s\n",
+           rays, t_any, rays / t_any * 1e-6, 100.0 * occl / rays, rays / t_any_ref * 1e-6);
+    printf("answers against the reference traversal: %ld of %ld rays differ%s\n", differ, 2 * check,
+           hits == hits_ref && occl == occl_ref ? "" : " (and the timed counts differ)");
     free(o);
     free(d);
     brm_bvh_free(b);
     fx_free(&f);
     brm_scene_free(file);
-    return 0;
+    return differ || hits != hits_ref || occl != occl_ref;
 }

@@ -12,6 +12,13 @@
 #include <stdlib.h>
 #include <string.h>
 
+#if defined(__SSE2__)
+#include <emmintrin.h>
+#define BVH_SSE2 1
+#else
+#define BVH_SSE2 0
+#endif
+
 #define LEAF_MAX 4
 #define BINS 16
 #define FORCE_MEDIAN_DEPTH 40   /* past this depth split by count: bounds the tree depth */
@@ -34,8 +41,18 @@ typedef struct prim {
     uint32_t tri;       /* UINT32_MAX for a sphere */
 } prim;
 
+/* The boxes of the two children of an interior node, side by side: b[slab] holds
+ * slab (lo x, y, z, hi x, y, z) of the first child then of the second, so one pair of vector
+ * lanes tests both children's slabs at once. Interior node n's children n.index and
+ * n.index + 1 have their pair at (n.index − 1) / 2 (children are allocated two at a time
+ * after the root, so n.index is odd). 48 bytes. */
+typedef struct pair {
+    float b[6][2];
+} pair;
+
 struct brm_bvh {
     node *nodes;
+    pair *pairs;        /* (node_count − 1) / 2 of them */
     uint32_t node_count;
     prim *prims;
     uint32_t prim_count;
@@ -300,6 +317,23 @@ static brm_status build(brm_bvh *b, build_item *it, brm_diag *d)
     return BRM_OK;
 }
 
+static brm_status build_pairs(brm_bvh *b, brm_diag *d)
+{
+    uint32_t np = (b->node_count - 1) / 2;
+    b->pairs = malloc((np ? np : 1) * sizeof *b->pairs);
+    if (!b->pairs) return brm_diag_error(d, BRM_E_NOMEM, "ray caster: cannot allocate %u node pairs", np);
+    for (uint32_t i = 0; i < b->node_count; i++) {
+        const node *nd = &b->nodes[i];
+        if (nd->count || nd->index == 0) continue;   /* a leaf, or the empty scene's root */
+        pair *pr = &b->pairs[(nd->index - 1) / 2];
+        for (int k = 0; k < 6; k++) {
+            pr->b[k][0] = b->nodes[nd->index].b[k];
+            pr->b[k][1] = b->nodes[nd->index + 1].b[k];
+        }
+    }
+    return BRM_OK;
+}
+
 brm_status brm_bvh_build_subset(const brm_scene *s, const uint8_t *object_mask, brm_bvh **out, brm_diag *d)
 {
     uint64_t n = 0;
@@ -346,6 +380,7 @@ brm_status brm_bvh_build_subset(const brm_scene *s, const uint8_t *object_mask, 
     }
     brm_status st = build(b, it, d);
     free(it);
+    if (st == BRM_OK) st = build_pairs(b, d);
     /* The tree is built on the vertices; the traversal wants the edges. */
     for (uint32_t i = 0; i < k; i++) {
         prim *p = &b->prims[i];
@@ -370,6 +405,7 @@ void brm_bvh_free(brm_bvh *b)
 {
     if (!b) return;
     free(b->nodes);
+    free(b->pairs);
     free(b->prims);
     free(b);
 }
@@ -380,8 +416,10 @@ size_t brm_bvh_memory(const brm_scene *s)
     for (uint32_t i = 0; i < s->object_count; i++)
         if (s->objects[i].shape == BRM_SHAPE_SPHERE) n++;
     if (n == 0) n = 1;
-    /* Kept: nodes and primitives. Transient during the build: one build_item per primitive. */
-    return (2 * n - 1) * sizeof(node) + n * sizeof(prim) + n * sizeof(build_item) + sizeof(brm_bvh);
+    /* Kept: nodes, their pairs' boxes and primitives. Transient during the build: one
+     * build_item per primitive. */
+    return (2 * n - 1) * sizeof(node) + n * sizeof(pair) + n * sizeof(prim) + n * sizeof(build_item) +
+           sizeof(brm_bvh);
 }
 
 /* ---- traversal ---------------------------------------------------------------------- */
@@ -390,7 +428,18 @@ typedef struct ray {
     double o[3], inv[3];
     int neg[3];
     int near[3], far[3];    /* index into node.b of the slab each axis enters and leaves by */
+#if BVH_SSE2
+    __m128d o2[3], inv2[3]; /* o and inv broadcast to both lanes */
+#endif
 } ray;
+
+#if BVH_SSE2
+/* Two floats widened to two doubles (exactly). */
+static inline __m128d load2(const float *f)
+{
+    return _mm_cvtps_pd(_mm_castsi128_ps(_mm_loadl_epi64((const __m128i *)(const void *)f)));
+}
+#endif
 
 static void ray_setup(ray *r, brm_vec3 o, brm_vec3 dir)
 {
@@ -403,6 +452,10 @@ static void ray_setup(ray *r, brm_vec3 o, brm_vec3 dir)
         r->neg[a] = r->inv[a] < 0.0;
         r->near[a] = r->neg[a] ? 3 + a : a;
         r->far[a] = r->neg[a] ? a : 3 + a;
+#if BVH_SSE2
+        r->o2[a] = _mm_set1_pd(r->o[a]);
+        r->inv2[a] = _mm_set1_pd(r->inv[a]);
+#endif
     }
 }
 
@@ -450,8 +503,8 @@ static inline uint64_t prim_key(const prim *p)
  * [tmin, tmax] are visited, the nearer first (for closest hits the likelier to shorten tmax,
  * for occlusion the likelier blocker of a ray leaving a surface); the farther one goes on the
  * stack. Returns 1 with *ni set to the child to visit next, 0 when the ray misses both. */
-static inline int descend(const ray *r, const brm_bvh *b, const node *n, double tmin, double tmax, uint32_t *ni,
-                          uint32_t *stack, int *sp)
+static inline int descend_ref(const ray *r, const brm_bvh *b, const node *n, double tmin, double tmax,
+                              uint32_t *ni, uint32_t *stack, int *sp)
 {
     uint32_t first = n->index, second = n->index + 1;
     if (r->neg[n->axis]) { uint32_t tmp = first; first = second; second = tmp; }
@@ -460,6 +513,59 @@ static inline int descend(const ray *r, const brm_bvh *b, const node *n, double 
     int h1 = slab(r, &b->nodes[second], tmin, tmax, &t1);
     if (h0 && h1) {
         if (t1 < t0) { uint32_t tmp = first; first = second; second = tmp; }
+        stack[(*sp)++] = second;
+        *ni = first;
+        return 1;
+    }
+    if (h0) { *ni = first; return 1; }
+    if (h1) { *ni = second; return 1; }
+    return 0;
+}
+
+/* The same decisions as descend_ref (same doubles: each lane runs the scalar slab's
+ * operations in its order, maxpd/minpd being exactly `a > b ? a : b` and `a < b ? a : b`,
+ * NaN included), with both children's slabs tested at once on the node pair's doubles. */
+static inline int descend(const ray *r, const brm_bvh *b, const node *n, double tmin, double tmax, uint32_t *ni,
+                          uint32_t *stack, int *sp)
+{
+    const pair *p = &b->pairs[(n->index - 1) >> 1];
+    double tn[2];
+    int hit[2];
+#if BVH_SSE2
+    __m128d lo = _mm_set1_pd(tmin), hi = _mm_set1_pd(tmax);
+#define BVH_AXIS(a)                                                                              \
+    do {                                                                                         \
+        __m128d t0 = _mm_mul_pd(_mm_sub_pd(load2(p->b[r->near[a]]), r->o2[a]), r->inv2[a]); \
+        __m128d t1 = _mm_mul_pd(_mm_sub_pd(load2(p->b[r->far[a]]), r->o2[a]), r->inv2[a]);  \
+        lo = _mm_max_pd(t0, lo);                                                                 \
+        hi = _mm_min_pd(t1, hi);                                                                 \
+    } while (0)
+    BVH_AXIS(0);
+    BVH_AXIS(1);
+    BVH_AXIS(2);
+#undef BVH_AXIS
+    int m = _mm_movemask_pd(_mm_cmple_pd(lo, hi));
+    _mm_storeu_pd(tn, lo);
+    hit[0] = m & 1;
+    hit[1] = m >> 1;
+#else
+    for (int c = 0; c < 2; c++) {
+        double l = tmin, h = tmax;
+        for (int a = 0; a < 3; a++) {
+            double t0 = ((double)p->b[r->near[a]][c] - r->o[a]) * r->inv[a];
+            double t1 = ((double)p->b[r->far[a]][c] - r->o[a]) * r->inv[a];
+            l = t0 > l ? t0 : l;
+            h = t1 < h ? t1 : h;
+        }
+        tn[c] = l;
+        hit[c] = l <= h;
+    }
+#endif
+    int f = r->neg[n->axis];    /* lane of the child on the ray's side of the split */
+    uint32_t first = n->index + (uint32_t)f, second = n->index + (uint32_t)!f;
+    int h0 = hit[f], h1 = hit[!f];
+    if (h0 && h1) {
+        if (tn[!f] < tn[f]) { uint32_t tmp = first; first = second; second = tmp; }
         stack[(*sp)++] = second;
         *ni = first;
         return 1;
@@ -510,6 +616,8 @@ int brm_bvh_intersect(const brm_bvh *b, brm_vec3 o, brm_vec3 dir, double tmin, d
     return 1;
 }
 
+/* Any hit: the answer depends only on which leaves the slab tests let through (tmax never
+ * shrinks), so it is the reference's whatever the order. */
 int brm_bvh_occluded(const brm_bvh *b, brm_vec3 o, brm_vec3 dir, double tmin, double tmax)
 {
     if (b->prim_count == 0) return 0;
@@ -529,6 +637,75 @@ int brm_bvh_occluded(const brm_bvh *b, brm_vec3 o, brm_vec3 dir, double tmin, do
             }
         } else {
             if (descend(&r, b, n, tmin, tmax, &ni, stack, &sp)) continue;
+        }
+        if (sp == 0) break;
+        ni = stack[--sp];
+    }
+    return 0;
+}
+
+/* The one-child-at-a-time traversal the tree had first, kept as the reference the above are
+ * checked against. */
+int brm_bvh_intersect_reference(const brm_bvh *b, brm_vec3 o, brm_vec3 dir, double tmin, double tmax, brm_hit *hit)
+{
+    if (b->prim_count == 0) return 0;
+    ray r;
+    ray_setup(&r, o, dir);
+    uint32_t stack[STACK_MAX];
+    int sp = 0;
+    uint32_t ni = 0;
+    const prim *best = NULL;
+    double best_t = tmax, lim = tmax;
+    uint64_t best_key = UINT64_MAX;
+    double tn;
+    if (!slab(&r, &b->nodes[0], tmin, tmax, &tn)) return 0;
+    for (;;) {
+        const node *n = &b->nodes[ni];
+        if (n->count) {
+            for (uint32_t i = n->index; i < n->index + n->count; i++) {
+                double t;
+                /* Accept t == best_t too (lim is just past it), so ties go to the lowest key
+                 * whatever the order. */
+                if (prim_hit(&b->prims[i], o, dir, tmin, lim, &t, NULL)) {
+                    uint64_t key = prim_key(&b->prims[i]);
+                    if (t < best_t || key < best_key) {
+                        best_t = t;
+                        best_key = key;
+                        best = &b->prims[i];
+                        lim = nextafter(best_t, HUGE_VAL);
+                    }
+                }
+            }
+        } else {
+            if (descend_ref(&r, b, n, tmin, best_t, &ni, stack, &sp)) continue;
+        }
+        if (sp == 0) break;
+        ni = stack[--sp];
+    }
+    if (!best) return 0;
+    fill_hit(best, o, dir, best_t, hit);
+    return 1;
+}
+
+int brm_bvh_occluded_reference(const brm_bvh *b, brm_vec3 o, brm_vec3 dir, double tmin, double tmax)
+{
+    if (b->prim_count == 0) return 0;
+    ray r;
+    ray_setup(&r, o, dir);
+    uint32_t stack[STACK_MAX];
+    int sp = 0;
+    uint32_t ni = 0;
+    double tn;
+    if (!slab(&r, &b->nodes[0], tmin, tmax, &tn)) return 0;
+    for (;;) {
+        const node *n = &b->nodes[ni];
+        if (n->count) {
+            for (uint32_t i = n->index; i < n->index + n->count; i++) {
+                double t;
+                if (prim_hit(&b->prims[i], o, dir, tmin, tmax, &t, NULL)) return 1;
+            }
+        } else {
+            if (descend_ref(&r, b, n, tmin, tmax, &ni, stack, &sp)) continue;
         }
         if (sp == 0) break;
         ni = stack[--sp];

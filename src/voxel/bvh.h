@@ -40,6 +40,13 @@ typedef void (*brm_hit_visit)(void *ctx, const brm_hit *hit, int near_edge);
 void brm_bvh_all_hits(const brm_bvh *b, brm_vec3 o, brm_vec3 dir, double tmin, double tmax,
                       brm_hit_visit visit, void *ctx);
 
+/* brm_bvh_intersect and brm_bvh_occluded as the tree first traversed it, one child box at a
+ * time: the reference the faster traversal is checked against (tests and bench). The same
+ * answers, the same hit. */
+int brm_bvh_intersect_reference(const brm_bvh *b, brm_vec3 o, brm_vec3 dir, double tmin, double tmax,
+                                brm_hit *hit);
+int brm_bvh_occluded_reference(const brm_bvh *b, brm_vec3 o, brm_vec3 dir, double tmin, double tmax);
+
 /* Primitive tests the BVH uses, exposed for brute-force checks.
  * Ray–triangle by Möller and Trumbore (1997), barycentric bounds widened by BRM_TRI_EDGE_EPS so
  * a ray through a shared edge or vertex hits at least one of the triangles. Returns 1 and *t

@@ -94,6 +94,117 @@ static void bvh_should_match_brute_force_on_random_rays(void **state)
     fx_free(&f);
 }
 
+/* The tree's traversal (both children's boxes tested at once) against the reference one (one
+ * box at a time): the same boolean for every any-hit ray and the same closest hit, to the
+ * bit, on rays chosen to sit on the boundaries where rounding decides: through vertices and
+ * edges, starting on a surface, grazing a triangle's plane, axis-aligned along box faces, and
+ * with tmin or tmax at a hit's distance. Same-answer check, no outside source needed. */
+static void same_hit(const brm_bvh *b, brm_vec3 o, brm_vec3 d, double tmin, double tmax, int *blocked)
+{
+    brm_hit h1, h2;
+    int a = brm_bvh_intersect(b, o, d, tmin, tmax, &h1);
+    int c = brm_bvh_intersect_reference(b, o, d, tmin, tmax, &h2);
+    assert_int_equal(a, c);
+    if (a) {
+        assert_true(h1.t == h2.t);
+        assert_int_equal(h1.tri, h2.tri);
+        assert_int_equal(h1.object, h2.object);
+        assert_int_equal(h1.back_face, h2.back_face);
+        assert_true(h1.normal.x == h2.normal.x && h1.normal.y == h2.normal.y && h1.normal.z == h2.normal.z);
+    }
+    int occ = brm_bvh_occluded(b, o, d, tmin, tmax);
+    assert_int_equal(occ, brm_bvh_occluded_reference(b, o, d, tmin, tmax));
+    *blocked = occ;
+}
+
+static brm_vec3 tri_point(const brm_scene *s, uint32_t t, double u, double w)
+{
+    const brm_vec3 *v = s->tris[t].v;
+    return brm_add(v[0], brm_add(brm_scale(brm_sub(v[1], v[0]), u), brm_scale(brm_sub(v[2], v[0]), w)));
+}
+
+static void traversal_should_answer_as_the_reference_on_boundary_rays(void **state)
+{
+    (void)state;
+    uint64_t rng = 777;
+    fx_scene f;
+    build_mixed(&f, &rng);
+    fx_box(&f, brm_v3(-6, -6, -6), brm_v3(-4, -2, 3));
+    brm_bvh *b = NULL;
+    assert_int_equal(brm_bvh_build(&f.s, &b, NULL), BRM_OK);
+    const brm_scene *s = &f.s;
+    int blocked_count[6] = {0}, open_count[6] = {0};
+    for (int r = 0; r < 24000; r++) {
+        int fam = r % 6;
+        uint32_t t = (uint32_t)(fx_unif(&rng) * s->tri_count) % s->tri_count;
+        brm_vec3 o, d;
+        double tmin = 0.0, tmax = HUGE_VAL;
+        switch (fam) {
+        case 0: /* random, with random limits */
+            o = fx_point(&rng, -12, 12);
+            d = fx_dir(&rng);
+            if (r % 4 == 0) tmax = fx_range(&rng, 0.1, 8);
+            if (r % 5 == 0) tmin = fx_range(&rng, 0.0, 3.0);
+            break;
+        case 1: { /* through a vertex or an edge's point of a triangle */
+            brm_vec3 target = (r & 1) ? s->tris[t].v[r % 3] : tri_point(s, t, fx_unif(&rng), 0.0);
+            o = fx_point(&rng, -12, 12);
+            d = brm_norm(brm_sub(target, o));
+            /* Stopping short of the target, at it or past it. */
+            if (r % 4 == 1) tmax = brm_len(brm_sub(target, o)) * fx_range(&rng, 0.0, 1.5);
+            break;
+        }
+        case 2: /* leaving a surface point: tmin 0 and a small epsilon */
+            o = tri_point(s, t, 0.3 * fx_unif(&rng), 0.3 * fx_unif(&rng));
+            d = fx_dir(&rng);
+            tmin = (r & 1) ? 1e-9 : 0.0;
+            break;
+        case 3: { /* grazing: in the triangle's plane, along a mix of its edges */
+            const brm_vec3 *v = s->tris[t].v;
+            o = tri_point(s, t, fx_range(&rng, -0.5, 1.0), fx_range(&rng, -0.5, 1.0));
+            double a = fx_range(&rng, -1, 1);
+            d = brm_norm(brm_add(brm_scale(brm_sub(v[1], v[0]), a), brm_sub(v[2], v[0])));
+            break;
+        }
+        case 4: { /* axis-aligned, from points on the box's face planes (zero components) */
+            int ax = (int)(fx_unif(&rng) * 3) % 3;
+            double sgn = (r & 1) ? 1.0 : -1.0;
+            d = brm_v3(ax == 0 ? sgn : 0.0, ax == 1 ? sgn : 0.0, ax == 2 ? sgn : 0.0);
+            o = brm_v3(fx_range(&rng, -7, -3), fx_range(&rng, -7, -1), fx_range(&rng, -7, 4));
+            int face = (int)(fx_unif(&rng) * 3) % 3;
+            double planes[3][2] = {{-6, -4}, {-6, -2}, {-6, 3}};
+            double pv = planes[face][r & 1];
+            o = brm_v3(face == 0 ? pv : o.x, face == 1 ? pv : o.y, face == 2 ? pv : o.z);
+            break;
+        }
+        default: { /* limits at a hit's distance: tmax at it or just past it, tmin at it */
+            o = fx_point(&rng, -12, 12);
+            d = fx_dir(&rng);
+            brm_hit h;
+            if (brm_bvh_intersect_reference(b, o, d, 0.0, HUGE_VAL, &h)) {
+                int k = r % 3;
+                if (k == 0) tmax = h.t;
+                else if (k == 1) tmax = nextafter(h.t, HUGE_VAL);
+                else tmin = h.t;
+            }
+            break;
+        }
+        }
+        int blocked;
+        same_hit(b, o, d, tmin, tmax, &blocked);
+        if (blocked) blocked_count[fam]++;
+        else open_count[fam]++;
+    }
+    /* Every family holds both answers, so neither side of the comparison is trivial. */
+    for (int fam = 0; fam < 6; fam++) {
+        print_message("family %d: %d blocked, %d open\n", fam, blocked_count[fam], open_count[fam]);
+        assert_true(blocked_count[fam] > 200);
+        assert_true(open_count[fam] > 200);
+    }
+    brm_bvh_free(b);
+    fx_free(&f);
+}
+
 static void ray_triangle_should_give_plane_distance_and_winding(void **state)
 {
     (void)state;
@@ -334,6 +445,7 @@ int main(void)
         cmocka_unit_test(ray_triangle_should_give_plane_distance_and_winding),
         cmocka_unit_test(ray_from_inside_sphere_should_report_back_face),
         cmocka_unit_test(bvh_should_match_brute_force_on_random_rays),
+        cmocka_unit_test(traversal_should_answer_as_the_reference_on_boundary_rays),
         cmocka_unit_test(rays_through_shared_edges_and_vertices_should_hit),
         cmocka_unit_test(bvh_should_hit_at_box_edges_that_floats_cannot_hold),
         cmocka_unit_test(bvh_should_handle_empty_and_degenerate_scenes),
