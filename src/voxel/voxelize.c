@@ -676,7 +676,7 @@ static brm_status voxelize_grid(const brm_scene *s, const brm_grid *g, int threa
     }
 
     /* Empty components: one query at the first cell of each decides the whole component. */
-    size_t cap = 1u << 16;
+    size_t cap = 1u << 10; /* small, so the ring's growth and wrap-around run in every test bake */
     queue = malloc(cap * sizeof *queue);
     if (!queue) {
         st = brm_diag_error(d, BRM_E_NOMEM, "voxelizer: cannot allocate the fill queue");
