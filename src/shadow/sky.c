@@ -36,15 +36,27 @@ void brm_sky_projection(const brm_sky *sky, double out[3][4])
     }
 }
 
+/* Per thread, for each cell of a grid over the ray directions (equal-area bands in y by
+ * sectors in azimuth), the BVH leaf that last blocked a ray in that cell: the rays of
+ * neighbouring points in one direction mostly end on the same wall or roof, and a hint changes
+ * no answer (brm_bvh_occluded_hint), only how soon it is found. */
+#define SKY_HINT_ROWS 16u
+#define SKY_HINT_COLS 32u
+#define SKY_HINTS (SKY_HINT_ROWS * SKY_HINT_COLS)
+static _Thread_local uint32_t sky_hint[SKY_HINTS];
+static _Thread_local const brm_bvh *sky_hint_bvh;
+
 /* Ray k of n for one call: a spherical Fibonacci set (one ray per equal-area band in y, the
  * golden angle apart in azimuth), shifted by a per-call Cranley–Patterson offset from the R2
  * sequence so successive sample_index values cover the sphere evenly and deterministically. */
-static brm_vec3 sky_dir(uint32_t k, uint32_t n, const double shift[2])
+static brm_vec3 sky_dir(uint32_t k, uint32_t n, const double shift[2], uint32_t *bin)
 {
     static const double golden = 0.61803398874989484820; /* (√5 − 1)/2 */
     double u = ((double)k + shift[0]) / (double)n;
     double w = shift[1] + golden * (double)k;
     w -= floor(w);
+    uint32_t bu = (uint32_t)(u * SKY_HINT_ROWS), bw = (uint32_t)(w * SKY_HINT_COLS);
+    *bin = (bu < SKY_HINT_ROWS ? bu : SKY_HINT_ROWS - 1) * SKY_HINT_COLS + (bw < SKY_HINT_COLS ? bw : SKY_HINT_COLS - 1);
     double y = 1.0 - 2.0 * u, r = sqrt(fmax(0.0, 1.0 - y * y)), phi = 2.0 * BRM_PI * w;
     return brm_v3(r * cos(phi), y, r * sin(phi));
 }
@@ -68,6 +80,10 @@ static void sky_constrain(double out[3][4])
 /* The traced estimate with n rays. */
 static void sky_trace(const brm_shadow_set *ss, brm_vec3 p, uint32_t sample_index, uint32_t n, double out[3][4])
 {
+    if (sky_hint_bvh != ss->bvh) {
+        for (uint32_t k = 0; k < SKY_HINTS; k++) sky_hint[k] = BRM_BVH_NO_HINT;
+        sky_hint_bvh = ss->bvh;
+    }
     memcpy(out, ss->sky_proj, sizeof(double) * 12);
     const brm_sky *sky = &ss->scene->sky;
     uint32_t blocked = 0;
@@ -75,8 +91,9 @@ static void sky_trace(const brm_shadow_set *ss, brm_vec3 p, uint32_t sample_inde
     brm_sample2(0x736b79ull /* "sky" */, sample_index, shift);
     double share = 4.0 * BRM_PI / (double)n;
     for (uint32_t k = 0; k < n; k++) {
-        brm_vec3 d = sky_dir(k, n, shift);
-        if (!brm_bvh_occluded(ss->bvh, p, d, ss->eps, HUGE_VAL)) continue;
+        uint32_t bin;
+        brm_vec3 d = sky_dir(k, n, shift, &bin);
+        if (!brm_bvh_occluded_hint(ss->bvh, p, d, ss->eps, HUGE_VAL, &sky_hint[bin])) continue;
         blocked++;
         brm_vec3 L = brm_sky_radiance(sky, d);
         double y[4];

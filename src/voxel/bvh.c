@@ -617,23 +617,41 @@ int brm_bvh_intersect(const brm_bvh *b, brm_vec3 o, brm_vec3 dir, double tmin, d
 }
 
 /* Any hit: the answer depends only on which leaves the slab tests let through (tmax never
- * shrinks), so it is the reference's whatever the order. */
-int brm_bvh_occluded(const brm_bvh *b, brm_vec3 o, brm_vec3 dir, double tmin, double tmax)
+ * shrinks), so it is the reference's whatever the order.
+ *
+ * With a hint, the leaf that blocked an earlier ray is tried first. Its answer is the
+ * traversal's: a node's float box is rounded outward from the union of its children's exact
+ * boxes, so it holds theirs, and the slab test is monotone in the bounds (each step a
+ * correctly rounded subtraction, a product by the same reciprocal, a max or min), so a ray
+ * the leaf's slab lets through is let through by every ancestor, and the traversal reaches
+ * that leaf. Any valid leaf index will do, whatever ray or thread recorded it. */
+static int occluded(const brm_bvh *b, brm_vec3 o, brm_vec3 dir, double tmin, double tmax, uint32_t *hint)
 {
     if (b->prim_count == 0) return 0;
     ray r;
     ray_setup(&r, o, dir);
+    double tn;
+    if (hint && *hint < b->node_count) {
+        const node *n = &b->nodes[*hint];
+        if (n->count && slab(&r, n, tmin, tmax, &tn))
+            for (uint32_t i = n->index; i < n->index + n->count; i++) {
+                double t;
+                if (prim_hit(&b->prims[i], o, dir, tmin, tmax, &t, NULL)) return 1;
+            }
+    }
     uint32_t stack[STACK_MAX];
     int sp = 0;
     uint32_t ni = 0;
-    double tn;
     if (!slab(&r, &b->nodes[0], tmin, tmax, &tn)) return 0;
     for (;;) {
         const node *n = &b->nodes[ni];
         if (n->count) {
             for (uint32_t i = n->index; i < n->index + n->count; i++) {
                 double t;
-                if (prim_hit(&b->prims[i], o, dir, tmin, tmax, &t, NULL)) return 1;
+                if (prim_hit(&b->prims[i], o, dir, tmin, tmax, &t, NULL)) {
+                    if (hint) *hint = ni;
+                    return 1;
+                }
             }
         } else {
             if (descend(&r, b, n, tmin, tmax, &ni, stack, &sp)) continue;
@@ -642,6 +660,16 @@ int brm_bvh_occluded(const brm_bvh *b, brm_vec3 o, brm_vec3 dir, double tmin, do
         ni = stack[--sp];
     }
     return 0;
+}
+
+int brm_bvh_occluded(const brm_bvh *b, brm_vec3 o, brm_vec3 dir, double tmin, double tmax)
+{
+    return occluded(b, o, dir, tmin, tmax, NULL);
+}
+
+int brm_bvh_occluded_hint(const brm_bvh *b, brm_vec3 o, brm_vec3 dir, double tmin, double tmax, uint32_t *hint)
+{
+    return occluded(b, o, dir, tmin, tmax, hint);
 }
 
 /* The one-child-at-a-time traversal the tree had first, kept as the reference the above are

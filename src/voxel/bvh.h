@@ -26,6 +26,13 @@ int brm_bvh_intersect(const brm_bvh *b, brm_vec3 o, brm_vec3 dir, double tmin, d
 /* Whether anything blocks the ray within (tmin, tmax) (any hit, faster). */
 int brm_bvh_occluded(const brm_bvh *b, brm_vec3 o, brm_vec3 dir, double tmin, double tmax);
 
+/* The same answer, trying first the leaf *hint names (BRM_BVH_NO_HINT, or a leaf an earlier
+ * call stored there) and storing the leaf that blocks this ray. Rays alike in origin and
+ * direction are mostly blocked by the same few triangles, which this tests before walking the
+ * tree. A hint of any value is safe: one that does not name a leaf of this tree is ignored. */
+#define BRM_BVH_NO_HINT UINT32_MAX
+int brm_bvh_occluded_hint(const brm_bvh *b, brm_vec3 o, brm_vec3 dir, double tmin, double tmax, uint32_t *hint);
+
 /* ---- additions (voxel room) ------------------------------------------------------------ */
 
 /* The same over a subset: only primitives whose object has object_mask[object] != 0 (NULL:

@@ -114,6 +114,36 @@ static void same_hit(const brm_bvh *b, brm_vec3 o, brm_vec3 d, double tmin, doub
     }
     int occ = brm_bvh_occluded(b, o, d, tmin, tmax);
     assert_int_equal(occ, brm_bvh_occluded_reference(b, o, d, tmin, tmax));
+    /* A hint changes no answer: none, the leaf the last blocked ray left (of another ray: the
+     * case the hint is for), numbers that may or may not name a leaf, and the leaf this very
+     * ray is blocked by, which a blocked ray must store. */
+    static uint32_t carried = BRM_BVH_NO_HINT;
+    static uint64_t hr = 99;
+    uint32_t h = BRM_BVH_NO_HINT;
+    assert_int_equal(brm_bvh_occluded_hint(b, o, d, tmin, tmax, &h), occ);
+    if (occ) {
+        assert_true(h != BRM_BVH_NO_HINT);
+        uint32_t again = h;
+        assert_int_equal(brm_bvh_occluded_hint(b, o, d, tmin, tmax, &again), 1);
+        assert_int_equal(again, h);    /* found in the hinted leaf: left as it was */
+        /* The hinted leaf's blocker lies at or past the closest hit: short of that, the ray is
+         * open, and the hint must not say otherwise. */
+        double short_of = nextafter(h1.t, -HUGE_VAL);
+        assert_true(a);
+        if (short_of > tmin) {
+            again = h;
+            assert_int_equal(brm_bvh_occluded_hint(b, o, d, tmin, short_of, &again),
+                             brm_bvh_occluded(b, o, d, tmin, short_of));
+        }
+    } else {
+        assert_true(h == BRM_BVH_NO_HINT);
+    }
+    assert_int_equal(brm_bvh_occluded_hint(b, o, d, tmin, tmax, &carried), occ);
+    for (int k = 0; k < 3; k++) {
+        hr = hr * 6364136223846793005ull + 1442695040888963407ull;
+        uint32_t g = (uint32_t)(hr >> 33) % (k == 2 ? UINT32_MAX : 4096u);
+        assert_int_equal(brm_bvh_occluded_hint(b, o, d, tmin, tmax, &g), occ);
+    }
     *blocked = occ;
 }
 
