@@ -285,8 +285,33 @@ static brm_vec3 sky_open(const brm_sky *sky, brm_vec3 n)
  * are a stratified set (equal-area rings in the disk, the golden angle apart), rotated per
  * pixel by a hashed offset; the noise left (a room lit through its windows) is averaged away
  * across pixels by compose_row's filter. */
+/* Per thread, for each cell of a cube map over directions (a face by its major axis, 8×8
+ * cells on it), the BVH leaf that last blocked a sky ray there: the rays of neighbouring
+ * pixels mostly end on the same wall or roof. A hint changes no answer
+ * (brm_bvh_occluded_hint), only how soon it is found. */
+#define HINT_SIDE 8
+static _Thread_local uint32_t sky_hint[6 * HINT_SIDE * HINT_SIDE];
+static _Thread_local const brm_bvh *sky_hint_bvh;
+
+static uint32_t direction_cell(brm_vec3 w)
+{
+    double ax = fabs(w.x), ay = fabs(w.y), az = fabs(w.z), m, a, b;
+    uint32_t face;
+    if (ax >= ay && ax >= az) face = w.x < 0, m = ax, a = w.y, b = w.z;
+    else if (ay >= az) face = 2 + (w.y < 0), m = ay, a = w.x, b = w.z;
+    else face = 4 + (w.z < 0), m = az, a = w.x, b = w.y;
+    int ia = (int)((a / m + 1.0) * 0.5 * HINT_SIDE), ib = (int)((b / m + 1.0) * 0.5 * HINT_SIDE);
+    ia = ia < 0 ? 0 : ia >= HINT_SIDE ? HINT_SIDE - 1 : ia;
+    ib = ib < 0 ? 0 : ib >= HINT_SIDE ? HINT_SIDE - 1 : ib;
+    return (face * HINT_SIDE + (uint32_t)ia) * HINT_SIDE + (uint32_t)ib;
+}
+
 static brm_vec3 sky_blocked(const job *j, brm_vec3 q, brm_vec3 n, uint32_t pixel)
 {
+    if (sky_hint_bvh != j->bvh) {
+        for (size_t k = 0; k < sizeof sky_hint / sizeof sky_hint[0]; k++) sky_hint[k] = BRM_BVH_NO_HINT;
+        sky_hint_bvh = j->bvh;
+    }
     const brm_sky *sky = &j->s->sky;
     brm_vec3 t1 = brm_norm(brm_cross(fabs(n.x) < 0.9 ? brm_v3(1, 0, 0) : brm_v3(0, 1, 0), n));
     brm_vec3 t2 = brm_cross(n, t1);
@@ -304,7 +329,7 @@ static brm_vec3 sky_blocked(const job *j, brm_vec3 q, brm_vec3 n, uint32_t pixel
         double r = sqrt(u1);
         brm_vec3 w = brm_add(brm_add(brm_scale(t1, r * cp), brm_scale(t2, r * sp)), brm_scale(n, sqrt(fmax(0.0, 1.0 - u1))));
         w = brm_norm(w);
-        if (brm_bvh_occluded(j->bvh, q, w, j->eps, HUGE_VAL)) blocked = brm_add(blocked, brm_sky_radiance(sky, w));
+        if (brm_bvh_occluded_hint(j->bvh, q, w, j->eps, HUGE_VAL, &sky_hint[direction_cell(w)])) blocked = brm_add(blocked, brm_sky_radiance(sky, w));
     }
     return brm_scale(blocked, BRM_PI / (double)nr);
 }
