@@ -145,11 +145,9 @@ typedef struct world_fog {
 /* Energy-conserving integral of a slab with constant extinction and source (REFERENCES.md §6c,
  * the frustum baker's slab integral): ∫_0^len S·e^(−sigma·t) dt = S·(1 − e^(−sigma·len))/sigma,
  * with the limit S·len as sigma → 0. */
-static double slab_integral(double S, double sigma, double len, double *trans)
+static double slab_integral(double S, double sigma, double len, double T)
 {
     double tau = sigma * len;
-    double T = exp(-tau);
-    *trans = T;
     if (tau < 1e-7) return S * len * (1.0 - 0.5 * tau);
     return S * (1.0 - T) / sigma;
 }
@@ -203,14 +201,14 @@ static void world_march(const world_fog *wf, brm_vec3 o, brm_vec3 dir, double t0
         brm_vec3 p = brm_madd(o, dir, a0 + ((double)s + 0.5) * h);
         double sigma, a[12];
         if (!world_sample(wf, p, &sigma, a)) continue;
-        double Ts = 1.0;
+        const double Ts = exp(-(sigma * h));   /* the step's transmittance, for all three */
         for (int c = 0; c < 3; c++) {
             const double *k = a + 4 * c;
             double src = k[0] + k[1] * dir.y + k[2] * dir.z + k[3] * dir.x;
             if (src < 0.0) src = 0.0; /* a band-limited lobe can ring below zero */
-            S[c] += Tacc * slab_integral(src, sigma, h, &Ts);
+            S[c] += Tacc * slab_integral(src, sigma, h, Ts);
         }
-        if (sigma > 0.0) Tacc *= exp(-sigma * h);
+        if (sigma > 0.0) Tacc *= Ts;
     }
     *T = Tacc;
 }
