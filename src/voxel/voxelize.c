@@ -160,6 +160,27 @@ static void parity_visit(void *ctx, const brm_hit *h, int near_edge)
     c->edge |= near_edge;
 }
 
+static int any_bit(const uint8_t *bits, size_t nb)
+{
+    int inside = 0;
+    for (size_t i = 0; i < nb; i++) inside |= bits[i] != 0;
+    return inside;
+}
+
+/* The per-object parity bits of p (nb bytes) by a ray to infinity; returns whether any is set. */
+static int closed_mesh_bits(const brm_solid_index *x, brm_vec3 p, uint8_t *bits, size_t nb)
+{
+    int inside = 0;
+    for (int di = 0; di < 4; di++) {
+        memset(bits, 0, nb);
+        parity_ctx c = {bits, 0};
+        brm_bvh_all_hits(x->bvh, p, parity_dirs[di], 0.0, HUGE_VAL, parity_visit, &c);
+        inside = any_bit(bits, nb);
+        if (!c.edge) break;
+    }
+    return inside;
+}
+
 /* Whether p is inside any closed mesh: per-object parity of crossings along a ray. */
 static int in_closed_mesh(const brm_solid_index *x, brm_vec3 p)
 {
@@ -168,17 +189,92 @@ static int in_closed_mesh(const brm_solid_index *x, brm_vec3 p)
     uint8_t local[256];
     uint8_t *bits = nb <= sizeof local ? local : malloc(nb);
     if (!bits) return 0;
-    int inside = 0;
-    for (int di = 0; di < 4; di++) {
-        memset(bits, 0, nb);
-        parity_ctx c = {bits, 0};
-        brm_bvh_all_hits(x->bvh, p, parity_dirs[di], 0.0, HUGE_VAL, parity_visit, &c);
-        inside = 0;
-        for (size_t i = 0; i < nb; i++) inside |= bits[i] != 0;
-        if (!c.edge) break;
-    }
+    int inside = closed_mesh_bits(x, p, bits, nb);
     if (bits != local) free(bits);
     return inside;
+}
+
+typedef struct chord_hit {
+    double t;
+    uint32_t object;
+} chord_hit;
+
+enum { CHORD_MAX_HITS = 32 };
+
+typedef struct chord_ctx {
+    chord_hit hit[CHORD_MAX_HITS];
+    int n;
+    int doubt;          /* a crossing near an edge, or more than the array holds */
+} chord_ctx;
+
+static void chord_visit(void *ctx, const brm_hit *h, int near_edge)
+{
+    chord_ctx *c = ctx;
+    if (near_edge || c->n == CHORD_MAX_HITS) {
+        c->doubt = 1;
+        return;
+    }
+    c->hit[c->n++] = (chord_hit){h->t, h->object};
+}
+
+/* Whether each of the n points of a row is inside a closed mesh, as in_closed_mesh says, with
+ * two rays a row instead of one a point (the points lie on a line, in order: a grid row at
+ * fixed j and k, in world and frustum grids alike). The first point's per-object parity bits
+ * come from its ray to infinity; a ray along the row then gives every crossing up to the last
+ * point, and a later point's bits are the first's flipped once per crossing before it: a ray
+ * to infinity from there crosses each closed mesh as often, give or take those. Where that is
+ * in doubt (a crossing near an edge, or within a hair of a point: one on a surface, whose
+ * parity is what its own ray says) the row starts again at that point with its own ray. */
+static void row_in_closed_mesh(const brm_solid_index *x, const brm_vec3 *pt, int n, int *out)
+{
+    const size_t nb = (x->object_count + 7) / 8;
+    uint8_t bits[256];
+    int a0 = 0;
+    while (a0 < n) {
+        const brm_vec3 p0 = pt[a0];
+        if (brm_aabb_contains(x->mesh_bounds, p0)) {
+            out[a0] = closed_mesh_bits(x, p0, bits, nb);
+        } else {
+            memset(bits, 0, nb);
+            out[a0] = 0;
+        }
+        if (a0 + 1 == n) return;
+        brm_vec3 d = brm_sub(pt[n - 1], p0);
+        double len = brm_len(d);
+        double tol = 1e-9 * (1.0 + fabs(p0.x) + fabs(p0.y) + fabs(p0.z) + len);
+        chord_ctx c;
+        c.n = 0;
+        c.doubt = !(len > 0.0);
+        if (!c.doubt) {
+            d = brm_scale(d, 1.0 / len);
+            brm_bvh_all_hits(x->bvh, p0, d, -tol, len + tol, chord_visit, &c);
+        }
+        /* In order along the row (a few hits: insertion sort). */
+        for (int q = 1; q < c.n; q++)
+            for (int r = q; r > 0 && c.hit[r].t < c.hit[r - 1].t; r--) {
+                chord_hit tmp = c.hit[r];
+                c.hit[r] = c.hit[r - 1];
+                c.hit[r - 1] = tmp;
+            }
+        if (c.n > 0 && c.hit[0].t < tol) c.doubt = 1;   /* the first point on a surface */
+        int a = a0 + 1, h = 0;
+        for (; a < n && !c.doubt; a++) {
+            double ta = brm_dot(brm_sub(pt[a], p0), d);
+            for (; h < c.n && c.hit[h].t < ta + tol; h++) {
+                if (c.hit[h].t > ta - tol) c.doubt = 1;
+                bits[c.hit[h].object >> 3] ^= (uint8_t)(1u << (c.hit[h].object & 7));
+            }
+            if (c.doubt) break;
+            if (brm_aabb_contains(x->mesh_bounds, pt[a])) {
+                out[a] = any_bit(bits, nb);
+            } else {
+                memset(bits, 0, nb);
+                out[a] = 0;
+            }
+        }
+        if (a == n) return;
+        a0 = a > a0 + 1 ? a : a0 + 1;
+    }
 }
 
 int brm_solid_index_query(const brm_solid_index *x, brm_vec3 p)
@@ -186,6 +282,18 @@ int brm_solid_index_query(const brm_solid_index *x, brm_vec3 p)
     for (uint32_t i = 0; i < x->prim_count; i++)
         if (in_primitive(&x->s->objects[x->prims[i]], p)) return 1;
     return in_closed_mesh(x, p);
+}
+
+void brm_solid_index_query_row(const brm_solid_index *x, const brm_vec3 *pt, int n, int *out)
+{
+    int mesh[64] = {0};
+    const int rows = x->bvh && n <= 64 && (x->object_count + 7) / 8 <= 256;
+    if (rows) row_in_closed_mesh(x, pt, n, mesh);
+    for (int a = 0; a < n; a++) {
+        int in = 0;
+        for (uint32_t i = 0; i < x->prim_count && !in; i++) in = in_primitive(&x->s->objects[x->prims[i]], pt[a]);
+        out[a] = in || (rows ? mesh[a] : in_closed_mesh(x, pt[a]));
+    }
 }
 
 /* ---- the voxelizer --------------------------------------------------------------------- */
@@ -327,18 +435,27 @@ static void fraction_slice(void *ctx, uint32_t k, int worker)
                 v->fraction[idx] = 0.0f;
                 continue;
             }
+            /* Row by row of points: the meshes' answers for a whole row at once
+             * (row_in_closed_mesh), then the primitives'. */
+            const int rows = meshes && (x->object_count + 7) / 8 <= 256;
             int count = 0;
             for (int c = 0; c < BRM_OCC_SUB; c++)
-                for (int bb = 0; bb < BRM_OCC_SUB; bb++)
+                for (int bb = 0; bb < BRM_OCC_SUB; bb++) {
+                    brm_vec3 pt[BRM_OCC_SUB];
+                    int mesh_in[BRM_OCC_SUB] = {0};
+                    for (int a = 0; a < BRM_OCC_SUB; a++)
+                        pt[a] = brm_grid_point(g, i + (a + 0.5) / BRM_OCC_SUB, j + (bb + 0.5) / BRM_OCC_SUB,
+                                               k + (c + 0.5) / BRM_OCC_SUB);
+                    if (rows) row_in_closed_mesh(x, pt, BRM_OCC_SUB, mesh_in);
                     for (int a = 0; a < BRM_OCC_SUB; a++) {
-                        brm_vec3 p = brm_grid_point(g, i + (a + 0.5) / BRM_OCC_SUB, j + (bb + 0.5) / BRM_OCC_SUB,
-                                                    k + (c + 0.5) / BRM_OCC_SUB);
                         int in = 0;
-                        for (uint32_t q = 0; q < nn && !in; q++) in = in_primitive(&s->objects[near[q]], p);
-                        if (!in && !near && x->prim_count) in = brm_solid_index_query(x, p);
-                        if (!in && meshes) in = in_closed_mesh(x, p);
+                        for (uint32_t q = 0; q < nn && !in; q++) in = in_primitive(&s->objects[near[q]], pt[a]);
+                        if (!in && !near && x->prim_count) in = brm_solid_index_query(x, pt[a]);
+                        if (rows) in |= mesh_in[a];
+                        else if (!in && meshes) in = in_closed_mesh(x, pt[a]);
                         count += in;
                     }
+                }
             v->fraction[idx] = (float)count / (BRM_OCC_SUB * BRM_OCC_SUB * BRM_OCC_SUB);
         }
     }

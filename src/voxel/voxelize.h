@@ -56,6 +56,10 @@ typedef struct brm_solid_index brm_solid_index;
 brm_status brm_solid_index_build(const brm_scene *s, brm_solid_index **out, brm_diag *d);
 void brm_solid_index_free(brm_solid_index *x);
 int brm_solid_index_query(const brm_solid_index *x, brm_vec3 p);
+/* brm_solid_index_query for n points on a line, in order along it (n ≤ 64): out[a] is
+ * whether pt[a] is inside a solid, the same answer as a query per point, with two rays for the
+ * meshes instead of one a point (see row_in_closed_mesh). */
+void brm_solid_index_query_row(const brm_solid_index *x, const brm_vec3 *pt, int n, int *out);
 
 /* Sub-cell lattice used for the occupancy fraction of surface cells: BRM_OCC_SUB³ points at
  * offsets (s + ½)/BRM_OCC_SUB of the cell on each axis. */

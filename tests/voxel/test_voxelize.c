@@ -404,6 +404,102 @@ static void point_in_solid_should_agree_with_closed_forms_and_the_index(void **s
     fx_free(&f);
 }
 
+/* The voxelizer answers a row of four points with two rays (the first point's to infinity, one
+ * along the row), where the point test casts one per point. Meshes with faces, edges and
+ * corners exactly on the sample points (a 1 m grid from the origin puts them at multiples of
+ * 1/8, all exact in binary), two that overlap, a slab thinner than the points' spacing and a
+ * sphere: every surface cell's fraction must be the point test's. Same-answer check, no
+ * outside source needed. */
+static void voxelize_rows_should_agree_with_the_point_test_on_surfaces_through_the_points(void **state)
+{
+    (void)state;
+    fx_scene f;
+    fx_init(&f);
+    fx_box_mesh(&f, brm_v3(2.375, 1.125, 3.625), brm_v3(5.625, 4.875, 6.375));
+    fx_box_mesh(&f, brm_v3(4.125, 3.375, 2.125), brm_v3(6.875, 6.125, 4.625));
+    fx_box_mesh(&f, brm_v3(1.0, 6.0, 1.0), brm_v3(7.0, 6.1, 7.0));
+    fx_uv_sphere(&f, brm_v3(5.0, 5.0, 5.0), 1.7, 20);
+    fx_box_mesh(&f, brm_v3(0.625, 0.625, 0.625), brm_v3(1.875, 1.875, 1.875));
+    brm_grid g = world_grid(brm_v3(0, 0, 0), brm_v3(8, 8, 8), 8, 8, 8);
+    brm_occupancy o;
+    assert_int_equal(brm_voxelize(&f.s, &g, 1, &o, NULL), BRM_OK);
+    size_t n = brm_grid_cells(&g), checked = 0, partial = 0;
+    for (size_t c = 0; c < n; c++) {
+        if (o.state[c] != BRM_CELL_SURFACE) continue;
+        uint32_t i = (uint32_t)(c % 8), j = (uint32_t)((c / 8) % 8), k = (uint32_t)(c / 64);
+        int cnt = 0;
+        for (int z = 0; z < 4; z++)
+            for (int y = 0; y < 4; y++)
+                for (int x = 0; x < 4; x++)
+                    cnt += brm_point_in_solid(&f.s, brm_grid_point(&g, i + (x + 0.5) / 4, j + (y + 0.5) / 4,
+                                                                   k + (z + 0.5) / 4));
+        assert_true(o.fraction[c] == cnt / 64.0f);
+        checked++;
+        partial += cnt > 0 && cnt < 64;
+    }
+    assert_true(checked > 100);
+    assert_true(partial > 50);
+    brm_occupancy_free(&o);
+    brm_grid_free(&g);
+    fx_free(&f);
+}
+
+/* brm_solid_index_query_row against a query per point, on rows of every direction through
+ * points on the faces, edges and corners of mesh boxes (coordinates multiples of 1/8, exact)
+ * and on random rows: the row answers by carrying parity along a ray through its points and
+ * must fall back to the point's own ray wherever a crossing is at a point. Same-answer check,
+ * no outside source needed. */
+static void solid_rows_should_answer_as_points_on_faces_edges_and_corners(void **state)
+{
+    (void)state;
+    fx_scene f;
+    fx_init(&f);
+    fx_box_mesh(&f, brm_v3(2.375, 1.125, 3.625), brm_v3(5.625, 4.875, 6.375));
+    fx_box_mesh(&f, brm_v3(4.125, 3.375, 2.125), brm_v3(6.875, 6.125, 4.625));
+    fx_uv_sphere(&f, brm_v3(5.0, 5.0, 5.0), 1.7, 20);
+    fx_sphere(&f, brm_v3(1.5, 6.5, 1.5), 0.75);
+    brm_solid_index *x = NULL;
+    assert_int_equal(brm_solid_index_build(&f.s, &x, NULL), BRM_OK);
+    static const double face[][3] = {{2.375, 1.125, 3.625}, {5.625, 4.875, 6.375}, {4.125, 3.375, 2.125},
+                                     {6.875, 6.125, 4.625}, {4.0, 4.0, 4.0}, {5.0, 3.5, 5.0}};
+    uint64_t rng = 4242;
+    size_t rows = 0, inside = 0, outside = 0;
+    for (int r = 0; r < 4000; r++) {
+        brm_vec3 o, d;
+        if (r < 2000) {
+            /* Start on a box's face plane, corner or edge, step along an axis or a diagonal
+             * of eighths, so that points fall exactly on faces, edges and corners. */
+            const double *b = face[fx_next(&rng) % 6];
+            double c[3] = {b[0], b[1], b[2]};
+            for (int a = 0; a < 3; a++)
+                if (fx_next(&rng) % 3 == 0) c[a] = 0.125 * (double)(fx_next(&rng) % 64);
+            o = brm_v3(c[0], c[1], c[2]);
+            d = brm_v3(0, 0, 0);
+            while (d.x == 0 && d.y == 0 && d.z == 0)
+                d = brm_v3(0.125 * ((int)(fx_next(&rng) % 5) - 2), 0.125 * ((int)(fx_next(&rng) % 5) - 2),
+                           0.125 * ((int)(fx_next(&rng) % 5) - 2));
+        } else {
+            o = fx_point(&rng, 0, 8);
+            d = brm_scale(fx_dir(&rng), fx_range(&rng, 0.01, 0.6));
+        }
+        brm_vec3 pt[8];
+        int got[8];
+        for (int a = 0; a < 8; a++) pt[a] = brm_madd(o, d, (double)a - 3.0);
+        brm_solid_index_query_row(x, pt, 8, got);
+        for (int a = 0; a < 8; a++) {
+            int want = brm_solid_index_query(x, pt[a]);
+            assert_int_equal(got[a], want);
+            inside += want;
+            outside += !want;
+        }
+        rows++;
+    }
+    assert_int_equal(rows, 4000);
+    assert_true(inside > 3000 && outside > 3000);
+    brm_solid_index_free(x);
+    fx_free(&f);
+}
+
 static void frustum_voxelization_should_agree_with_point_classification(void **state)
 {
     (void)state;
@@ -473,6 +569,8 @@ int main(void)
         cmocka_unit_test(voxelize_should_mark_only_the_surface_of_open_meshes),
         cmocka_unit_test(voxelize_should_keep_sealed_air_empty_and_fill_cut_solids),
         cmocka_unit_test(voxelize_should_not_depend_on_thread_count),
+        cmocka_unit_test(voxelize_rows_should_agree_with_the_point_test_on_surfaces_through_the_points),
+        cmocka_unit_test(solid_rows_should_answer_as_points_on_faces_edges_and_corners),
         cmocka_unit_test(frustum_voxelization_should_agree_with_point_classification),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
