@@ -131,14 +131,15 @@ static void frustum_lookup(const frustum_fog *ff, double u, double v, double z, 
 
 /* ---- fog from a world volume -------------------------------------------------------------- */
 
-enum { WF_EXT, WF_FREE, WF_A, WF_FIELDS = WF_A + 12 };
+/* A cell's fields, padded to 16 floats (one 64-byte line, four 4-float lanes). */
+enum { WF_EXT, WF_FREE, WF_A, WF_FIELDS = WF_A + 12, WF_STRIDE = 16 };
 
 typedef struct world_fog {
     uint32_t n[3];
     brm_aabb box;
     brm_vec3 cell, inv_cell;
     double step;        /* march step: the smallest cell edge */
-    float *f;           /* WF_FIELDS per cell: extinction, free fraction, per channel the four
+    float *f;           /* WF_STRIDE per cell (the last two zero): extinction, free fraction, per channel the four
                            coefficients of S(v) = a0 + a1·v.y + a2·v.z + a3·v.x */
 } world_fog;
 
@@ -168,16 +169,27 @@ static int world_sample(const world_fog *wf, brm_vec3 p, double *sigma, double a
         i1[ax] = i0[ax] + 1 < wf->n[ax] ? i0[ax] + 1 : i0[ax];
         w1[ax] = c - fl;
     }
-    double acc[WF_FIELDS];
-    memset(acc, 0, sizeof acc);
+    /* Single precision, all 16 floats of a cell at once (the compiler's vector lanes): the
+     * weights and the fields are floats already, and eight terms lose nothing a picture shows. */
+    typedef float v4f __attribute__((vector_size(16)));
+    v4f acc4[WF_STRIDE / 4] = {{0}};
     for (int corner = 0; corner < 8; corner++) {
         uint32_t ix = corner & 1 ? i1[0] : i0[0], iy = corner & 2 ? i1[1] : i0[1], iz = corner & 4 ? i1[2] : i0[2];
-        double w = (corner & 1 ? w1[0] : 1.0 - w1[0]) * (corner & 2 ? w1[1] : 1.0 - w1[1]) *
-                   (corner & 4 ? w1[2] : 1.0 - w1[2]);
-        if (w == 0.0) continue;
-        const float *f = wf->f + WF_FIELDS * ((size_t)ix + (size_t)wf->n[0] * ((size_t)iy + (size_t)wf->n[1] * iz));
-        for (int q = 0; q < WF_FIELDS; q++) acc[q] += w * f[q];
+        const float w = (float)((corner & 1 ? w1[0] : 1.0 - w1[0]) * (corner & 2 ? w1[1] : 1.0 - w1[1]) *
+                                (corner & 4 ? w1[2] : 1.0 - w1[2]));
+        if (w == 0.0f) continue;
+        const float *f = wf->f + WF_STRIDE * ((size_t)ix + (size_t)wf->n[0] * ((size_t)iy + (size_t)wf->n[1] * iz));
+        const v4f wv = {w, w, w, w};
+        for (int q = 0; q < WF_STRIDE / 4; q++) {
+            v4f fv;
+            memcpy(&fv, f + 4 * q, sizeof fv);
+            acc4[q] += wv * fv;
+        }
     }
+    float acc_f[WF_STRIDE];
+    memcpy(acc_f, acc4, sizeof acc_f);
+    double acc[WF_FIELDS];
+    for (int q = 0; q < WF_FIELDS; q++) acc[q] = acc_f[q];
     if (!(acc[WF_FREE] > 1e-9)) return 0;
     double inv = 1.0 / acc[WF_FREE];
     *sigma = acc[WF_EXT] * inv;
@@ -657,7 +669,7 @@ static void chi_layer(void *ctx, uint32_t z, int worker)
                                 mp.sigma_t_each[i] * m->albedo.z};
                 for (int ch = 0; ch < 3; ch++) num[ch] += ws[ch] * g1, den[ch] += ws[ch];
             }
-            float *f = wf->f + WF_FIELDS * ((size_t)x + (size_t)wf->n[0] * ((size_t)y + (size_t)wf->n[1] * z));
+            float *f = wf->f + WF_STRIDE * ((size_t)x + (size_t)wf->n[0] * ((size_t)y + (size_t)wf->n[1] * z));
             for (int ch = 0; ch < 3; ch++) {
                 double chi = den[ch] > 0.0 ? num[ch] / den[ch] : 0.0;
                 for (int m = 1; m < 4; m++) f[WF_A + 4 * ch + m] = (float)(f[WF_A + 4 * ch + m] * chi);
@@ -683,7 +695,7 @@ static brm_status load_world(job *j, const brv_volume *vol, const char *vol_path
     size_t n = brv_channel_size(vol), bytes;
     brm_status st = BRM_OK;
     float *tmp = malloc(sizeof(float) * n);
-    if (brm_mul_size(n, sizeof(float) * WF_FIELDS, &bytes)) wf->f = malloc(bytes);
+    if (brm_mul_size(n, sizeof(float) * WF_STRIDE, &bytes)) wf->f = calloc(n, sizeof(float) * WF_STRIDE);
     if (!tmp || !wf->f) {
         free(tmp);
         return brm_diag_error(d, BRM_E_NOMEM, "%s: out of memory for the fog (%zu cells)", vol_path, n);
@@ -697,7 +709,7 @@ static brm_status load_world(job *j, const brv_volume *vol, const char *vol_path
         for (size_t i = 0; i < n; i++) {
             double v = offset + scale * (double)tmp[i];
             if (q == 1) v = brm_clamp(v, 0.0, 1.0);
-            wf->f[WF_FIELDS * i + (size_t)q] = (float)v;
+            wf->f[WF_STRIDE * i + (size_t)q] = (float)v;
         }
     }
     free(tmp);
@@ -716,7 +728,7 @@ static brm_status load_world(job *j, const brv_volume *vol, const char *vol_path
     if (same) {
         for (size_t i = 0; i < n; i++)
             for (int ch = 0; ch < 3; ch++)
-                for (int m = 1; m < 4; m++) wf->f[WF_FIELDS * i + WF_A + 4 * (size_t)ch + (size_t)m] *= (float)g1;
+                for (int m = 1; m < 4; m++) wf->f[WF_STRIDE * i + WF_A + 4 * (size_t)ch + (size_t)m] *= (float)g1;
     } else {
         chi_job c = {s, wf};
         if (brm_parallel_for(wf->n[2], threads, chi_layer, &c, &brm_interrupted) != wf->n[2])
