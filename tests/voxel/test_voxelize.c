@@ -321,6 +321,18 @@ static void voxelize_should_keep_sealed_air_empty_and_fill_cut_solids(void **sta
     fx_free(&f);
 }
 
+/* How many of cell (i, j, k)'s occupancy lattice points the slow point test puts inside. */
+static int point_test_count(const brm_scene *s, const brm_grid *g, uint32_t i, uint32_t j, uint32_t k)
+{
+    int cnt = 0;
+    for (int z = 0; z < BRM_OCC_SUB; z++)
+        for (int y = 0; y < BRM_OCC_SUB; y++)
+            for (int x = 0; x < BRM_OCC_SUB; x++)
+                cnt += brm_point_in_solid(s, brm_grid_point(g, i + (x + 0.5) / BRM_OCC_SUB, j + (y + 0.5) / BRM_OCC_SUB,
+                                                            k + (z + 0.5) / BRM_OCC_SUB));
+    return cnt;
+}
+
 static void voxelize_should_not_depend_on_thread_count(void **state)
 {
     (void)state;
@@ -353,12 +365,7 @@ static void voxelize_should_not_depend_on_thread_count(void **state)
     for (size_t c = 0; c < n && checked < 300; c += 37) {
         if (o1.state[c] != BRM_CELL_SURFACE) continue;
         uint32_t i = (uint32_t)(c % 40), j = (uint32_t)((c / 40) % 36), k = (uint32_t)(c / (40 * 36));
-        int cnt = 0;
-        for (int z = 0; z < 4; z++)
-            for (int y = 0; y < 4; y++)
-                for (int x = 0; x < 4; x++)
-                    cnt += brm_point_in_solid(&f.s, brm_grid_point(&g, i + (x + 0.5) / 4, j + (y + 0.5) / 4,
-                                                                   k + (z + 0.5) / 4));
+        int cnt = point_test_count(&f.s, &g, i, j, k);
         assert_true(o1.fraction[c] == cnt / 64.0f);
         checked++;
     }
@@ -427,12 +434,7 @@ static void voxelize_rows_should_agree_with_the_point_test_on_surfaces_through_t
     for (size_t c = 0; c < n; c++) {
         if (o.state[c] != BRM_CELL_SURFACE) continue;
         uint32_t i = (uint32_t)(c % 8), j = (uint32_t)((c / 8) % 8), k = (uint32_t)(c / 64);
-        int cnt = 0;
-        for (int z = 0; z < 4; z++)
-            for (int y = 0; y < 4; y++)
-                for (int x = 0; x < 4; x++)
-                    cnt += brm_point_in_solid(&f.s, brm_grid_point(&g, i + (x + 0.5) / 4, j + (y + 0.5) / 4,
-                                                                   k + (z + 0.5) / 4));
+        int cnt = point_test_count(&f.s, &g, i, j, k);
         assert_true(o.fraction[c] == cnt / 64.0f);
         checked++;
         partial += cnt > 0 && cnt < 64;
