@@ -294,7 +294,7 @@ static void surface_direct(const probe_ctx *c, brm_vec3 p, brm_vec3 n, double E[
         double cosi = brm_dot(n, to);
         if (e <= 0 || cosi <= 0) continue;
         /* Bounce light: the sharp lookup (its penumbra matters little there). */
-        double v = brm_shadow_visibility_sharp(c->ss, l, p);
+        double v = brm_shadow_visibility_surface_sharp(c->ss, l, p, n);
         if (v <= 0) continue;
         e *= cosi * v * brm_shadow_transmittance(c->ss, l, p);
         E[0] += e * lt->color.x;
@@ -388,7 +388,7 @@ static void surf_eval(const void *ctx, brm_vec3 p, brm_vec3 n, uint32_t index, d
         int lit = e > 0 && cosi > 0;
         double vis = 0.0, tr = 1.0;
         if (lit || (c->surf_lights && !light_unused_near(c, lt, p, n))) {
-            vis = brm_shadow_visibility_sharp(c->ss, l, p);
+            vis = brm_shadow_visibility_surface_sharp(c->ss, l, p, n);
             if (vis > 0) tr = brm_shadow_transmittance(c->ss, l, p);
         }
         if (c->surf_lights) {
@@ -428,7 +428,7 @@ static void surface_fallback(const probe_ctx *c, uint32_t tri, brm_vec3 p, brm_v
         const float *x2 = cell->extra[2] + 2 * l, *x3 = cell->extra[3] + 2 * l;
         double vis;
         if (x0[0] == x1[0] && x0[0] == x2[0] && x0[0] == x3[0] && (x0[0] == 0.0f || x0[0] == 1.0f)) vis = x0[0];
-        else vis = brm_shadow_visibility_sharp(c->ss, l, p);
+        else vis = brm_shadow_visibility_surface_sharp(c->ss, l, p, n);
         if (vis <= 0) continue;
         double tlo = fmin(fmin(x0[1], x1[1]), fmin(x2[1], x3[1])), thi = fmax(fmax(x0[1], x1[1]), fmax(x2[1], x3[1]));
         double tr = x0[0] > 0 && x1[0] > 0 && x2[0] > 0 && x3[0] > 0 && thi - tlo <= 0.02

@@ -504,7 +504,11 @@ static brm_vec3 toward(const brm_light *l, brm_vec3 p, double *dist)
 #define REF_FILTER_N 89
 #define REF_FILTER_G 55
 
-static double reference_visibility(const brm_shadow_set *ss, uint32_t l, brm_vec3 p)
+/* With a surface normal (non-NULL n), each footprint point is moved along its ray onto the
+ * surface's plane through p: the filter then spreads over the receiving surface, as a map's
+ * filter does with its slope-scaled bias, instead of reaching below a surface the light meets at
+ * an angle and finding the surface itself in the way. */
+static double reference_visibility_on(const brm_shadow_set *ss, uint32_t l, brm_vec3 p, const brm_vec3 *n)
 {
     const brm_light *light = &ss->scene->lights[l];
     const light_shadow *ls = &ss->lights[l];
@@ -528,10 +532,23 @@ static double reference_visibility(const brm_shadow_set *ss, uint32_t l, brm_vec
             brm_vec3 q = brm_add(p, brm_add(brm_scale(v->u, a), brm_scale(v->v, b)));
             double qd;
             brm_vec3 qdir = toward(light, q, &qd);
+            if (n) {
+                double dn = brm_dot(qdir, *n);
+                if (dn > 1e-6) {
+                    double t = -brm_dot(brm_sub(q, p), *n) / dn;
+                    q = brm_madd(q, qdir, t);
+                    qdir = toward(light, q, &qd);
+                }
+            }
             double tmax = isfinite(qd) ? qd - ss->eps : HUGE_VAL;
             if (!brm_bvh_occluded(ss->bvh, q, qdir, ss->eps, tmax)) lit++;
         }
     return (double)lit / REF_FILTER_N;
+}
+
+static double reference_visibility(const brm_shadow_set *ss, uint32_t l, brm_vec3 p)
+{
+    return reference_visibility_on(ss, l, p, NULL);
 }
 
 int brm_shadow_classify(const brm_shadow_set *ss, uint32_t l, brm_aabb b)
@@ -563,6 +580,49 @@ double brm_shadow_visibility(const brm_shadow_set *ss, uint32_t l, brm_vec3 p)
     const light_shadow *ls = &ss->lights[l];
     if (!ls->has_map) return 1.0;
     return brm_shadowmap_pcf(brm_shadow_pick_view(ls, p), p, ls->softness);
+}
+
+/* A map lookup for a point p of a surface of normal n, moved toward the light: a filter of
+ * half width `softness` texels reaches softness + 1 texels sideways (with the bilinear step),
+ * and over that reach a surface at angle theta to the light's rays climbs tan(theta) times as
+ * far in depth, more than the maps' bias (sized for fog), so a lit surface would shadow
+ * itself. The lookup moves that far toward the light, the receiver-side counterpart of the
+ * slope-scaled bias (common practice, no source); tan capped at 4. */
+static brm_vec3 lift_toward_light(const light_shadow *ls, const brm_light *light, brm_vec3 p, brm_vec3 n,
+                                  double softness)
+{
+    double dist;
+    brm_vec3 to = toward(light, p, &dist);
+    double c = brm_dot(n, to);
+    if (!(c > 0.0)) return p;
+    const shadow_view *v = brm_shadow_pick_view(ls, p);
+    double texel = v->kind == BRM_VIEW_ORTHO ? v->texel : v->texel * fmax(brm_dot(brm_sub(p, v->origin), v->f), 0.0);
+    double tn = fmin(sqrt(fmax(0.0, 1.0 - c * c)) / c, 4.0);
+    double lift = (softness + 1.0) * texel * tn;
+    if (isfinite(dist)) lift = fmin(lift, 0.5 * dist);
+    return brm_madd(p, to, lift);
+}
+
+double brm_shadow_visibility_surface(const brm_shadow_set *ss, uint32_t l, brm_vec3 p, brm_vec3 n)
+{
+    const brm_light *light = &ss->scene->lights[l];
+    if (!light->shadow || ss->scene->object_count == 0) return 1.0;
+    if (ss->opts.reference) return reference_visibility_on(ss, l, p, &n);
+    const light_shadow *ls = &ss->lights[l];
+    if (!ls->has_map) return 1.0;
+    p = lift_toward_light(ls, light, p, n, ls->softness);
+    return brm_shadowmap_pcf(brm_shadow_pick_view(ls, p), p, ls->softness);
+}
+
+double brm_shadow_visibility_surface_sharp(const brm_shadow_set *ss, uint32_t l, brm_vec3 p, brm_vec3 n)
+{
+    const brm_light *light = &ss->scene->lights[l];
+    if (!light->shadow || ss->scene->object_count == 0) return 1.0;
+    if (ss->opts.reference) return brm_shadow_visibility_sharp(ss, l, p);
+    const light_shadow *ls = &ss->lights[l];
+    if (!ls->has_map) return 1.0;
+    p = lift_toward_light(ls, light, p, n, 0.5);
+    return brm_shadowmap_pcf(brm_shadow_pick_view(ls, p), p, 0.5);
 }
 
 double brm_shadow_visibility_sharp(const brm_shadow_set *ss, uint32_t l, brm_vec3 p)

@@ -57,10 +57,19 @@ int brm_shadow_classify(const brm_shadow_set *ss, uint32_t l, brm_aabb b);
 /* Geometric visibility of light l from p, in [0, 1] (filtered). 1 when the light casts no shadow. */
 double brm_shadow_visibility(const brm_shadow_set *ss, uint32_t l, brm_vec3 p);
 
+/* The same for a point p on a surface of unit normal n (facing the light): the fast path is
+ * brm_shadow_visibility (the maps' slope-scaled bias keeps a lit surface from shadowing itself);
+ * the reference spreads its filter over the surface's plane, where for a point in the fog it
+ * spreads it across the light's rays. */
+double brm_shadow_visibility_surface(const brm_shadow_set *ss, uint32_t l, brm_vec3 p, brm_vec3 n);
+
 /* The same with the narrowest filter (bilinear over the four nearest texels): for surfaces
  * lit by a bounce, where the penumbra's width matters little and the lookup count does. The
  * reference path traces one ray. */
 double brm_shadow_visibility_sharp(const brm_shadow_set *ss, uint32_t l, brm_vec3 p);
+/* brm_shadow_visibility_sharp for a point p of a surface of unit normal n, moved toward the
+ * light as brm_shadow_visibility_surface does (bounce light off lit surfaces). */
+double brm_shadow_visibility_surface_sharp(const brm_shadow_set *ss, uint32_t l, brm_vec3 p, brm_vec3 n);
 
 /* Transmittance exp(−∫sigma_t) from p toward light l, up to the light or to where the path
  * leaves the fog bounds. Within 1 % of the reference march. */

@@ -377,7 +377,7 @@ static void light_surface(const job *j, brm_vec3 q, brm_vec3 n, double e[3])
         if (!(E > 0.0)) continue;
         double cs = brm_dot(n, to);
         if (!(cs > 0.0)) continue;
-        double v = brm_shadow_visibility(j->ss, l, q);
+        double v = brm_shadow_visibility_surface(j->ss, l, q, n);
         if (!(v > 0.0)) continue;
         double a = E * cs * v * brm_shadow_transmittance(j->ss, l, q);
         e[0] += a * lt->color.x, e[1] += a * lt->color.y, e[2] += a * lt->color.z;

@@ -115,7 +115,9 @@ static void probe_facing_a_lit_white_wall_should_see_its_exitance(void **state)
 
 /* The wall above with a 9 × 9 lattice 0.5 m in front of it, enough rays that the bake uses the
  * surface cache for the bounce (nodes at half the 1 m spacing), lit by a sun of 100 lux
- * travelling along `direction`; every probe's irradiance toward the wall must be `expect`. */
+ * travelling along `direction`; every probe's irradiance toward the wall must be `expect`,
+ * within 1.5 % (when the wall's map lookups let it shadow itself, 60° off its normal was 1.9 %
+ * dark). */
 static void wall_lattice_through_the_surface_cache(const char *direction, double expect)
 {
     char json[1024];
@@ -141,7 +143,7 @@ static void wall_lattice_through_the_surface_cache(const char *direction, double
     for (size_t c = 0; c < 81; c++) {
         double L[9];
         probe_sh(v, 'g', c, L);
-        assert_rel(brm_sh9_irradiance(L, brm_v3(-1, 0, 0)), expect, 0.05);
+        assert_rel(brm_sh9_irradiance(L, brm_v3(-1, 0, 0)), expect, 0.015);
     }
     brv_free(v);
 }

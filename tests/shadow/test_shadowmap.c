@@ -408,6 +408,70 @@ static void classify_should_agree_with_every_lookup_in_the_box(void **state)
     brm_scene_free(s);
 }
 
+/* Whether the ray from p toward the light (against f) meets box b: the exact shadow of a box. */
+static int box_blocks(brm_vec3 p, brm_vec3 f, brm_aabb b)
+{
+    brm_vec3 d = brm_scale(f, -1.0);
+    double t0, t1;
+    return brm_ray_aabb(p, brm_v3(1.0 / d.x, 1.0 / d.y, 1.0 / d.z), b, 1e-9, HUGE_VAL, &t0, &t1);
+}
+
+/* A floor lit by a low sun, with a pillar's shadow on it. At the floor, the plain lookup's
+ * filter reaches over floor that is nearer the light than the point and the fog-sized bias
+ * does not cover it: the lit floor darkens in stripes. The surface lookup must see the lit
+ * floor wholly lit and the pillar's shadow wholly dark, on the fast path and the reference
+ * alike, at every sun height. The shadow is the exact one, a ray toward the light against the
+ * pillar's box (Source: the geometry of a parallel projection). */
+static void lit_surfaces_should_not_shadow_themselves(void **state)
+{
+    (void)state;
+    const brm_aabb pillar = {{-0.5, 0.0, -0.5}, {0.5, 3.0, 0.5}};
+    const double from_normal_deg[3] = {30.0, 63.0, 76.0};
+    for (int a = 0; a < 3; a++) {
+        brm_scene *s = sf_scene((brm_aabb){{-10, 0, -10}, {10, 4, 10}});
+        sf_box(s, brm_v3(-12, -1, -12), brm_v3(12, 0, 12), false);
+        sf_box(s, pillar.min, pillar.max, false);
+        double th = from_normal_deg[a] * BRM_PI / 180.0;
+        brm_vec3 f = brm_v3(sin(th) * 0.8, -cos(th), sin(th) * 0.6);
+        sf_sun(s, f);
+        sf_ready(s);
+        const brm_aabb floor_zone = {{-8, 0, -8}, {8, 0.5, 8}};
+        for (int ref = 0; ref < 2; ref++) {
+            brm_shadow_set *ss = sf_build(s, floor_zone, 0.25, ref == 1, NULL, 1);
+            /* The filter's reach, stretched over the floor by 1/cos of the sun's angle, and the
+             * surface lookup's lift toward the light. */
+            double texel = brm_shadow_texel_size(ss, 0), band = (3.0 * texel + 0.02) / cos(th) + 4.0 * 2.5 * texel;
+            uint64_t rng = 5 + (uint64_t)a;
+            int lit = 0, dark = 0, plain_dim = 0;
+            for (int n = 0; n < (ref ? 400 : 4000); n++) {
+                brm_vec3 p = sf_in_box(&rng, floor_zone);
+                p.y = 1e-6;
+                /* Away from the shadow's edge: the same answer a band's width around. */
+                int in = box_blocks(p, f, pillar), edge = 0;
+                for (int k = 0; k < 8 && !edge; k++) {
+                    double ang = k * BRM_PI / 4.0;
+                    edge = box_blocks(brm_add(p, brm_v3(band * cos(ang), 0, band * sin(ang))), f, pillar) != in;
+                }
+                if (edge) continue;
+                double v = brm_shadow_visibility_surface(ss, 0, p, brm_v3(0, 1, 0));
+                if (in) {
+                    dark++;
+                    assert_near(v, 0.0, 0.0, 0.0);
+                } else {
+                    lit++;
+                    assert_near(v, 1.0, 0.0, 0.0);
+                    plain_dim += brm_shadow_visibility(ss, 0, p) < 0.99;
+                }
+            }
+            assert_true(lit > (ref ? 100 : 1000) && dark > (ref ? 2 : 20));
+            /* Not vacuous: low sun, the plain lookup does darken the lit floor. */
+            if (!ref && a == 2) assert_true(plain_dim > lit / 10);
+            brm_shadows_free(ss);
+        }
+        brm_scene_free(s);
+    }
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
@@ -420,6 +484,7 @@ int main(void)
         cmocka_unit_test(build_should_not_depend_on_thread_count),
         cmocka_unit_test(reference_mode_should_trace_rays),
         cmocka_unit_test(classify_should_agree_with_every_lookup_in_the_box),
+        cmocka_unit_test(lit_surfaces_should_not_shadow_themselves),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }
