@@ -150,8 +150,9 @@ static void hash_str(brm_sha256 *c, const char *tag, const char *v)
     if (v) brm_sha256_update(c, v, strlen(v) + 1);
 }
 
-/* What decides whether target t's output is up to date. Besides the tool version, the scene's
- * name, the target's own JSON, the settings and every referenced file's content hash, it takes
+/* What decides whether target t's output is up to date. Besides the tool version, the bake
+ * revision (BRM_BAKE_REVISION), the scene's name, the target's own JSON, the settings and
+ * every referenced file's content hash, it takes
  * the shared part of the scene (geometry, media, sky, fog bounds) without its "lights", plus the
  * canonical JSON of only those lights that can reach what t depends on (brm_target_lit_bounds,
  * in scene order): changing a light re-bakes exactly the targets it reaches. The resolved fog
@@ -162,6 +163,9 @@ void brm_bake_input_hash(const brm_scene *s, uint32_t t, const brm_bake_opts *o,
     brm_sha256 c;
     brm_sha256_init(&c);
     hash_str(&c, "tool", BRUME_VERSION_STRING);
+    char revision[16];
+    snprintf(revision, sizeof revision, "%d", BRM_BAKE_REVISION);
+    hash_str(&c, "revision", revision);
     hash_str(&c, "scene", s->name);
     /* cJSON's parser records errors in a global: several targets bake at once, so parses of
      * the shared text take turns (the hash is computed once per bake, the wait is short). */

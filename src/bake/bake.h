@@ -13,6 +13,16 @@
 
 #include "scene/scene.h"
 
+/* The bake revision: raised whenever the same inputs bake to different values (a fix or a
+ * change of method in the baker), within one tool version as across them. It is part of every
+ * target's input hash, so a build that upgrades brume re-bakes exactly what would now come out
+ * differently, instead of keeping volumes baked the old way as up to date.
+ * tests/bake/test_revision.c holds a digest of the values a fixed scene bakes to, and fails
+ * when they change while this number does not.
+ *   1  the baker up to this session's start
+ *   2  lit surfaces no longer shadow themselves in the maps: probes' bounce light */
+#define BRM_BAKE_REVISION 2
+
 typedef void (*brm_progress_fn)(void *user, uint64_t done, uint64_t total);
 
 typedef struct brm_bake_opts {
